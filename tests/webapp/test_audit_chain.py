@@ -1,0 +1,154 @@
+"""The review log's hash chain: canonical JSON, entry hashes, verification, tampering.
+
+Sources: SHA-256 test vector "abc" from NIST FIPS 180-2 (2002), Appendix B.1; canonical JSON
+as in RFC 8785 (JSON Canonicalization Scheme, 2020) section 3.2.3 (members sorted by name) for
+the subset we use (strings, integers, maps, lists); a hash chain where each record carries the
+digest of its predecessor (Haber & Stornetta 1991, "How to time-stamp a digital document",
+Journal of Cryptology 3(2), 99-111).  The database part runs on SQLite and on PostgreSQL.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from datetime import datetime, timezone
+
+import pytest
+
+from webapp.services import audit
+
+
+def test_sha256_is_the_standard_one():
+    # NIST FIPS 180-2 (2002), Appendix B.1: SHA-256("abc").
+    assert hashlib.sha256(b"abc").hexdigest() == (
+        "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+    )
+
+
+def test_canonical_json_sorts_keys_and_drops_whitespace():
+    # RFC 8785 section 3.2.3: members sorted by name; no whitespace between tokens.
+    assert audit.canonical_json({"b": 1, "a": [2, {"d": "x", "c": None}]}) == (
+        '{"a":[2,{"c":null,"d":"x"}],"b":1}'
+    )
+
+
+def test_canonical_json_keeps_non_ascii_as_utf8():
+    # RFC 8785 section 3.2.2.2: strings are output as UTF-8, not \u escapes, outside control chars.
+    assert audit.canonical_json({"name": "Jörg Ødegård"}) == '{"name":"Jörg Ødegård"}'
+
+
+def test_canonical_json_refuses_nan():
+    # RFC 8259 section 6: NaN and Infinity are not JSON numbers.
+    with pytest.raises(ValueError):
+        audit.canonical_json({"x": float("nan")})
+
+
+def test_json_safe_turns_non_finite_into_null():
+    assert audit.json_safe({"x": float("inf"), "y": (1, 2.5)}) == {"x": None, "y": [1, 2.5]}
+
+
+def test_utc_iso_converts_zones_and_treats_naive_as_utc():
+    from datetime import timedelta
+
+    plus_two = timezone(timedelta(hours=2))
+    assert audit.utc_iso(datetime(2026, 5, 1, 12, 0, 0, 5, tzinfo=plus_two)) == "2026-05-01T10:00:00.000005Z"
+    assert audit.utc_iso(datetime(2026, 5, 1, 12, 0, 0)) == "2026-05-01T12:00:00.000000Z"
+
+
+def test_entry_hash_is_sha256_of_the_hand_written_canonical_body():
+    at = datetime(2026, 1, 2, 3, 4, 5, 6, tzinfo=timezone.utc)
+    # The body written out by hand, keys in code-point order (RFC 8785 section 3.2.3).
+    text = (
+        '{"action":"propose","actor":{"id":7,"name":"Ana Analyst"},'
+        '"at":"2026-01-02T03:04:05.000006Z","dataset_id":3,'
+        '"payload":{"samples":["B-12"]},"prev_hash":"' + "0" * 64 + '","seq":1}'
+    )
+    expected = hashlib.sha256(text.encode("utf-8")).hexdigest()
+    got = audit.entry_hash(
+        seq=1,
+        at=at,
+        actor={"id": 7, "name": "Ana Analyst"},
+        action="propose",
+        dataset_id=3,
+        payload={"samples": ["B-12"]},
+        prev_hash="0" * 64,
+    )
+    assert got == expected
+
+
+def _chain(n: int) -> list[dict]:
+    """Build a chain by the definition in the module docstring (independent of verify)."""
+    entries, prev = [], audit.GENESIS_HASH
+    for seq in range(1, n + 1):
+        entry = {
+            "seq": seq,
+            "at": f"2026-02-0{1 + seq % 9}T10:00:00.000000Z",
+            "actor_id": seq % 3,
+            "actor_name": f"user {seq % 3}",
+            "action": "propose" if seq % 2 else "approve",
+            "dataset_id": 1,
+            "payload": {"n": seq, "samples": [f"S{seq}"]},
+            "prev_hash": prev,
+        }
+        body = {
+            "seq": seq,
+            "at": entry["at"],
+            "actor": {"id": entry["actor_id"], "name": entry["actor_name"]},
+            "action": entry["action"],
+            "dataset_id": 1,
+            "payload": entry["payload"],
+            "prev_hash": prev,
+        }
+        text = audit.canonical_json(body)
+        entry["hash"] = hashlib.sha256(text.encode("utf-8")).hexdigest()
+        prev = entry["hash"]
+        entries.append(entry)
+    return entries
+
+
+def _head(entries):
+    return {"seq": entries[-1]["seq"], "hash": entries[-1]["hash"]} if entries else {"seq": 0, "hash": audit.GENESIS_HASH}
+
+
+def test_intact_chain_verifies():
+    entries = _chain(6)
+    ok, broken, reason = audit.verify_entries(entries, _head(entries))
+    assert ok and broken is None, reason
+
+
+def test_empty_chain_verifies():
+    assert audit.verify_entries([], {"seq": 0, "hash": audit.GENESIS_HASH})[0]
+
+
+@pytest.mark.parametrize("field", ["at", "actor_id", "actor_name", "action", "dataset_id", "payload"])
+@pytest.mark.parametrize("victim", [1, 4, 6])
+def test_editing_any_field_of_any_entry_is_caught(field, victim):
+    entries = _chain(6)
+    head = _head(entries)
+    entry = entries[victim - 1]
+    entry[field] = {"payload": {"n": -1}, "at": "2030-01-01T00:00:00.000000Z"}.get(field, 99)
+    ok, broken, reason = audit.verify_entries(entries, head)
+    assert not ok and broken == victim, reason
+
+
+def test_rehashing_an_edited_entry_breaks_the_next_link():
+    entries = _chain(5)
+    head = _head(entries)
+    entries[1]["hash"] = "f" * 64
+    ok, broken, reason = audit.verify_entries(entries, head)
+    assert (ok, broken) == (False, 2)
+
+
+@pytest.mark.parametrize("victim", [1, 3, 5])
+def test_deleting_any_entry_is_caught(victim):
+    entries = _chain(5)
+    head = _head(entries)
+    del entries[victim - 1]
+    ok, broken, reason = audit.verify_entries(entries, head)
+    assert not ok and broken == victim, reason
+
+
+def test_entry_added_behind_the_heads_back_is_caught():
+    entries = _chain(4)
+    head = _head(entries[:3])
+    ok, broken, reason = audit.verify_entries(entries, head)
+    assert (ok, broken) == (False, 4), reason

@@ -1,0 +1,171 @@
+"""The review log: an append-only record chained by SHA-256.
+
+Every entry stores the hash of the entry before it (``prev_hash``) and its own
+``hash`` = SHA-256 over canonical JSON of
+``{seq, at, actor, action, dataset_id, payload, prev_hash}``.  Editing or
+deleting a stored entry breaks the chain at that entry; deleting entries at the
+tail is caught by the chain head row, which the app moves forward in the same
+transaction as every append.  ``verify_chain`` names the first broken entry.
+
+Appends are serialised across processes so the chain never forks: on
+PostgreSQL a transaction-scoped advisory lock, on SQLite ``BEGIN IMMEDIATE``;
+``UNIQUE(seq)`` in the database is the last guard.
+
+References: US FDA 21 CFR Part 11, 11.10(e) (secure, time-stamped audit trails
+that never obscure earlier entries); EU GMP Annex 11 (2011), section 9.
+Canonical JSON: sorted keys, no insignificant whitespace, UTF-8 (the subset of
+RFC 8785 that our payloads need: strings, integers, finite floats, lists, maps).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+from collections.abc import Iterable, Mapping
+from datetime import datetime, timezone
+from typing import Any
+
+GENESIS_HASH = "0" * 64
+# Any constant shared by every process; it only names the lock.
+_PG_CHAIN_LOCK_KEY = 0x1A7E_4E5C
+
+
+def canonical_json(value: Any) -> str:
+    """Serialise ``value`` the one way the hash is computed over.
+
+    NaN and infinity are refused (they have no JSON form); tuples become lists.
+    """
+    return json.dumps(
+        value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False
+    )
+
+
+def json_safe(value: Any) -> Any:
+    """Return ``value`` with NaN/inf floats replaced by None and tuples/sets by lists.
+
+    Used on payloads (e.g. a comparison dict) before they are hashed and stored,
+    so the stored JSON and the hashed JSON are the same text.
+    """
+    if isinstance(value, Mapping):
+        return {str(k): json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_safe(v) for v in value]
+    if isinstance(value, (set, frozenset)):
+        return sorted(json_safe(v) for v in value)
+    if hasattr(value, "tolist") and not isinstance(value, (str, bytes)):
+        return json_safe(value.tolist())  # numpy arrays and scalars
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, bool) or value is None or isinstance(value, (int, str)):
+        return value
+    if isinstance(value, datetime):
+        return utc_iso(value)
+    raise TypeError(f"value of type {type(value).__name__} cannot go into the review log")
+
+
+def utc_iso(moment: datetime) -> str:
+    """ISO 8601 UTC text with microseconds, e.g. ``2026-12-01T21:55:43.123456Z``.
+
+    A naive datetime is taken to be UTC already (SQLite hands timestamps back
+    without a zone).
+    """
+    if moment.tzinfo is None:
+        moment = moment.replace(tzinfo=timezone.utc)
+    return moment.astimezone(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+def now_utc() -> datetime:
+    """The current time in UTC, truncated to microseconds (what both databases keep)."""
+    return datetime.now(timezone.utc)
+
+
+def entry_hash(
+    *,
+    seq: int,
+    at: datetime | str,
+    actor: Mapping[str, Any],
+    action: str,
+    dataset_id: int | None,
+    payload: Mapping[str, Any],
+    prev_hash: str,
+) -> str:
+    """SHA-256 (hex) of the canonical JSON of one log entry's content."""
+    body = {
+        "seq": int(seq),
+        "at": at if isinstance(at, str) else utc_iso(at),
+        "actor": dict(actor),
+        "action": action,
+        "dataset_id": dataset_id,
+        "payload": payload,
+        "prev_hash": prev_hash,
+    }
+    return hashlib.sha256(canonical_json(body).encode("utf-8")).hexdigest()
+
+
+def actor_of(actor_id: int | None, actor_name: str) -> dict[str, Any]:
+    """The ``actor`` member of the hashed body: both the account id and the name."""
+    return {"id": actor_id, "name": actor_name}
+
+
+def verify_entries(
+    entries: Iterable[Mapping[str, Any]], head: Mapping[str, Any] | None = None
+) -> tuple[bool, int | None, str]:
+    """Check a chain of entries given in ``seq`` order.
+
+    Each entry is a mapping with keys seq, at, actor_id, actor_name, action,
+    dataset_id, payload, prev_hash, hash.  ``head`` (optional) is the recorded
+    chain head ``{"seq", "hash"}``; it catches entries removed from the end.
+
+    Returns ``(ok, first_broken_seq, reason)``; ``(True, None, "...")`` when intact.
+    """
+    expected_seq = 1
+    prev_hash = GENESIS_HASH
+    count = 0
+    for entry in entries:
+        seq = int(entry["seq"])
+        if seq != expected_seq:
+            if seq > expected_seq:
+                missing = (
+                    f"entry {expected_seq} is missing"
+                    if seq == expected_seq + 1
+                    else f"entries {expected_seq}-{seq - 1} are missing"
+                )
+                return False, expected_seq, f"{missing} (the log jumps to entry {seq})"
+            return False, seq, f"entry {seq} appears out of order or twice"
+        if entry["prev_hash"] != prev_hash:
+            return False, seq, (
+                f"entry {seq} does not point at the entry before it "
+                f"(stored prev_hash {str(entry['prev_hash'])[:12]}..., expected {prev_hash[:12]}...)"
+            )
+        recomputed = entry_hash(
+            seq=seq,
+            at=entry["at"],
+            actor=actor_of(entry["actor_id"], entry["actor_name"]),
+            action=entry["action"],
+            dataset_id=entry["dataset_id"],
+            payload=entry["payload"],
+            prev_hash=entry["prev_hash"],
+        )
+        if recomputed != entry["hash"]:
+            return False, seq, f"entry {seq} was changed after it was written (its hash does not match its content)"
+        prev_hash = entry["hash"]
+        expected_seq += 1
+        count += 1
+    if head is not None and int(head["seq"]) > 0:
+        head_seq = int(head["seq"])
+        if head_seq >= expected_seq:
+            return False, expected_seq, (
+                f"entry {expected_seq} is missing: the chain head records {head_seq} entries, "
+                f"the log holds {count}"
+            )
+        if head_seq < count:
+            return False, head_seq + 1, (
+                f"entry {head_seq + 1} was added outside the app: the chain head records "
+                f"{head_seq} entries, the log holds {count}"
+            )
+        if head["hash"] != prev_hash:
+            return False, head_seq, f"entry {head_seq} does not match the hash recorded in the chain head"
+    elif head is not None and count > 0:
+        return False, 1, f"the chain head records no entries, the log holds {count}"
+    return True, None, f"intact: {count} entries"

@@ -1,0 +1,159 @@
+"""Rules of the review workflow, free of any database: who may do what, when.
+
+Proposal states: proposed -> approved | rejected | withdrawn (DESIGN.md 6).
+Roles: viewer < analyst < reviewer; admin also has reviewer rights.  A proposer
+never signs their own proposal (four-eyes principle, in the spirit of
+21 CFR Part 11 11.10 and EU GMP Annex 11 section 14; no compliance is claimed).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+
+from analysis.errors import InputError
+
+REASON_CATEGORIES = (
+    "measurement error",
+    "sample mix-up",
+    "process deviation",
+    "extreme but valid",
+    "careless response",
+    "other",
+)
+PROPOSAL_ACTIONS = ("exclude", "reinstate")
+MEANINGS = {"approve": "approved", "reject": "rejected"}
+MAX_REASON_CHARS = 4000
+MAX_COMMENT_CHARS = 4000
+
+_CAN_PROPOSE = {"analyst", "reviewer", "admin"}
+_CAN_SIGN = {"reviewer", "admin"}
+
+
+class ReviewRefused(InputError):
+    """A review action the rules do not allow; ``status`` is the HTTP status the API uses."""
+
+    def __init__(self, message: str, *, code: str, status: int):
+        super().__init__(message)
+        self.code = code
+        self.status = status
+
+
+def forbidden(message: str) -> ReviewRefused:
+    return ReviewRefused(message, code="forbidden", status=403)
+
+
+def conflict(message: str) -> ReviewRefused:
+    return ReviewRefused(message, code="conflict", status=409)
+
+
+def check_can_propose(role: str) -> None:
+    if role not in _CAN_PROPOSE:
+        raise forbidden(f"a {role} cannot propose exclusions; analysts and reviewers can")
+
+
+def check_can_sign(*, signer_id: int, role: str, proposed_by: int, state: str) -> None:
+    """Refuse a signature by a viewer/analyst, by the proposer, or on a decided proposal."""
+    if role not in _CAN_SIGN:
+        raise forbidden(f"a {role} cannot sign proposals; reviewers can")
+    if signer_id == proposed_by:
+        raise forbidden("the proposer cannot sign their own proposal; a second reviewer must")
+    check_open(state)
+
+
+def check_can_withdraw(*, user_id: int, proposed_by: int, state: str) -> None:
+    if user_id != proposed_by:
+        raise forbidden("only the proposer can withdraw a proposal")
+    check_open(state)
+
+
+def check_open(state: str) -> None:
+    if state != "proposed":
+        raise conflict(f"this proposal is already {state}; nothing can change it now")
+
+
+def clean_text(value, *, field: str, limit: int, required: bool) -> str:
+    """Strip a free-text field and check it; user text is stored as typed (shown as text)."""
+    if value is None:
+        value = ""
+    if not isinstance(value, str):
+        raise InputError(f"{field} must be text, got {type(value).__name__}")
+    text = value.strip()
+    if required and not text:
+        raise InputError(f"{field} is required: say in words why")
+    if len(text) > limit:
+        raise InputError(f"{field} is {len(text)} characters long; the limit is {limit}")
+    return text
+
+
+def check_proposal(
+    *,
+    action: str,
+    samples,
+    reason_category,
+    reason,
+    known_samples: Sequence[str],
+    excluded_now: Iterable[str],
+) -> tuple[list[str], str, str]:
+    """Validate a proposal; return (sorted sample ids, category, cleaned reason).
+
+    Exclude: every sample must exist and not be excluded already.  Reinstate:
+    every sample must be excluded now (reinstating is how an approved exclusion
+    is reversed).
+    """
+    if action not in PROPOSAL_ACTIONS:
+        raise InputError(f"action must be one of {', '.join(PROPOSAL_ACTIONS)}, got {action!r}")
+    if not isinstance(samples, (list, tuple)) or not samples:
+        raise InputError("samples must be a non-empty list of sample ids")
+    ids = []
+    for value in samples:
+        if not isinstance(value, (str, int)) or isinstance(value, bool):
+            raise InputError(f"sample id {value!r} is not text")
+        ids.append(str(value))
+    duplicates = sorted({s for s in ids if ids.count(s) > 1})
+    if duplicates:
+        raise InputError(f"sample id(s) listed twice: {', '.join(duplicates)}")
+    known = set(known_samples)
+    unknown = [s for s in ids if s not in known]
+    if unknown:
+        raise InputError(f"unknown sample id(s) in this dataset: {', '.join(unknown[:10])}")
+    excluded = set(excluded_now)
+    if action == "exclude":
+        already = sorted(s for s in ids if s in excluded)
+        if already:
+            raise InputError(f"already excluded by an approved proposal: {', '.join(already)}")
+        if len(known) - len(excluded) - len(ids) < 3:
+            raise InputError(
+                f"excluding {len(ids)} sample(s) would leave {len(known) - len(excluded) - len(ids)}; "
+                "a model needs at least 3"
+            )
+    else:
+        not_excluded = sorted(s for s in ids if s not in excluded)
+        if not_excluded:
+            raise InputError(f"not excluded now, so nothing to reinstate: {', '.join(not_excluded)}")
+    if reason_category not in REASON_CATEGORIES:
+        raise InputError(
+            f"reason_category must be one of: {', '.join(REASON_CATEGORIES)}; got {reason_category!r}"
+        )
+    text = clean_text(reason, field="reason", limit=MAX_REASON_CHARS, required=True)
+    return sorted(ids), reason_category, text
+
+
+def fold_exclusions(approved: Iterable[tuple[str, Iterable[str]]]) -> list[str]:
+    """Apply approved proposals in decision order: exclude adds, reinstate removes.
+
+    ``approved`` yields ``(action, samples)``; returns the sorted excluded ids.
+    """
+    excluded: set[str] = set()
+    for action, samples in approved:
+        if action == "exclude":
+            excluded.update(samples)
+        elif action == "reinstate":
+            excluded.difference_update(samples)
+        else:
+            raise ValueError(f"unknown proposal action {action!r}")
+    return sorted(excluded)
+
+
+def after_exclusions(action: str, samples: Iterable[str], excluded_now: Iterable[str]) -> list[str]:
+    """The exclusion set a proposal would produce if approved."""
+    return fold_exclusions([("exclude", excluded_now), (action, samples)])
