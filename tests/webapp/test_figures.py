@@ -1,0 +1,263 @@
+"""Figure builders on data: the right traces, limits and colours.
+
+Outside sources named beside each check.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+import pytest
+from scipy import stats
+from sklearn.datasets import load_iris
+
+from webapp.ui import figures as F
+
+# Okabe, M., Ito, K. (2008) Color Universal Design (CUD): How to make figures and
+# presentations that are friendly to colorblind people, J*FLY; the eight colours as published.
+OKABE_ITO_PUBLISHED = ["#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7", "#000000"]
+
+
+def _iris_pca():
+    """Autoscaled iris (shipped by scikit-learn), PCA by numpy SVD: scores, eigenvalues, ratio."""
+    x = load_iris().data
+    z = (x - x.mean(0)) / x.std(0, ddof=1)
+    u, s, vt = np.linalg.svd(z, full_matrices=False)
+    scores = u * s
+    eig = s**2 / (x.shape[0] - 1)
+    return scores, vt.T, eig, eig / eig.sum()
+
+
+def _training_t2_limit(n: int, a: int, confidence: float) -> float:
+    # Tracy, Young & Mason (1992), J. Quality Technology 24(2) 88-95: for training samples
+    # T2 ~ ((n-1)^2 / n) Beta(A/2, (n-A-1)/2); quantile from scipy.
+    return (n - 1) ** 2 / n * stats.beta.ppf(confidence, a / 2, (n - a - 1) / 2)
+
+
+def _traces(fig, name_prefix):
+    return [t for t in fig.data if t.name and str(t.name).startswith(name_prefix)]
+
+
+def test_okabe_ito_palette_is_the_published_one():
+    assert list(F.OKABE_ITO) == OKABE_ITO_PUBLISHED
+
+
+def test_groups_get_okabe_ito_colours_in_order_and_missing_is_grey():
+    colours = F.group_colours(["a", "b", "c", "(missing)"])
+    assert [colours["a"], colours["b"], colours["c"]] == OKABE_ITO_PUBLISHED[:3]
+    assert colours["(missing)"] not in OKABE_ITO_PUBLISHED
+
+
+def test_score_plot_axis_titles_carry_percent_explained():
+    scores, _, eig, ratio = _iris_pca()
+    fig = F.score_figure(scores, ratio, x=0, y=2)
+    assert fig.layout.xaxis.title.text == f"PC1 ({100 * ratio[0]:.1f}%)"
+    assert fig.layout.yaxis.title.text == f"PC3 ({100 * ratio[2]:.1f}%)"
+    # correlation PCA of iris: first eigenvalue 2.918 of a total of 4, i.e. 73.0% (from memory).
+    assert fig.layout.xaxis.title.text == "PC1 (73.0%)"
+
+
+def test_score_plot_categorical_colour_one_trace_per_group_with_okabe_ito():
+    scores, _, _, ratio = _iris_pca()
+    species = np.array(load_iris().target_names)[load_iris().target]
+    fig = F.score_figure(scores, ratio, colour_values=species, colour_name="species")
+    groups = [t for t in fig.data if t.name in set(species)]
+    assert [t.name for t in groups] == ["setosa", "versicolor", "virginica"]
+    assert [t.marker.color for t in groups] == OKABE_ITO_PUBLISHED[:3]
+    assert sum(len(t.x) for t in groups) == 150
+    # every point carries its row so clicks map back to the sample
+    rows = np.concatenate([np.asarray(t.customdata) for t in groups])
+    assert sorted(rows.tolist()) == list(range(150))
+    setosa_rows = np.asarray(groups[0].customdata)
+    assert np.all(species[setosa_rows] == "setosa")
+    np.testing.assert_allclose(groups[0].x, scores[setosa_rows, 0])
+
+
+def test_score_plot_numeric_colour_uses_a_continuous_scale_with_colour_bar():
+    scores, _, _, ratio = _iris_pca()
+    petal = load_iris().data[:, 2]
+    fig = F.score_figure(scores, ratio, colour_values=petal.astype(str), colour_name="petal length")
+    main = fig.data[0]
+    assert main.marker.showscale is True
+    assert main.marker.colorbar.title.text == "petal length"
+    np.testing.assert_allclose(main.marker.color, petal)
+
+
+def test_few_distinct_numbers_are_coloured_as_groups():
+    # common practice: a batch code 1..3 is a grouping, not a measurement
+    assert not F.is_numeric_column([1, 2, 3, 1, 2, 3] * 5)
+    assert F.is_numeric_column(np.linspace(0, 1, 30))
+    assert not F.is_numeric_column(["a", "b"] * 10)
+
+
+def test_symbols_follow_a_second_column_and_get_legend_entries():
+    scores, _, _, ratio = _iris_pca()
+    site = np.where(np.arange(150) % 2 == 0, "north", "south")
+    fig = F.score_figure(scores, ratio, symbol_values=site, symbol_name="site")
+    main = fig.data[0]
+    expected = np.where(site == "north", F.SYMBOLS[0], F.SYMBOLS[1])
+    assert list(main.marker.symbol) == expected.tolist()
+    assert [t.name for t in _traces(fig, "site: ")] == ["site: north", "site: south"]
+
+
+def test_labels_switch_text_mode():
+    scores, _, _, ratio = _iris_pca()
+    ids = [f"S{i}" for i in range(150)]
+    assert F.score_figure(scores, ratio, sample_ids=ids, labels=True).data[0].mode == "markers+text"
+    assert F.score_figure(scores, ratio, sample_ids=ids, labels=False).data[0].mode == "markers"
+
+
+@pytest.mark.parametrize("confidence", [0.95, 0.99])
+def test_t2_ellipse_radius_from_the_beta_quantile(confidence):
+    scores, _, eig, ratio = _iris_pca()
+    n = scores.shape[0]
+    limit = _training_t2_limit(n, 2, confidence)  # Tracy, Young & Mason 1992
+    fig = F.score_figure(scores, ratio, eigenvalues=eig, t2_limits={confidence: limit})
+    (ellipse,) = _traces(fig, "T² ")
+    assert ellipse.name == f"T² {100 * confidence:g}% limit"
+    ex, ey = np.asarray(ellipse.x), np.asarray(ellipse.y)
+    # semi-axis along component a = sqrt(limit * lambda_a)
+    assert ex.max() == pytest.approx(np.sqrt(limit * eig[0]), rel=1e-9)
+    assert ey.max() == pytest.approx(np.sqrt(limit * eig[1]), rel=1e-3)
+    # every point on the curve has T2 (on these two components) equal to the limit
+    np.testing.assert_allclose(ex**2 / eig[0] + ey**2 / eig[1], limit, rtol=1e-9)
+
+
+def test_ellipse_covers_about_the_stated_share_of_model_samples():
+    # Tracy, Young & Mason 1992: about 5% of in-control training samples beyond the 95% limit.
+    rng = np.random.default_rng(7)
+    n = 4000
+    scores = rng.normal(size=(n, 2)) * [3.0, 1.5]
+    scores -= scores.mean(0)
+    eig = scores.var(0, ddof=1)
+    limit = _training_t2_limit(n, 2, 0.95)
+    ax, ay = F.ellipse_semi_axes(limit, eig[0], eig[1])
+    outside = (scores[:, 0] / ax) ** 2 + (scores[:, 1] / ay) ** 2 > 1
+    assert 0.04 < outside.mean() < 0.06
+
+
+def test_scattergl_above_threshold_and_svg_below():
+    rng = np.random.default_rng(1)
+    small = F.score_figure(rng.normal(size=(F.WEBGL_THRESHOLD, 2)), [0.6, 0.4])
+    large = F.score_figure(rng.normal(size=(F.WEBGL_THRESHOLD + 1, 2)), [0.6, 0.4])
+    assert isinstance(small.data[0], go.Scatter)
+    assert isinstance(large.data[0], go.Scattergl)
+    assert isinstance(F.t2_spe_figure(rng.chisquare(2, 3000), rng.chisquare(2, 3000), {0.95: 6.0}, {0.95: 6.0}).data[0],
+                      go.Scattergl)
+
+
+def test_point_coordinates_are_sent_as_binary_arrays():
+    # Plotly.py serialises numpy arrays as base64 typed arrays ("bdata"), plotly.js >= 2.28 reads them.
+    rng = np.random.default_rng(2)
+    fig = F.score_figure(rng.normal(size=(5000, 3)), [0.5, 0.3, 0.2])
+    trace = json.loads(fig.to_json())["data"][0]
+    assert set(trace["x"]) == {"dtype", "bdata"}
+    assert set(trace["customdata"]) == {"dtype", "bdata"}
+
+
+def test_user_text_is_escaped_for_plotly_labels():
+    scores = np.array([[1.0, 0.0], [-1.0, 0.0], [0.0, 1.0]])
+    fig = F.score_figure(scores, [0.5, 0.5], sample_ids=["<b>x</b>", "a&b", "ok"],
+                         colour_values=["<img src=x>", "g", "g"], colour_name="<i>c</i>")
+    texts = [s for t in fig.data if t.text is not None for s in t.text]
+    assert "&lt;b&gt;x&lt;/b&gt;" in texts and "a&amp;b" in texts
+    assert "&lt;img src=x&gt;" in [t.name for t in fig.data]
+    assert fig.layout.legend.title.text == "&lt;i&gt;c&lt;/i&gt;"
+
+
+def test_variance_figure_marks_cv_curve_and_recommendation():
+    _, _, eig, ratio = _iris_pca()
+    cv = np.array([0.6, 0.8, 0.85, 0.86])
+    fig = F.variance_figure(ratio, cv_cumulative=cv, recommended=2)
+    names = [t.name for t in fig.data]
+    assert names == ["Per component", "Cumulative", "Cumulative, cross-validated"]
+    np.testing.assert_allclose(fig.data[1].y, 100 * np.cumsum(ratio))
+    np.testing.assert_allclose(fig.data[2].y, 100 * cv)
+    marks = [s for s in fig.layout.shapes if s.type == "line"]
+    assert [s.x0 for s in marks] == [2]
+    assert any("recommended: 2" in a.text for a in fig.layout.annotations)
+
+
+def test_variable_explained_sorted_in_percent():
+    fig = F.variable_explained_figure(["a", "b", "c"], [0.5, 0.1, 0.9])
+    assert list(fig.data[0].y) == ["b", "a", "c"]
+    np.testing.assert_allclose(fig.data[0].x, [10, 50, 90])
+
+
+def test_loading_plot_and_bars():
+    _, loadings, _, ratio = _iris_pca()
+    names = load_iris().feature_names
+    fig = F.loading_figure(loadings, names, ratio, x=0, y=1)
+    np.testing.assert_allclose(fig.data[0].x, loadings[:, 0])
+    assert fig.layout.xaxis.title.text.startswith("Loading on PC1 (")
+    bars = F.loading_bars_figure(loadings, names, 1, ratio)
+    np.testing.assert_allclose(bars.data[0].y, loadings[:, 1])
+    assert list(bars.data[0].x) == names
+
+
+def test_biplot_scaling_reproduces_the_rank_two_approximation():
+    # Gabriel (1971), Biometrika 58: G H' equals the rank-2 approximation when G = T / sqrt(lambda)
+    # (times sqrt(n-1)) and H = P sqrt(lambda) (divided by sqrt(n-1)).
+    x = load_iris().data
+    z = (x - x.mean(0)) / x.std(0, ddof=1)
+    scores, loadings, eig, ratio = _iris_pca()
+    points, arrows, k = F.biplot_scaling(scores, loadings, eig)
+    approx = points @ (arrows / k).T
+    u, s, vt = np.linalg.svd(z, full_matrices=False)
+    np.testing.assert_allclose(approx, (u[:, :2] * s[:2]) @ vt[:2], atol=1e-10)
+    np.testing.assert_allclose(points.std(0, ddof=1), [1.0, 1.0])
+    # for autoscaled data the unscaled arrows are correlations of variables with the scores
+    corr = [np.corrcoef(z[:, j], scores[:, 0])[0, 1] for j in range(4)]
+    np.testing.assert_allclose((arrows / k)[:, 0], corr, atol=1e-10)
+    fig = F.biplot_figure(scores, loadings, eig, ratio, load_iris().feature_names)
+    assert f"× {k:g}" in fig.layout.title.text
+
+
+def test_t2_spe_regions_and_both_limits():
+    t2 = np.array([1.0, 9.0, 1.0, 9.0])
+    spe = np.array([1.0, 1.0, 9.0, 9.0])
+    assert F.classify_regions(t2, spe, 5.0, 5.0).tolist() == ["inside", "t2", "spe", "both"]
+    fig = F.t2_spe_figure(t2, spe, {0.95: 5.0, 0.99: 7.0}, {0.95: 5.0, 0.99: 8.0}, sample_ids=list("abcd"))
+    assert [t.name for t in fig.data] == ["within limits (1)", "high T² only (1)", "high SPE only (1)",
+                                          "high T² and SPE (1)"]
+    vlines = sorted(s.x0 for s in fig.layout.shapes if s.x0 == s.x1 and s.xref == "x")
+    hlines = sorted(s.y0 for s in fig.layout.shapes if s.y0 == s.y1 and s.yref == "y")
+    assert vlines == [5.0, 7.0] and hlines == [5.0, 8.0]
+    assert set(F.REGION_TEXT) == {"inside", "t2", "spe", "both"}
+
+
+def test_control_chart_against_dates_flags_points_beyond_limit():
+    values = np.array([1.0, 12.0, 2.0, 3.0])
+    dates = ["2024-03-04", "2024-01-02", "2024-02-01", "2024-05-06"]
+    fig = F.control_chart_figure(values, {0.95: 6.0, 0.99: 10.0}, name="T²", order=dates, order_name="run date",
+                                 sample_ids=list("abcd"))
+    beyond = _traces(fig, "beyond limit")[0]
+    assert list(beyond.text) == ["b"] and list(beyond.customdata) == [1]
+    within = _traces(fig, "within")[0]
+    assert list(within.text) == ["c", "a", "d"]  # sorted by date
+    assert fig.layout.xaxis.title.text == "run date"
+    assert sorted(s.y0 for s in fig.layout.shapes) == [6.0, 10.0]
+
+
+def test_control_chart_default_order_is_sample_order():
+    fig = F.control_chart_figure([3.0, 1.0, 2.0], {0.95: 2.5}, name="SPE")
+    assert fig.layout.xaxis.title.text == "Sample order"
+    np.testing.assert_allclose(fig.data[0].x, [1, 2, 3])
+
+
+def test_contribution_bars_signed_and_ranked():
+    fig = F.contribution_figure(["a", "b", "c", "d"], [0.5, -3.0, 2.0, 0.1], title="SPE", top=3)
+    bar = fig.data[0]
+    assert list(bar.y) == ["a", "c", "b"]  # largest |value| at the top (last drawn)
+    np.testing.assert_allclose(bar.x, [0.5, 2.0, -3.0])
+    assert list(bar.marker.color) == [F.POSITIVE_COLOUR, F.POSITIVE_COLOUR, F.NEGATIVE_COLOUR]
+
+
+def test_hover_metadata_shown_for_moderate_sizes():
+    scores = np.zeros((3, 2))
+    meta = pd.DataFrame({"site": ["n", "s", None]})
+    fig = F.score_figure(scores, [0.5, 0.5], metadata=meta)
+    assert list(fig.data[0].hovertext) == ["site: n", "site: s", "site: "]

@@ -1,0 +1,603 @@
+"""Pure Plotly figure builders for the exploration pages.
+
+Every function here takes plain numbers (numpy arrays, lists, dicts, pandas
+objects) and returns a ``plotly.graph_objects.Figure``. Nothing here knows
+about Dash, the store or the cache, so each builder can be tested on data.
+
+Numeric arrays are handed to Plotly as numpy arrays so that Plotly serialises
+them as binary (base64 typed arrays) rather than long JSON number lists.
+Above ``WEBGL_THRESHOLD`` points a scatter is drawn with WebGL (Scattergl).
+
+References
+----------
+Cattell, R.B. (1966) The scree test for the number of factors.
+    Multivariate Behavioral Research 1, 245-276.
+Gabriel, K.R. (1971) The biplot graphic display of matrices with application
+    to principal component analysis. Biometrika 58, 453-467.
+Tracy, N.D., Young, J.C., Mason, R.L. (1992) Multivariate control charts for
+    individual observations. Journal of Quality Technology 24(2), 88-95.
+Westerhuis, J.A., Gurden, S.P., Smilde, A.K. (2000) Generalized contribution
+    plots in multivariate statistical process monitoring. Chemometrics and
+    Intelligent Laboratory Systems 51, 95-114.
+"""
+
+from __future__ import annotations
+
+import html
+from collections.abc import Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+
+# Okabe, M., Ito, K. (2008) Color Universal Design: a colour-blind-safe set of eight.
+OKABE_ITO = (
+    "#E69F00",  # orange
+    "#56B4E9",  # sky blue
+    "#009E73",  # bluish green
+    "#F0E442",  # yellow
+    "#0072B2",  # blue
+    "#D55E00",  # vermillion
+    "#CC79A7",  # reddish purple
+    "#000000",  # black
+)
+MISSING_COLOUR = "#9a9a9a"
+POINT_COLOUR = "#3b5b7a"  # neutral slate for uncoloured points
+FLAG_COLOUR = "#D55E00"  # vermillion: beyond a limit
+POSITIVE_COLOUR = "#0072B2"
+NEGATIVE_COLOUR = "#E69F00"
+# Cividis stays readable for the common colour-vision deficiencies
+# (Nuñez, Anderton & Renslow 2018, PLoS ONE 13(7) e0199239).
+CONTINUOUS_SCALE = "Cividis"
+# Symbols that both SVG and WebGL scatters draw.
+SYMBOLS = ("circle", "square", "diamond", "cross", "x", "triangle-up", "triangle-down", "star")
+WEBGL_THRESHOLD = 2000
+# A metadata column with at most this many distinct numeric values is coloured as groups.
+MAX_NUMERIC_GROUPS = 8
+# Above this many points, hover shows the sample id only (keeps the payload small).
+HOVER_METADATA_LIMIT = 20000
+
+_FONT = "system-ui, -apple-system, 'Segoe UI', Roboto, 'Helvetica Neue', Arial, sans-serif"
+_GRID = "#e6e8eb"
+_AXIS = "#5b6570"
+_LIMIT_STYLES = {0.95: "dash", 0.99: "solid"}
+
+TEMPLATE = go.layout.Template(
+    layout=go.Layout(
+        font=dict(family=_FONT, size=13, color="#24303b"),
+        paper_bgcolor="#ffffff",
+        plot_bgcolor="#ffffff",
+        colorway=list(OKABE_ITO),
+        margin=dict(l=64, r=24, t=48, b=56),
+        hoverlabel=dict(font=dict(family=_FONT, size=12)),
+        legend=dict(bgcolor="rgba(255,255,255,0.85)", borderwidth=0, font=dict(size=12)),
+        xaxis=dict(gridcolor=_GRID, zerolinecolor="#c9cdd2", linecolor=_AXIS, ticks="outside",
+                   tickcolor=_AXIS, automargin=True, title=dict(standoff=8)),
+        yaxis=dict(gridcolor=_GRID, zerolinecolor="#c9cdd2", linecolor=_AXIS, ticks="outside",
+                   tickcolor=_AXIS, automargin=True, title=dict(standoff=8)),
+        title=dict(font=dict(size=15), x=0.0, xanchor="left", xref="paper"),
+    )
+)
+
+
+# ----------------------------------------------------------------- helpers
+def scatter_class(n_points: int):
+    """``go.Scattergl`` above WEBGL_THRESHOLD points, ``go.Scatter`` otherwise."""
+    return go.Scattergl if n_points > WEBGL_THRESHOLD else go.Scatter
+
+
+def component_label(index: int, explained_ratio: Sequence[float] | None = None) -> str:
+    """Axis title for component ``index`` (0-based): 'PC1 (41.2%)'."""
+    name = f"PC{index + 1}"
+    if explained_ratio is not None and index < len(explained_ratio):
+        return f"{name} ({100.0 * float(explained_ratio[index]):.1f}%)"
+    return name
+
+
+def _base_figure(title: str | None = None, height: int | None = None) -> go.Figure:
+    fig = go.Figure()
+    fig.update_layout(template=TEMPLATE, title_text=title, height=height, uirevision="keep")
+    return fig
+
+
+def _as_float(values) -> np.ndarray:
+    return np.asarray(values, dtype=np.float64)
+
+
+def _as_text(values, n: int) -> np.ndarray:
+    if values is None:
+        return np.array([str(i + 1) for i in range(n)], dtype=object)
+    return np.array([plain(v) for v in values], dtype=object)
+
+
+def is_numeric_column(values) -> bool:
+    """True when every non-missing value is a number and there are more than
+    MAX_NUMERIC_GROUPS distinct values (few distinct codes read better as groups).
+    Common practice."""
+    series = pd.Series(values, dtype=object)
+    present = series[series.notna() & (series.astype(str).str.strip() != "")]
+    if present.empty:
+        return False
+    numbers = pd.to_numeric(present, errors="coerce")
+    if numbers.isna().any():
+        return False
+    return int(numbers.nunique()) > MAX_NUMERIC_GROUPS
+
+
+def _group_labels(values) -> tuple[np.ndarray, list[str]]:
+    """Text label per point ('(missing)' for empty) and the group order."""
+    labels = []
+    for v in values:
+        if v is None or (isinstance(v, float) and np.isnan(v)) or str(v).strip() == "":
+            labels.append("(missing)")
+        else:
+            labels.append(str(v))
+    arr = np.array(labels, dtype=object)
+    present = [g for g in pd.unique(arr) if g != "(missing)"]
+    try:
+        order = sorted(present, key=lambda g: float(g))
+    except ValueError:
+        order = sorted(present, key=str.casefold)
+    if (arr == "(missing)").any():
+        order.append("(missing)")
+    return arr, order
+
+
+def group_colours(groups: Sequence[str]) -> dict[str, str]:
+    """Okabe-Ito colour per group in order (cycled after eight); grey for '(missing)'."""
+    colours = {}
+    i = 0
+    for g in groups:
+        if g == "(missing)":
+            colours[g] = MISSING_COLOUR
+        else:
+            colours[g] = OKABE_ITO[i % len(OKABE_ITO)]
+            i += 1
+    return colours
+
+
+def ellipse_semi_axes(t2_limit: float, eigenvalue_x: float, eigenvalue_y: float) -> tuple[float, float]:
+    """Semi-axes of the Hotelling T2 ellipse in a score plot.
+
+    The ellipse is the set of scores with t_x^2/lambda_x + t_y^2/lambda_y = limit,
+    so its semi-axis along component a is sqrt(limit * lambda_a)
+    (Tracy, Young & Mason 1992 give the limit for training samples).
+    """
+    return float(np.sqrt(t2_limit * eigenvalue_x)), float(np.sqrt(t2_limit * eigenvalue_y))
+
+
+def ellipse_points(t2_limit: float, eigenvalue_x: float, eigenvalue_y: float, n: int = 181):
+    """x, y arrays tracing the T2 ellipse centred on the origin (scores are centred)."""
+    ax, ay = ellipse_semi_axes(t2_limit, eigenvalue_x, eigenvalue_y)
+    theta = np.linspace(0.0, 2.0 * np.pi, n)
+    return ax * np.cos(theta), ay * np.sin(theta)
+
+
+def _confidence_text(confidence: float) -> str:
+    return f"{100.0 * confidence:g}%"
+
+
+def plain(text) -> str:
+    """User text made safe for Plotly labels: Plotly reads a small HTML subset in
+    labels, so '<', '>' and '&' are written as entities and show as typed."""
+    return html.escape(str(text), quote=False)
+
+
+def _hover_metadata(metadata: pd.DataFrame | None, n: int, max_columns: int = 4) -> np.ndarray | None:
+    """Per-point 'column: value' lines for hover (None when too many points)."""
+    if metadata is None or metadata.shape[1] == 0 or n > HOVER_METADATA_LIMIT:
+        return None
+    lines = []
+    for col in list(metadata.columns[:max_columns]):
+        vals = metadata[col].astype(object).where(metadata[col].notna(), "")
+        lines.append([f"{plain(col)}: {plain(v)}" for v in vals])
+    return np.array(["<br>".join(parts) for parts in zip(*lines)], dtype=object)
+
+
+# ------------------------------------------------------------- variance
+def variance_figure(
+    explained_ratio: Sequence[float],
+    cv_cumulative: Sequence[float] | None = None,
+    recommended: int | None = None,
+    chosen: int | None = None,
+) -> go.Figure:
+    """Scree figure (Cattell 1966): explained variance per component as bars,
+    the cumulative share as a line, the cross-validated cumulative share
+    (Wold 1978) as a second line and the recommended component count marked.
+
+    ``explained_ratio`` and ``cv_cumulative`` are fractions (0..1) per component.
+    """
+    ratio = _as_float(explained_ratio)
+    k = np.arange(1, ratio.size + 1)
+    fig = _base_figure("Variance explained", height=380)
+    fig.add_trace(go.Bar(x=k, y=100.0 * ratio, name="Per component", marker_color="#56B4E9",
+                         hovertemplate="PC%{x}: %{y:.1f}%<extra></extra>"))
+    fig.add_trace(go.Scatter(x=k, y=100.0 * np.cumsum(ratio), name="Cumulative", mode="lines+markers",
+                             line=dict(color="#0072B2", width=2),
+                             hovertemplate="%{x} components: %{y:.1f}%<extra>cumulative</extra>"))
+    if cv_cumulative is not None:
+        cv = _as_float(cv_cumulative)
+        fig.add_trace(go.Scatter(x=np.arange(1, cv.size + 1), y=100.0 * cv, name="Cumulative, cross-validated",
+                                 mode="lines+markers", line=dict(color="#D55E00", width=2, dash="dash"),
+                                 marker=dict(symbol="diamond"),
+                                 hovertemplate="%{x} components: %{y:.1f}% predicted<extra>cross-validated</extra>"))
+    if recommended is not None:
+        fig.add_vline(x=recommended, line=dict(color="#009E73", width=2, dash="dot"),
+                      annotation_text=f"recommended: {recommended}", annotation_position="top",
+                      annotation_font_color="#00664a")
+    if chosen is not None and chosen != recommended:
+        fig.add_vline(x=chosen, line=dict(color="#5b6570", width=1), annotation_text=f"in use: {chosen}",
+                      annotation_position="bottom right")
+    fig.update_xaxes(title_text="Number of components", tickmode="array", tickvals=k, range=[0.4, ratio.size + 0.6])
+    fig.update_yaxes(title_text="Variance explained (%)", rangemode="tozero")
+    fig.update_layout(legend=dict(orientation="h", y=-0.22, x=0), bargap=0.35)
+    return fig
+
+
+def variable_explained_figure(variables: Sequence[str], fraction: Sequence[float]) -> go.Figure:
+    """Share of each variable's variance explained by the model (horizontal bars, lowest first)."""
+    frac = _as_float(fraction)
+    names = np.array([plain(v) for v in variables], dtype=object)
+    order = np.argsort(frac, kind="stable")
+    fig = _base_figure("Variance explained per variable", height=max(300, 22 * frac.size + 110))
+    fig.add_trace(go.Bar(x=100.0 * frac[order], y=names[order], orientation="h", marker_color="#0072B2",
+                         hovertemplate="%{y}: %{x:.1f}%<extra></extra>", name="explained"))
+    fig.update_xaxes(title_text="Explained by the model (%)", range=[0, 100])
+    fig.update_yaxes(title_text=None, type="category")
+    return fig
+
+
+# ---------------------------------------------------------------- scores
+def score_figure(
+    scores,
+    explained_ratio: Sequence[float],
+    *,
+    x: int = 0,
+    y: int = 1,
+    sample_ids: Sequence[str] | None = None,
+    colour_values=None,
+    colour_name: str | None = None,
+    symbol_values=None,
+    symbol_name: str | None = None,
+    labels: bool = False,
+    eigenvalues: Sequence[float] | None = None,
+    t2_limits: Mapping[float, float] | None = None,
+    metadata: pd.DataFrame | None = None,
+    highlight: Sequence[int] = (),
+) -> go.Figure:
+    """Score plot of component ``x`` against component ``y`` (0-based).
+
+    Colour by a metadata column (groups: Okabe-Ito palette; numbers: a continuous
+    scale with a colour bar), marker symbol by a second column, labels optional,
+    and Hotelling T2 ellipses for each ``t2_limits`` entry {confidence: limit}
+    (semi-axes from ``ellipse_semi_axes``). Every point carries its row index in
+    ``customdata`` so a click or selection maps back to the sample.
+    ``highlight`` rows are ringed (e.g. rows picked in the outlier table).
+    """
+    t = np.asarray(scores, dtype=np.float64)
+    n = t.shape[0]
+    tx, ty = np.ascontiguousarray(t[:, x]), np.ascontiguousarray(t[:, y])
+    ids = _as_text(sample_ids, n)
+    rows = np.arange(n, dtype=np.int32)
+    meta_text = _hover_metadata(metadata, n)
+    Scatter = scatter_class(n)
+    mode = "markers+text" if labels else "markers"
+    size = 7 if n <= WEBGL_THRESHOLD else 4
+
+    symbols = None
+    symbol_groups: list[str] = []
+    if symbol_values is not None:
+        sym_labels, symbol_groups = _group_labels(symbol_values)
+        sym_map = {g: SYMBOLS[i % len(SYMBOLS)] for i, g in enumerate(symbol_groups)}
+        symbols = np.array([sym_map[s] for s in sym_labels], dtype=object)
+
+    def add(mask, name, marker, legend=True):
+        hover = "<b>%{text}</b><br>" + f"{component_label(x)}: " + "%{x:.3g}<br>" + f"{component_label(y)}: " + "%{y:.3g}"
+        extra = {}
+        if meta_text is not None:
+            hover += "<br>%{hovertext}"
+            extra["hovertext"] = meta_text[mask]
+        if symbols is not None:
+            marker = dict(marker, symbol=symbols[mask])
+        fig.add_trace(Scatter(
+            x=tx[mask], y=ty[mask], mode=mode, name=name, text=ids[mask], customdata=rows[mask],
+            marker=marker, textposition="top center", textfont=dict(size=10, color="#3d4852"),
+            hovertemplate=hover + "<extra>" + ("%{fullData.name}" if legend else "") + "</extra>",
+            showlegend=legend, **extra,
+        ))
+
+    fig = _base_figure(None, height=520)
+    if colour_values is None:
+        add(np.ones(n, dtype=bool), "samples", dict(color=POINT_COLOUR, size=size, opacity=0.85), legend=False)
+    elif is_numeric_column(colour_values):
+        numbers = pd.to_numeric(pd.Series(colour_values, dtype=object), errors="coerce").to_numpy(dtype=np.float64)
+        present = ~np.isnan(numbers)
+        add(present, colour_name or "value", dict(
+            color=numbers[present], colorscale=CONTINUOUS_SCALE, size=size, opacity=0.9, showscale=True,
+            colorbar=dict(title=dict(text=plain(colour_name or ""), side="right"), thickness=14, len=0.8),
+        ), legend=False)
+        if (~present).any():
+            add(~present, "(missing)", dict(color=MISSING_COLOUR, size=size, opacity=0.8))
+    else:
+        col_labels, groups = _group_labels(colour_values)
+        colours = group_colours(groups)
+        for g in groups:
+            add(col_labels == g, plain(g), dict(color=colours[g], size=size, opacity=0.85))
+        fig.update_layout(legend_title_text=plain(colour_name or ""))
+
+    if symbols is not None and len(symbol_groups) > 1:
+        for i, g in enumerate(symbol_groups):
+            fig.add_trace(go.Scatter(
+                x=[None], y=[None], mode="markers", name=f"{plain(symbol_name or 'shape')}: {plain(g)}",
+                marker=dict(symbol=SYMBOLS[i % len(SYMBOLS)], color="#5b6570", size=8),
+                legendgroup="symbols", showlegend=True, hoverinfo="skip",
+            ))
+
+    if highlight:
+        h = np.asarray(list(highlight), dtype=np.int64)
+        h = h[(h >= 0) & (h < n)]
+        fig.add_trace(go.Scatter(
+            x=tx[h], y=ty[h], mode="markers", name="picked", customdata=rows[h], text=ids[h],
+            marker=dict(size=15, color="rgba(0,0,0,0)", line=dict(color="#000000", width=2)),
+            hovertemplate="<b>%{text}</b><extra>picked</extra>", showlegend=False,
+        ))
+
+    if t2_limits and eigenvalues is not None:
+        ev = _as_float(eigenvalues)
+        for conf in sorted(t2_limits):
+            ex, ey = ellipse_points(t2_limits[conf], ev[x], ev[y])
+            fig.add_trace(go.Scatter(
+                x=ex, y=ey, mode="lines", name=f"T² {_confidence_text(conf)} limit",
+                line=dict(color="#5b6570", width=1.3, dash=_LIMIT_STYLES.get(conf, "dot")),
+                hoverinfo="skip", showlegend=True,
+            ))
+
+    fig.update_xaxes(title_text=component_label(x, explained_ratio), zeroline=True)
+    fig.update_yaxes(title_text=component_label(y, explained_ratio), zeroline=True)
+    fig.update_layout(dragmode="select", clickmode="event+select", legend=dict(itemsizing="constant"))
+    return fig
+
+
+# --------------------------------------------------------------- loadings
+def loading_figure(loadings, variables: Sequence[str], explained_ratio: Sequence[float], *, x: int = 0,
+                   y: int = 1, labels: bool = True) -> go.Figure:
+    """Loading plot: one point per variable at its loadings on components x and y."""
+    p = np.asarray(loadings, dtype=np.float64)
+    names = np.array([plain(v) for v in variables], dtype=object)
+    fig = _base_figure(None, height=520)
+    fig.add_trace(scatter_class(p.shape[0])(
+        x=np.ascontiguousarray(p[:, x]), y=np.ascontiguousarray(p[:, y]), text=names,
+        mode="markers+text" if labels else "markers", textposition="top center",
+        marker=dict(color="#0072B2", size=8), name="variables", showlegend=False,
+        textfont=dict(size=11, color="#24303b"),
+        hovertemplate="<b>%{text}</b><br>loading x: %{x:.3f}<br>loading y: %{y:.3f}<extra></extra>",
+    ))
+    fig.update_xaxes(title_text=f"Loading on {component_label(x, explained_ratio)}", zeroline=True)
+    fig.update_yaxes(title_text=f"Loading on {component_label(y, explained_ratio)}", zeroline=True)
+    return fig
+
+
+def loading_bars_figure(loadings, variables: Sequence[str], component: int,
+                        explained_ratio: Sequence[float] | None = None) -> go.Figure:
+    """Loadings of one component (0-based) as signed bars, in variable order."""
+    p = np.asarray(loadings, dtype=np.float64)[:, component]
+    names = np.array([plain(v) for v in variables], dtype=object)
+    colours = np.where(p >= 0, POSITIVE_COLOUR, NEGATIVE_COLOUR)
+    fig = _base_figure(f"Loadings of {component_label(component, explained_ratio)}", height=380)
+    fig.add_trace(go.Bar(x=names, y=p, marker_color=colours, name="loading", showlegend=False,
+                         hovertemplate="%{x}: %{y:.3f}<extra></extra>"))
+    fig.update_xaxes(type="category", tickangle=-45 if names.size > 8 else 0)
+    fig.update_yaxes(title_text="Loading", zeroline=True)
+    return fig
+
+
+def biplot_scaling(scores, loadings, eigenvalues, x: int = 0, y: int = 1):
+    """Gabriel (1971) biplot coordinates for components x and y.
+
+    Scores are divided by sqrt(lambda_a) (unit variance per component) and the
+    loadings multiplied by sqrt(lambda_a); the product of the two reproduces the
+    rank-2 approximation of the preprocessed data, and for autoscaled data the
+    arrows are the correlations of the variables with the components. The arrows
+    are then stretched by one stated factor ``k`` (a round number chosen so the
+    longest arrow reaches about 80% of the farthest point) so both share one picture.
+
+    Returns (points (n, 2), arrows (p, 2) already multiplied by k, k).
+    """
+    t = np.asarray(scores, dtype=np.float64)[:, [x, y]]
+    p = np.asarray(loadings, dtype=np.float64)[:, [x, y]]
+    root = np.sqrt(_as_float(eigenvalues)[[x, y]])
+    points = t / root
+    arrows = p * root
+    reach = float(np.max(np.abs(points))) if points.size else 1.0
+    longest = float(np.max(np.hypot(arrows[:, 0], arrows[:, 1]))) if arrows.size else 1.0
+    k = _nice_number(0.8 * reach / longest) if longest > 0 and reach > 0 else 1.0
+    return points, arrows * k, k
+
+
+def _nice_number(value: float) -> float:
+    """Round down to 1, 2 or 5 times a power of ten (so the stated factor reads easily)."""
+    exponent = np.floor(np.log10(value))
+    base = value / 10.0**exponent
+    step = 5.0 if base >= 5 else 2.0 if base >= 2 else 1.0
+    return float(step * 10.0**exponent)
+
+
+def biplot_figure(scores, loadings, eigenvalues, explained_ratio, variables: Sequence[str], *, x: int = 0,
+                  y: int = 1, sample_ids: Sequence[str] | None = None, colour_values=None,
+                  colour_name: str | None = None) -> go.Figure:
+    """Biplot: scores as points and variables as arrows (scaling: ``biplot_scaling``)."""
+    points, arrows, k = biplot_scaling(scores, loadings, eigenvalues, x, y)
+    scaled = np.zeros((points.shape[0], max(x, y) + 1))
+    scaled[:, x], scaled[:, y] = points[:, 0], points[:, 1]
+    fig = score_figure(scaled, explained_ratio, x=x, y=y, sample_ids=sample_ids, colour_values=colour_values,
+                       colour_name=colour_name)
+    for trace in fig.data:
+        if trace.marker is not None:
+            trace.marker.opacity = 0.55
+    names = [plain(v) for v in variables]
+    xs = np.column_stack([np.zeros(len(names)), arrows[:, 0], np.full(len(names), np.nan)]).ravel()
+    ys = np.column_stack([np.zeros(len(names)), arrows[:, 1], np.full(len(names), np.nan)]).ravel()
+    fig.add_trace(go.Scatter(x=xs, y=ys, mode="lines", line=dict(color="#b23a00", width=1.5),
+                             name=f"variables (arrows × {k:g})", hoverinfo="skip"))
+    fig.add_trace(go.Scatter(x=arrows[:, 0], y=arrows[:, 1], mode="markers+text", text=names,
+                             textposition="top center", textfont=dict(size=11, color="#8a2d00"),
+                             marker=dict(color="#b23a00", size=5), showlegend=False,
+                             hovertemplate="<b>%{text}</b><extra>variable</extra>"))
+    fig.update_xaxes(title_text=f"{component_label(x, explained_ratio)}, unit-variance scores")
+    fig.update_yaxes(title_text=f"{component_label(y, explained_ratio)}, unit-variance scores")
+    fig.update_layout(title_text=f"Biplot: scores / sqrt(λ), loadings × sqrt(λ) × {k:g}")
+    return fig
+
+
+# ------------------------------------------------------------ diagnostics
+REGION_TEXT = {
+    "inside": "Within both limits: fits the model and is typical",
+    "t2": "Beyond the T² limit only: an extreme case of the usual pattern",
+    "spe": "Beyond the SPE limit only: breaks the correlation pattern of the model",
+    "both": "Beyond both limits: extreme and breaks the pattern",
+}
+
+
+def classify_regions(t2, spe, t2_limit: float, spe_limit: float) -> np.ndarray:
+    """Region name per sample: 'inside', 't2', 'spe' or 'both' (keys of REGION_TEXT)."""
+    high_t2 = _as_float(t2) > t2_limit
+    high_spe = _as_float(spe) > spe_limit
+    out = np.full(high_t2.shape, "inside", dtype=object)
+    out[high_t2 & ~high_spe] = "t2"
+    out[~high_t2 & high_spe] = "spe"
+    out[high_t2 & high_spe] = "both"
+    return out
+
+
+def t2_spe_figure(t2, spe, t2_limits: Mapping[float, float], spe_limits: Mapping[float, float], *,
+                  sample_ids: Sequence[str] | None = None, confidence: float = 0.95,
+                  highlight: Sequence[int] = ()) -> go.Figure:
+    """Hotelling T2 against SPE with both limits drawn at each confidence level and
+    the four regions (split at ``confidence``) named in words."""
+    t2 = _as_float(t2)
+    spe = _as_float(spe)
+    n = t2.size
+    ids = _as_text(sample_ids, n)
+    rows = np.arange(n, dtype=np.int32)
+    regions = classify_regions(t2, spe, t2_limits[confidence], spe_limits[confidence])
+    Scatter = scatter_class(n)
+    fig = _base_figure(None, height=520)
+    region_colours = {"inside": POINT_COLOUR, "t2": "#E69F00", "spe": "#56B4E9", "both": FLAG_COLOUR}
+    short = {"inside": "within limits", "t2": "high T² only", "spe": "high SPE only", "both": "high T² and SPE"}
+    for region in ("inside", "t2", "spe", "both"):
+        mask = regions == region
+        if not mask.any():
+            continue
+        fig.add_trace(Scatter(
+            x=t2[mask], y=spe[mask], mode="markers", name=f"{short[region]} ({int(mask.sum())})",
+            text=ids[mask], customdata=rows[mask],
+            marker=dict(color=region_colours[region], size=7 if n <= WEBGL_THRESHOLD else 4, opacity=0.85),
+            hovertemplate="<b>%{text}</b><br>T²: %{x:.3g}<br>SPE: %{y:.3g}<extra></extra>",
+        ))
+    if highlight:
+        h = np.asarray(list(highlight), dtype=np.int64)
+        h = h[(h >= 0) & (h < n)]
+        fig.add_trace(go.Scatter(x=t2[h], y=spe[h], mode="markers", customdata=rows[h], text=ids[h],
+                                 marker=dict(size=15, color="rgba(0,0,0,0)", line=dict(color="#000", width=2)),
+                                 showlegend=False, hovertemplate="<b>%{text}</b><extra>picked</extra>"))
+    for conf in sorted(t2_limits):
+        style = dict(color="#5b6570", width=1.3, dash=_LIMIT_STYLES.get(conf, "dot"))
+        fig.add_vline(x=t2_limits[conf], line=style, annotation_text=f"T² {_confidence_text(conf)}",
+                      annotation_position="top right", annotation_font_size=11)
+    for conf in sorted(spe_limits):
+        style = dict(color="#5b6570", width=1.3, dash=_LIMIT_STYLES.get(conf, "dot"))
+        fig.add_hline(y=spe_limits[conf], line=style, annotation_text=f"SPE {_confidence_text(conf)}",
+                      annotation_position="top right", annotation_font_size=11)
+    fig.update_xaxes(title_text="Hotelling's T² (distance within the model)", rangemode="tozero")
+    fig.update_yaxes(title_text="SPE (distance from the model)", rangemode="tozero")
+    fig.update_layout(dragmode="select", clickmode="event+select", legend=dict(itemsizing="constant"))
+    return fig
+
+
+def control_chart_figure(values, limits: Mapping[float, float], *, name: str, order=None,
+                         order_name: str | None = None, sample_ids: Sequence[str] | None = None,
+                         highlight: Sequence[int] = ()) -> go.Figure:
+    """A statistic (T2 or SPE) against sample order, or against a date/run column
+    given as ``order``; samples beyond the highest limit are drawn in vermillion."""
+    v = _as_float(values)
+    n = v.size
+    ids = _as_text(sample_ids, n)
+    rows = np.arange(n, dtype=np.int32)
+    if order is None:
+        xs = np.arange(1, n + 1, dtype=np.float64)
+        x_title = "Sample order"
+        sort = np.arange(n)
+    else:
+        parsed = _order_values(order)
+        sort = np.argsort(parsed, kind="stable")
+        xs = parsed[sort]
+        x_title = plain(order_name) if order_name else "Order"
+    v_sorted, ids_sorted, rows_sorted = v[sort], ids[sort], rows[sort]
+    top = max(limits.values()) if limits else np.inf
+    beyond = v_sorted > top
+    Scatter = scatter_class(n)
+    fig = _base_figure(None, height=340)
+    fig.add_trace(Scatter(x=xs, y=v_sorted, mode="lines", line=dict(color="#c3cad1", width=1),
+                          hoverinfo="skip", showlegend=False))
+    for mask, label, colour in ((~beyond, "within", POINT_COLOUR), (beyond, "beyond limit", FLAG_COLOUR)):
+        if mask.any():
+            fig.add_trace(Scatter(
+                x=xs[mask], y=v_sorted[mask], mode="markers", name=f"{label} ({int(mask.sum())})",
+                text=ids_sorted[mask], customdata=rows_sorted[mask],
+                marker=dict(color=colour, size=6 if n <= WEBGL_THRESHOLD else 4),
+                hovertemplate="<b>%{text}</b><br>" + name + ": %{y:.3g}<extra></extra>",
+            ))
+    if highlight:
+        h = np.asarray(list(highlight), dtype=np.int64)
+        pos = np.flatnonzero(np.isin(rows_sorted, h))
+        fig.add_trace(go.Scatter(x=xs[pos], y=v_sorted[pos], mode="markers", customdata=rows_sorted[pos],
+                                 text=ids_sorted[pos], showlegend=False,
+                                 marker=dict(size=14, color="rgba(0,0,0,0)", line=dict(color="#000", width=2)),
+                                 hovertemplate="<b>%{text}</b><extra>picked</extra>"))
+    for conf in sorted(limits):
+        fig.add_hline(y=limits[conf], line=dict(color="#5b6570", width=1.3, dash=_LIMIT_STYLES.get(conf, "dot")),
+                      annotation_text=f"{_confidence_text(conf)} limit", annotation_position="top left",
+                      annotation_font_size=11)
+    fig.update_xaxes(title_text=x_title)
+    fig.update_yaxes(title_text=name, rangemode="tozero")
+    fig.update_layout(dragmode="select", clickmode="event+select",
+                      legend=dict(orientation="h", y=1.02, yanchor="bottom", x=1, xanchor="right"))
+    return fig
+
+
+def _order_values(order) -> np.ndarray:
+    """Numbers stay numbers, parseable dates become datetimes, anything else keeps text order."""
+    series = pd.Series(order, dtype=object)
+    numbers = pd.to_numeric(series, errors="coerce")
+    if numbers.notna().all():
+        return numbers.to_numpy(dtype=np.float64)
+    dates = pd.to_datetime(series, errors="coerce", format="mixed")
+    if dates.notna().all():
+        return dates.to_numpy()
+    return series.astype(str).to_numpy(dtype=object)
+
+
+def contribution_figure(variables: Sequence[str], contributions, *, title: str, top: int = 15,
+                        value_title: str = "Contribution") -> go.Figure:
+    """Signed contribution bars (Westerhuis, Gurden & Smilde 2000), the ``top``
+    variables by absolute size, largest at the top."""
+    c = _as_float(contributions)
+    names = np.array([plain(v) for v in variables], dtype=object)
+    order = np.argsort(-np.abs(c), kind="stable")[:top][::-1]
+    colours = np.where(c[order] >= 0, POSITIVE_COLOUR, NEGATIVE_COLOUR)
+    fig = _base_figure(title, height=max(260, 24 * order.size + 110))
+    fig.add_trace(go.Bar(x=c[order], y=names[order], orientation="h", marker_color=colours, showlegend=False,
+                         hovertemplate="%{y}: %{x:.3g}<extra></extra>"))
+    fig.update_xaxes(title_text=value_title, zeroline=True, zerolinecolor="#5b6570")
+    fig.update_yaxes(type="category")
+    return fig
+
+
+def empty_figure(message: str, height: int = 320) -> go.Figure:
+    """A blank figure carrying a short message (no data yet, nothing selected)."""
+    fig = _base_figure(None, height=height)
+    fig.add_annotation(text=message, showarrow=False, x=0.5, y=0.5, xref="paper", yref="paper",
+                       font=dict(size=14, color="#5b6570"))
+    fig.update_xaxes(visible=False)
+    fig.update_yaxes(visible=False)
+    return fig
