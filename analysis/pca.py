@@ -1,0 +1,458 @@
+"""PCAModel: principal component analysis with published diagnostics.
+
+Solvers (all give the same numbers on complete data; checked against LAPACK SVD):
+
+- ``xtx``: eigendecomposition of the p x p matrix X'X, built in row blocks
+  without a preprocessed copy of the data (tall data, n >= p);
+- ``xxt``: eigendecomposition of the n x n matrix XX' (wide data, n < p);
+  loadings follow as X't normalised;
+- ``svd``: LAPACK SVD of the preprocessed data (the reference);
+- ``auto``: ``xtx`` when n >= p, else ``xxt``.
+
+With missing values (NaN) the model is fitted by iterative PCA imputation
+(Walczak & Massart 2001; Kiers 1997): missing cells start at the column mean,
+the A-component model is fitted, missing cells are replaced by the model's
+estimate, and this repeats until the estimates stop changing. The mean is
+re-estimated in every round. The final fit of the completed data gives every
+eigenvalue the data allow (needed by the SPE limit). Scores of new incomplete
+samples come from projection to the model plane (least squares on the
+observed variables; Nelson, Taylor & MacGregor 1996).
+
+Conventions: eigenvalue lambda_a = t_a't_a / (n-1); the explained variance
+ratio is relative to the total sum of squares of the preprocessed training
+data; in every loading vector the element with the largest absolute value is
+positive.
+
+References
+----------
+Jolliffe, I.T. (2002) Principal Component Analysis, 2nd ed. Springer.
+Walczak, B., Massart, D.L. (2001) Dealing with missing data: Part I.
+    Chemometrics and Intelligent Laboratory Systems 58, 15-27.
+Kiers, H.A.L. (1997) Weighted least squares fitting using ordinary least
+    squares algorithms. Psychometrika 62, 251-266.
+Nelson, P.R.C., Taylor, P.A., MacGregor, J.F. (1996) Missing data methods in
+    PCA and PLS: score calculations with incomplete observations.
+    Chemometrics and Intelligent Laboratory Systems 35, 45-65.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from scipy import linalg
+
+from analysis import diagnostics
+from analysis.errors import InputError
+from analysis.preprocessing import (
+    CHUNK_ROWS,
+    SCALINGS,
+    Preprocessor,
+    as_matrix,
+    check_log10,
+    scale_block,
+)
+
+SOLVERS = ("auto", "xtx", "xxt", "svd")
+IMPUTATION_TOL = 1e-20  # squared change of imputed cells per round, relative to the total sum of squares
+IMPUTATION_MAX_ITER = 5000
+
+
+class PCAModel:
+    """Principal component analysis with T2 / SPE diagnostics.
+
+    Parameters
+    ----------
+    n_components : int
+        Number of components A kept in the model.
+    scaling : {"none", "center", "autoscale", "pareto"}
+    log10 : sequence of str
+        Variables replaced by their base-10 logarithm before scaling.
+    solver : {"auto", "xtx", "xxt", "svd"}
+    confidence : float
+        Default confidence level of the T2 and SPE limits.
+    drop_constant : bool
+        Drop variables that cannot be scaled (with a warning) instead of
+        raising InputError.
+
+    Attributes
+    ----------
+    scores_ : ndarray (n, A)
+    loadings_ : ndarray (p, A)            orthonormal columns
+    eigenvalues_ : ndarray (r,)           every component the data allow, descending
+    explained_variance_ratio_ : ndarray (A,)
+    cumulative_explained_ : ndarray (A,)
+    total_variance_ : float               total sum of squares / (n-1)
+    mean_, scale_, sd_ : ndarray (p,)     centring, divisor, SD (ddof=1) after log10
+    t2_, spe_ : ndarray (n,)              training-sample Hotelling's T2 and SPE
+    variable_explained_ : ndarray (p,)    share of each variable's sum of squares explained
+    sample_ids_, variable_names_, dropped_variables_, feature_names_in_ : list[str]
+    warnings_ : list[str]
+    solver_ : str                         solver used ("imputation+..." with missing values)
+    n_samples_, n_components_, n_missing_, n_iter_ : int
+
+    References
+    ----------
+    See the module docstring and analysis.diagnostics.
+    """
+
+    def __init__(
+        self,
+        n_components: int = 2,
+        scaling: str = "autoscale",
+        log10=(),
+        solver: str = "auto",
+        confidence: float = 0.95,
+        drop_constant: bool = False,
+    ):
+        self.n_components = n_components
+        self.scaling = scaling
+        self.log10 = log10
+        self.solver = solver
+        self.confidence = confidence
+        self.drop_constant = drop_constant
+
+    # ------------------------------------------------------------------ fit
+    def fit(self, X, sample_ids=None, variable_names=None) -> PCAModel:
+        """Fit the model to X (n samples x p variables; ndarray or DataFrame, NaN allowed)."""
+        if self.solver not in SOLVERS:
+            raise InputError(f"solver={self.solver!r} is not one of {', '.join(SOLVERS)}")
+        if self.scaling not in SCALINGS:
+            raise InputError(f"scaling={self.scaling!r} is not one of {', '.join(SCALINGS)}")
+        diagnostics.check_confidence(self.confidence)
+        a = self.n_components
+        if isinstance(a, bool) or not isinstance(a, (int, np.integer)) or a < 1:
+            raise InputError(f"n_components={a!r} must be a whole number of at least 1")
+        a = int(a)
+        values, ids, names = as_matrix(X, sample_ids, variable_names)
+        n = values.shape[0]
+        if n < 2:
+            raise InputError(f"at least 2 samples are needed, got {n}")
+
+        prep = Preprocessor(self.scaling, self.log10, self.drop_constant).fit(values, ids, names)
+        if prep.dropped_variables_:
+            values = values[:, prep.keep_]
+        missing = np.isnan(values)
+        n_missing = int(missing.sum())
+        if n_missing:
+            empty = np.flatnonzero(missing.all(axis=1))
+            if empty.size:
+                raise InputError(f"sample(s) with no values: {', '.join(ids[i] for i in empty[:10])}")
+
+        self.feature_names_in_ = names
+        self.sample_ids_ = ids
+        self.variable_names_ = prep.variable_names_
+        self.dropped_variables_ = prep.dropped_variables_
+        self.warnings_ = list(prep.warnings_)
+        self.mean_, self.scale_, self.sd_ = prep.mean_, prep.scale_, prep.sd_
+        self.n_samples_ = n
+        self.n_missing_ = n_missing
+        self.n_iter_ = 0
+        n, p = values.shape
+        solver = self.solver if self.solver != "auto" else ("xtx" if n >= p else "xxt")
+        limit = min(n - 1, p) if self.scaling != "none" else min(n, p)
+        if a > limit:
+            raise InputError(
+                f"n_components={a} exceeds the {limit} components {n} samples and {p} variables allow"
+            )
+
+        if n_missing:
+            z = self.preprocess(values)
+            z, mask = self._impute(z, missing, a, solver)
+            fit = _decompose_full(z, solver)
+            self.solver_ = f"imputation+{solver}"
+        elif solver == "xtx":
+            fit = _decompose_xtx_blocks(values, self._log_mask(), self.mean_, self.scale_)
+            self.solver_ = solver
+        else:
+            fit = _decompose_full(self.preprocess(values), solver)
+            self.solver_ = solver
+
+        eig = fit.eigenvalues
+        rank = _numerical_rank(eig, n, p, centred=self.scaling != "none")
+        if a > rank:
+            raise InputError(
+                f"n_components={a} exceeds the rank of the preprocessed data ({rank} components allowed)"
+            )
+        loadings = _sign_convention(fit.loadings(a))
+        if n_missing:
+            scores = z @ loadings
+            residual_ss = _residual_ss(z, scores, loadings, mask=mask)
+        else:
+            scores, residual_ss = self._scores_and_spe_blocks(values, loadings)
+        if a == rank:
+            residual_ss[:] = 0.0  # nothing discarded: the training data are reproduced exactly
+        eigenvalues = eig[:rank].copy()
+        eigenvalues[:a] = np.einsum("ia,ia->a", scores, scores) / (n - 1)
+
+        self.n_components_ = a
+        self.loadings_ = loadings
+        self.scores_ = scores
+        self.eigenvalues_ = eigenvalues
+        self.total_variance_ = float(fit.total_ss / (n - 1))
+        self.explained_variance_ratio_ = eigenvalues[:a] / self.total_variance_
+        self.cumulative_explained_ = np.cumsum(self.explained_variance_ratio_)
+        explained_ss = (loadings**2) @ (eigenvalues[:a] * (n - 1))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            share = np.where(fit.column_ss > 0, explained_ss / fit.column_ss, 0.0)
+        self.variable_explained_ = np.clip(share, 0.0, 1.0)
+        self.t2_ = diagnostics.hotelling_t2(scores, eigenvalues)
+        self.spe_ = residual_ss
+        return self
+
+    def _impute(self, z: np.ndarray, missing: np.ndarray, a: int, solver: str):
+        """Iterative PCA imputation (Walczak & Massart 2001); returns completed, centred z."""
+        centred = self.scaling != "none"
+        col_mean = np.nanmean(z, axis=0)
+        z = np.where(missing, col_mean, z)
+        rows, cols = np.nonzero(missing)
+        converged = False
+        for iteration in range(1, IMPUTATION_MAX_ITER + 1):
+            m = z.mean(axis=0) if centred else np.zeros(z.shape[1])
+            zc = z - m
+            fit = _decompose_full(zc, solver)
+            p_a = fit.loadings(a)
+            t = zc @ p_a
+            estimate = m[cols] + np.einsum("ia,ia->i", t[rows], p_a[cols])
+            change = float(np.sum((estimate - z[rows, cols]) ** 2))
+            z[rows, cols] = estimate
+            self.n_iter_ = iteration
+            if change <= IMPUTATION_TOL * max(fit.total_ss, np.finfo(float).tiny):
+                converged = True
+                break
+        if not converged:
+            self.warnings_.append(
+                f"missing-value imputation stopped after {IMPUTATION_MAX_ITER} rounds without converging"
+            )
+        if centred:
+            shift = z.mean(axis=0)
+            z -= shift
+            # Keep transform() consistent: new data are centred on the completed-data mean.
+            self.mean_ = self.mean_ + shift * self.scale_
+        return z, missing
+
+    def _scores_and_spe_blocks(self, values: np.ndarray, loadings: np.ndarray):
+        """Scores and SPE of complete training data, block by block (no full copy)."""
+        n = values.shape[0]
+        scores = np.empty((n, loadings.shape[1]))
+        spe = np.empty(n)
+        log_mask = self._log_mask()
+        for start in range(0, n, CHUNK_ROWS):
+            block = scale_block(values[start : start + CHUNK_ROWS], log_mask, self.mean_, self.scale_)
+            t = block @ loadings
+            scores[start : start + len(block)] = t
+            block -= t @ loadings.T
+            spe[start : start + len(block)] = np.einsum("ij,ij->i", block, block)
+        return scores, spe
+
+    # ------------------------------------------------------------- new data
+    def _log_mask(self) -> np.ndarray:
+        log10 = [self.log10] if isinstance(self.log10, str) else [str(v) for v in self.log10]
+        return np.isin(np.asarray(self.variable_names_, dtype=object), log10)
+
+    def _matrix(self, X) -> tuple[np.ndarray, list[str]]:
+        """Raw values of X in the model's variable order, and sample ids."""
+        if isinstance(X, pd.Series):
+            X = X.to_frame().T
+        if isinstance(X, pd.DataFrame):
+            columns = [str(c) for c in X.columns]
+            absent = [v for v in self.variable_names_ if v not in columns]
+            if absent:
+                raise InputError(f"variable(s) missing from the data: {', '.join(absent[:10])}")
+            frame = X.copy()
+            frame.columns = columns
+            values, ids, _ = as_matrix(frame[self.variable_names_])
+            return values, ids
+        values = np.asarray(X, dtype=np.float64) if not isinstance(X, np.ndarray) else X
+        if values.ndim == 1:
+            values = values[None, :]
+        p_model = len(self.variable_names_)
+        p_input = len(self.feature_names_in_)
+        if values.ndim != 2 or values.shape[1] not in (p_model, p_input):
+            raise InputError(
+                f"data have {values.shape[-1]} columns; the model expects {p_model}"
+                + (f" (or the {p_input} it was fitted on)" if p_input != p_model else "")
+            )
+        names = self.variable_names_ if values.shape[1] == p_model else self.feature_names_in_
+        values, ids, _ = as_matrix(values, variable_names=names)
+        if values.shape[1] != p_model:
+            keep = [names.index(v) for v in self.variable_names_]
+            values = values[:, keep]
+        return values, ids
+
+    def _one_row(self, x) -> np.ndarray:
+        if isinstance(x, pd.DataFrame) and len(x) != 1:
+            raise InputError(f"expected one sample, got {len(x)}")
+        values, _ = self._matrix(x)
+        if values.shape[0] != 1:
+            raise InputError(f"expected one sample, got {values.shape[0]}")
+        return values
+
+    def preprocess(self, X) -> np.ndarray:
+        """log10, centring and scaling learned at fit, applied to X (NaN kept) -> (m, p)."""
+        values, ids = self._matrix(X)
+        log_mask = self._log_mask()
+        check_log10(values, log_mask, ids, self.variable_names_)
+        return scale_block(values, log_mask, self.mean_, self.scale_)
+
+    def _scores_of(self, z: np.ndarray) -> np.ndarray:
+        """Scores of preprocessed rows; incomplete rows by projection to the model plane."""
+        p = self.loadings_
+        missing = np.isnan(z)
+        incomplete = missing.any(axis=1)
+        scores = np.empty((z.shape[0], p.shape[1]))
+        complete = ~incomplete
+        scores[complete] = z[complete] @ p
+        if incomplete.any():
+            patterns, inverse = np.unique(missing[incomplete], axis=0, return_inverse=True)
+            rows = np.flatnonzero(incomplete)
+            for k, pattern in enumerate(patterns):
+                obs = ~pattern
+                if not obs.any():
+                    raise InputError("a sample with no values cannot be scored")
+                members = rows[inverse.ravel() == k]
+                # Nelson, Taylor & MacGregor (1996): t = (P_o'P_o)^+ P_o' z_o.
+                sol, *_ = np.linalg.lstsq(p[obs], z[np.ix_(members, obs)].T, rcond=None)
+                scores[members] = sol.T
+        return scores
+
+    def transform(self, X) -> np.ndarray:
+        """Scores (m, A) of new samples; incomplete rows by projection to the model plane."""
+        return self._scores_of(self.preprocess(X))
+
+    def residuals(self, X) -> np.ndarray:
+        """Residuals z - t P' in preprocessed units (m, p); NaN where the input is missing."""
+        z = self.preprocess(X)
+        return z - self._scores_of(z) @ self.loadings_.T
+
+    def reconstruct(self, X) -> np.ndarray:
+        """Model estimate of X (m, p) in original units (log10 undone)."""
+        zhat = self.transform(X) @ self.loadings_.T
+        out = zhat * self.scale_ + self.mean_
+        log_mask = self._log_mask()
+        out[:, log_mask] = 10.0 ** out[:, log_mask]
+        return out
+
+    def hotelling_t2(self, X) -> np.ndarray:
+        """Hotelling's T2 (m,) of the samples in X."""
+        return diagnostics.hotelling_t2(self.transform(X), self.eigenvalues_)
+
+    def spe(self, X) -> np.ndarray:
+        """SPE (m,): sum of squared residuals over the observed variables."""
+        r = self.residuals(X)
+        if self.n_components_ == len(self.variable_names_):
+            return np.zeros(r.shape[0])  # the loadings span every direction
+        return diagnostics.spe_contributions(r).sum(axis=1)
+
+    # --------------------------------------------------------------- limits
+    def t2_limit(self, confidence=None, new: bool = False) -> float:
+        """T2 limit: training samples (beta, Tracy et al. 1992) or new samples (F, ``new=True``)."""
+        conf = self.confidence if confidence is None else confidence
+        return diagnostics.t2_limit(self.n_samples_, self.n_components_, conf, new=new)
+
+    def spe_limit(self, confidence=None, method: str = "jackson-mudholkar") -> float:
+        """SPE limit from the discarded eigenvalues (Jackson & Mudholkar 1979, or Box 1954)."""
+        conf = self.confidence if confidence is None else confidence
+        return diagnostics.spe_limit(self.eigenvalues_[self.n_components_ :], conf, method)
+
+    # -------------------------------------------------------- contributions
+    def _filled_row(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(z with missing cells replaced by the model estimate, residual with NaN there)."""
+        t = self._scores_of(z[None, :])[0]
+        estimate = self.loadings_ @ t
+        missing = np.isnan(z)
+        filled = np.where(missing, estimate, z)
+        residual = z - estimate
+        if self.n_components_ == len(self.variable_names_):
+            residual = np.where(missing, np.nan, 0.0)
+        return filled, residual
+
+    def contributions(self, x, kind: str = "spe") -> np.ndarray:
+        """Per-variable contributions (p,) of one raw row x to its SPE or T2.
+
+        SPE: squared residuals. T2: c_j = sum_a (t_a/lambda_a) p_ja z_j
+        (Westerhuis, Gurden & Smilde 2000). Missing cells take the model's
+        estimate, so the contributions sum to the row's SPE / T2.
+        """
+        if kind not in ("spe", "t2"):
+            raise InputError(f"kind={kind!r} must be 'spe' or 't2'")
+        z = self.preprocess(self._one_row(x))[0]
+        filled, residual = self._filled_row(z)
+        if kind == "spe":
+            return diagnostics.spe_contributions(residual)
+        return diagnostics.t2_contributions(filled, self.loadings_, self.eigenvalues_)
+
+
+class _Decomposition:
+    """Eigenvalues (descending, clipped at 0, divided by n-1) and a way to get A loadings."""
+
+    def __init__(self, eigenvalues, loadings_fn, total_ss, column_ss):
+        self.eigenvalues = eigenvalues
+        self.loadings = loadings_fn
+        self.total_ss = total_ss
+        self.column_ss = column_ss
+
+
+def _decompose_xtx_blocks(values, log_mask, mean, scale) -> _Decomposition:
+    """Eigendecomposition of Z'Z accumulated over row blocks of the preprocessed data."""
+    n, p = values.shape
+    gram = np.zeros((p, p))
+    for start in range(0, n, CHUNK_ROWS):
+        block = scale_block(values[start : start + CHUNK_ROWS], log_mask, mean, scale)
+        gram += block.T @ block
+    return _from_gram_features(gram, n)
+
+
+def _from_gram_features(gram: np.ndarray, n: int) -> _Decomposition:
+    w, v = linalg.eigh(gram, driver="evd")
+    w, v = np.clip(w[::-1], 0.0, None), v[:, ::-1]
+    return _Decomposition(w / (n - 1), lambda a: v[:, :a].copy(), float(np.trace(gram)), np.diag(gram).copy())
+
+
+def _decompose_full(z: np.ndarray, solver: str) -> _Decomposition:
+    """Decompose the preprocessed, complete matrix z with the named solver."""
+    n, p = z.shape
+    column_ss = np.einsum("ij,ij->j", z, z)
+    total_ss = float(column_ss.sum())
+    if solver == "xtx":
+        return _from_gram_features(z.T @ z, n)
+    if solver == "svd":
+        _, s, vt = linalg.svd(z, full_matrices=False, lapack_driver="gesdd")
+        return _Decomposition(s**2 / (n - 1), lambda a: vt[:a].T.copy(), total_ss, column_ss)
+    # xxt: eigenvectors u of ZZ' give loadings Z'u / ||Z'u|| (= Z'u / sigma).
+    w, u = linalg.eigh(z @ z.T, driver="evd")
+    w, u = np.clip(w[::-1], 0.0, None), u[:, ::-1]
+
+    def loadings(a: int) -> np.ndarray:
+        p_a = z.T @ u[:, :a]
+        return p_a / np.linalg.norm(p_a, axis=0)
+
+    return _Decomposition(w / (n - 1), loadings, total_ss, column_ss)
+
+
+def _numerical_rank(eigenvalues: np.ndarray, n: int, p: int, centred: bool) -> int:
+    """Components above rounding level: lambda > lambda_max * max(n, p) * eps.
+
+    The Gram-matrix solvers resolve eigenvalues only to about eps * lambda_max,
+    so the same tolerance is used on every solver to give the same count.
+    """
+    if eigenvalues.size == 0 or eigenvalues[0] <= 0:
+        return 0
+    tol = eigenvalues[0] * max(n, p) * np.finfo(float).eps
+    rank = int(np.sum(eigenvalues > tol))
+    return min(rank, n - 1 if centred else n, p)
+
+
+def _sign_convention(loadings: np.ndarray) -> np.ndarray:
+    """Flip each loading vector so that its largest-magnitude element is positive."""
+    idx = np.argmax(np.abs(loadings), axis=0)
+    signs = np.sign(loadings[idx, np.arange(loadings.shape[1])])
+    signs[signs == 0] = 1.0
+    return loadings * signs
+
+
+def _residual_ss(z, scores, loadings, mask=None) -> np.ndarray:
+    """Row sums of squared residuals z - TP', skipping masked (missing) cells."""
+    e = z - scores @ loadings.T
+    if mask is not None:
+        e[mask] = 0.0
+    return np.einsum("ij,ij->i", e, e)

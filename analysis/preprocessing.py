@@ -1,0 +1,221 @@
+"""Preprocessing: optional log10 per variable, then centring and scaling.
+
+Everything is learned from the training data (``fit``) and re-applied unchanged
+to new data (``transform``). Means and standard deviations ignore missing
+values (NaN) and use ddof=1.
+
+Scaling methods (van den Berg et al. 2006, BMC Genomics 7:142, compare them):
+
+- ``none``: values as they are;
+- ``center``: subtract the mean;
+- ``autoscale``: subtract the mean, divide by the standard deviation;
+- ``pareto``: subtract the mean, divide by the square root of the standard deviation.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+
+from analysis.errors import InputError
+
+SCALINGS = ("none", "center", "autoscale", "pareto")
+
+# Rows handled at once when a full preprocessed copy of tall data is not needed.
+CHUNK_ROWS = 8192
+
+
+def default_variable_names(p: int) -> list[str]:
+    """Names used when the data come without column names: x1, x2, ..."""
+    return [f"x{j + 1}" for j in range(p)]
+
+
+def default_sample_ids(n: int) -> list[str]:
+    """Ids used when the data come without sample ids: row numbers counted from 1."""
+    return [str(i + 1) for i in range(n)]
+
+
+def as_matrix(X, sample_ids=None, variable_names=None) -> tuple[np.ndarray, list[str], list[str]]:
+    """Validate input and return (float64 matrix, sample ids, variable names).
+
+    ``X`` is an ndarray or a DataFrame (index gives the sample ids and columns
+    the variable names unless given explicitly). NaN marks a missing value;
+    infinite or non-numeric values are an InputError naming row and column.
+    """
+    if isinstance(X, pd.DataFrame):
+        if sample_ids is None:
+            sample_ids = [str(s) for s in X.index]
+        if variable_names is None:
+            variable_names = [str(c) for c in X.columns]
+        try:
+            values = X.to_numpy(dtype=np.float64)
+        except (TypeError, ValueError) as exc:
+            bad = [str(c) for c in X.columns if not pd.api.types.is_numeric_dtype(X[c])]
+            raise InputError(f"non-numeric variable(s): {', '.join(bad[:10]) or exc}") from exc
+    else:
+        try:
+            values = np.asarray(X, dtype=np.float64)
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"data must be numeric: {exc}") from exc
+    if values.ndim != 2:
+        raise InputError(f"data must be a 2-D table (samples x variables), got {values.ndim} dimension(s)")
+    n, p = values.shape
+    sample_ids = default_sample_ids(n) if sample_ids is None else [str(s) for s in sample_ids]
+    variable_names = default_variable_names(p) if variable_names is None else [str(v) for v in variable_names]
+    if len(sample_ids) != n:
+        raise InputError(f"{len(sample_ids)} sample ids given for {n} rows")
+    if len(variable_names) != p:
+        raise InputError(f"{len(variable_names)} variable names given for {p} columns")
+    if len(set(variable_names)) != p:
+        dup = sorted({v for v in variable_names if variable_names.count(v) > 1})
+        raise InputError(f"duplicate variable name(s): {', '.join(dup[:10])}")
+    infinite = np.isinf(values)
+    if infinite.any():
+        i, j = np.argwhere(infinite)[0]
+        raise InputError(
+            f"infinite value {values[i, j]} in variable {variable_names[j]!r}, sample {sample_ids[i]!r}"
+        )
+    return values, sample_ids, variable_names
+
+
+def check_log10(values: np.ndarray, log_mask: np.ndarray, sample_ids, variable_names) -> None:
+    """Raise InputError for the first non-positive value in a log10 variable."""
+    if not log_mask.any():
+        return
+    sub = values[:, log_mask]
+    bad = sub <= 0  # NaN compares False: missing stays missing
+    if bad.any():
+        i, k = np.argwhere(bad)[0]
+        j = np.flatnonzero(log_mask)[k]
+        raise InputError(
+            f"log10 needs positive values: variable {variable_names[j]!r}, sample {sample_ids[i]!r} "
+            f"has {values[i, j]:g}"
+        )
+
+
+class Preprocessor:
+    """log10 (chosen variables), centring and scaling learned on training data.
+
+    Parameters
+    ----------
+    scaling : {"none", "center", "autoscale", "pareto"}
+    log10 : sequence of str
+        Variables to replace by their base-10 logarithm before centring.
+    drop_constant : bool
+        When False (default) a constant variable is an InputError naming it
+        (it cannot be autoscaled); when True it is dropped with a warning.
+
+    Attributes
+    ----------
+    mean_ : ndarray (p,)   subtracted after log10 (0 for ``none``)
+    sd_ : ndarray (p,)     standard deviation (ddof=1) after log10, for every scaling
+    scale_ : ndarray (p,)  divisor after centring (1, sd or sqrt(sd))
+    log_mask_ : ndarray of bool (p,)
+    variable_names_ : list[str]   variables kept
+    dropped_variables_ : list[str]
+    warnings_ : list[str]
+    """
+
+    def __init__(self, scaling: str = "autoscale", log10: Sequence[str] = (), drop_constant: bool = False):
+        self.scaling = scaling
+        self.log10 = log10
+        self.drop_constant = drop_constant
+
+    def fit(self, values: np.ndarray, sample_ids: list[str], variable_names: list[str]) -> Preprocessor:
+        """Learn log10 mask, means and scales from ``values`` (n, p); NaN ignored."""
+        if self.scaling not in SCALINGS:
+            raise InputError(f"scaling={self.scaling!r} is not one of {', '.join(SCALINGS)}")
+        log10 = [self.log10] if isinstance(self.log10, str) else [str(v) for v in self.log10]
+        unknown = [v for v in log10 if v not in variable_names]
+        if unknown:
+            raise InputError(f"log10 variable(s) not in the data: {', '.join(unknown[:10])}")
+        log_mask = np.isin(np.asarray(variable_names, dtype=object), log10)
+        check_log10(values, log_mask, sample_ids, variable_names)
+
+        mean, sd, n_obs = column_moments(values, log_mask)
+        too_few = n_obs < 2
+        constant = ~too_few & (sd <= 64 * np.finfo(float).eps * np.abs(mean))
+        # Only scalings that divide by the SD are broken by a constant variable.
+        divides = self.scaling in ("autoscale", "pareto")
+        bad = too_few | (constant & divides)
+        self.warnings_ = []
+        names = np.asarray(variable_names, dtype=object)
+        if bad.any():
+            described = [
+                f"{v} ({'fewer than 2 values' if few else 'constant'})"
+                for v, few in zip(names[bad], too_few[bad])
+            ]
+            if not self.drop_constant:
+                raise InputError(
+                    f"variable(s) that cannot be scaled: {', '.join(described[:10])}"
+                    + (f" and {len(described) - 10} more" if len(described) > 10 else "")
+                    + "; remove them or allow dropping constant variables"
+                )
+            self.warnings_.append(f"dropped variable(s) that cannot be scaled: {', '.join(described)}")
+        keep = ~bad
+        if not keep.any():
+            raise InputError("no variable is left after dropping constant variables")
+        self.keep_ = keep
+        self.input_variables_ = list(variable_names)
+        self.variable_names_ = [str(v) for v in names[keep]]
+        self.dropped_variables_ = [str(v) for v in names[bad]]
+        self.log_mask_ = log_mask[keep]
+        self.sd_ = sd[keep]
+        if self.scaling == "none":
+            self.mean_ = np.zeros(keep.sum())
+        else:
+            self.mean_ = mean[keep]
+        if self.scaling == "autoscale":
+            self.scale_ = self.sd_.copy()
+        elif self.scaling == "pareto":
+            self.scale_ = np.sqrt(self.sd_)
+        else:
+            self.scale_ = np.ones(keep.sum())
+        return self
+
+
+def column_moments(values: np.ndarray, log_mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Mean, SD (ddof=1) and number of observed values per column after log10.
+
+    Two-pass (centre, then sum squares) in row chunks: accurate and without a
+    full-size temporary copy.
+    """
+    n, p = values.shape
+    missing = np.isnan(values).any()
+    if missing:
+        n_obs = np.sum(~np.isnan(values), axis=0)
+    else:
+        n_obs = np.full(p, n)
+    total = np.zeros(p)
+    for start in range(0, n, CHUNK_ROWS):
+        block = apply_log10(values[start : start + CHUNK_ROWS], log_mask)
+        total += np.nansum(block, axis=0) if missing else block.sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = total / n_obs
+    ss = np.zeros(p)
+    for start in range(0, n, CHUNK_ROWS):
+        block = apply_log10(values[start : start + CHUNK_ROWS], log_mask) - mean
+        if missing:
+            block = np.where(np.isnan(block), 0.0, block)
+        ss += np.einsum("ij,ij->j", block, block)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sd = np.sqrt(ss / (n_obs - 1))
+    return mean, sd, n_obs
+
+
+def apply_log10(block: np.ndarray, log_mask: np.ndarray) -> np.ndarray:
+    """A copy of ``block`` with log10 applied to the masked columns."""
+    out = np.array(block, dtype=np.float64, copy=True)
+    if log_mask.any():
+        out[:, log_mask] = np.log10(out[:, log_mask])
+    return out
+
+
+def scale_block(block: np.ndarray, log_mask: np.ndarray, mean: np.ndarray, scale: np.ndarray) -> np.ndarray:
+    """log10, centre and scale one block of rows (a new array; NaN kept)."""
+    out = apply_log10(block, log_mask)
+    out -= mean
+    out /= scale
+    return out
