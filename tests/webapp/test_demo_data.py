@@ -1,0 +1,277 @@
+"""Tests of the invented demo scenarios (webapp.demo_data).
+
+Most checks here are demo design checks: they confirm that our own invented
+data carry the planted problems in a form an analyst would find. They are
+not checks against an outside source. The PCA itself is scikit-learn's on
+autoscaled data; the limits use the published formulas named beside them.
+"""
+
+from __future__ import annotations
+
+import io
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+from sklearn.decomposition import PCA
+
+from webapp import demo_data
+from webapp.demo_data import (
+    LAB_METADATA,
+    LAB_VARIABLES,
+    SURVEY_METADATA,
+    SURVEY_VARIABLES,
+    lab_scenario,
+    planted_anomalies,
+    survey_scenario,
+)
+
+
+# ----------------------------------------------------------- helpers
+
+def _read(raw: bytes) -> pd.DataFrame:
+    return pd.read_csv(io.BytesIO(raw), dtype=str, keep_default_na=False, encoding="utf-8")
+
+
+def _numeric(frame: pd.DataFrame, columns: list[str]) -> np.ndarray:
+    """Cells as floats: blank -> NaN, "<LOD" -> LOD/2.
+
+    LOD/2 substitution: common practice for multivariate screening (see
+    REFERENCES.md, facts of the trade).
+    """
+
+    def cell(text: str) -> float:
+        if text == "":
+            return np.nan
+        if text.startswith("<"):
+            return float(text[1:]) / 2
+        return float(text)
+
+    return np.array([[cell(v) for v in frame[c]] for c in columns]).T
+
+
+class _Fit:
+    """Autoscaled PCA (column means fill the few blanks) with T2 and SPE.
+
+    Demo design check helper, not a reference implementation: scores and
+    loadings come from scikit-learn's PCA.
+    """
+
+    def __init__(self, X: np.ndarray, n_components: int, confidence: float = 0.95):
+        X = np.where(np.isnan(X), np.nanmean(X, axis=0), X)
+        Z = (X - X.mean(axis=0)) / X.std(axis=0, ddof=1)
+        full = PCA(svd_solver="full").fit(Z)
+        n, A = Z.shape[0], n_components
+        eig = full.explained_variance_  # t't/(n-1), ddof=1
+        P = full.components_[:A].T
+        self.scores = Z @ P
+        self.residuals = Z - self.scores @ P.T
+        self.spe = (self.residuals**2).sum(axis=1)
+        self.t2 = (self.scores**2 / eig[:A]).sum(axis=1)
+        # Training-sample T2 limit: ((n-1)^2/n) Beta(A/2, (n-A-1)/2).
+        # Tracy, Young & Mason (1992), J. Quality Technology 24(2), 88-95.
+        self.t2_limit = (n - 1) ** 2 / n * stats.beta.ppf(confidence, A / 2, (n - A - 1) / 2)
+        # SPE limit: Jackson & Mudholkar (1979), Technometrics 21(3), 341-349.
+        th1, th2, th3 = (np.sum(eig[A:] ** i) for i in (1, 2, 3))
+        h0 = 1 - 2 * th1 * th3 / (3 * th2**2)
+        c = stats.norm.ppf(confidence)
+        self.spe_limit = th1 * (
+            c * np.sqrt(2 * th2 * h0**2) / th1 + 1 + th2 * h0 * (h0 - 1) / th1**2
+        ) ** (1 / h0)
+
+
+def _lab_fit(seed: int = demo_data.LAB_SEED):
+    frame = _read(lab_scenario(seed)[1])
+    return frame, list(frame["Batch"]), _Fit(_numeric(frame, LAB_VARIABLES), 3)
+
+
+def _survey_fit(seed: int = demo_data.SURVEY_SEED):
+    frame = _read(survey_scenario(seed)[1])
+    return frame, list(frame["Respondent"]), _Fit(_numeric(frame, SURVEY_VARIABLES), 4)
+
+
+# ------------------------------------------------------ determinism
+
+@pytest.mark.parametrize("scenario", [lab_scenario, survey_scenario])
+def test_same_seed_gives_identical_bytes(scenario):
+    assert scenario() == scenario()
+    assert scenario(11)[1] == scenario(11)[1]
+    assert scenario(11)[1] != scenario(12)[1]
+
+
+def test_planted_ids_do_not_depend_on_the_seed():
+    for name, anomalies in (("lab", planted_anomalies("lab")), ("survey", planted_anomalies("survey"))):
+        for problem in anomalies.values():
+            assert problem["samples"] and problem["variables"] and problem["cause"] and problem["finding"]
+        ids_column = "Batch" if name == "lab" else "Respondent"
+        make = lab_scenario if name == "lab" else survey_scenario
+        for seed in (1, 2):
+            present = set(_read(make(seed)[1])[ids_column])
+            for problem in anomalies.values():
+                assert set(problem["samples"]) <= present
+
+
+def test_unknown_scenario_is_refused():
+    with pytest.raises(ValueError, match="unknown demo scenario 'lap'"):
+        planted_anomalies("lap")
+
+
+# ------------------------------------------------- shapes and roles
+
+def test_lab_file_shape_and_roles():
+    filename, raw = lab_scenario()
+    assert filename.endswith(".csv")
+    frame = _read(raw)
+    assert list(frame.columns) == ["Batch", *LAB_METADATA, *LAB_VARIABLES]
+    assert len(frame) == 150 and frame["Batch"].is_unique
+    assert set(frame["Site"]) == {"Site North", "Site South"}
+    assert set(frame["Line"]) == {"Line A", "Line B", "Line C"}
+    dates = pd.to_datetime(frame["Manufactured"], format="%Y-%m-%d")
+    assert dates.is_monotonic_increasing
+    # Line C is the only line at Site South.
+    assert set(frame.loc[frame["Site"] == "Site South", "Line"]) == {"Line C"}
+
+    below = frame[LAB_VARIABLES].apply(lambda c: c.str.startswith("<"))
+    assert set(below.columns[below.any()]) == {"Impurity B (%)"}
+    assert 1 <= int(below.to_numpy().sum()) <= 10
+    assert set(frame.loc[below["Impurity B (%)"], "Impurity B (%)"]) == {"<0.05"}
+    assert int((frame[LAB_VARIABLES] == "").to_numpy().sum()) == 15
+
+    X = _numeric(frame, LAB_VARIABLES)
+    assert np.all(X[~np.isnan(X)] > 0)
+    assert 90 < np.nanmin(X[:, 0]) and np.nanmax(X[:, 0]) < 103  # assay stays plausible
+
+
+def test_survey_file_shape_and_roles():
+    filename, raw = survey_scenario()
+    assert filename.endswith(".csv")
+    frame = _read(raw)
+    assert list(frame.columns) == ["Respondent", *SURVEY_METADATA, *SURVEY_VARIABLES]
+    assert len(frame) == 320 and frame["Respondent"].is_unique
+    assert set(frame["Department"]) == {"Planning", "Workshop", "Customer Care", "Logistics"}
+    assert set(frame["Mode"]) == {"online", "paper"}
+    answers = frame[SURVEY_VARIABLES].to_numpy()
+    assert set(np.unique(answers)) == {"", "1", "2", "3", "4", "5"}
+    assert int((answers == "").sum()) == 90
+
+
+def test_no_planted_sample_has_a_blank_cell():
+    lab = _read(lab_scenario()[1]).set_index("Batch")
+    survey = _read(survey_scenario()[1]).set_index("Respondent")
+    for frame, anomalies in ((lab, planted_anomalies("lab")), (survey, planted_anomalies("survey"))):
+        for name, problem in anomalies.items():
+            if name == "line_shift":  # the whole line, not one planted batch
+                continue
+            assert not (frame.loc[problem["samples"]] == "").any().any(), name
+
+
+# ------------------------------- lab: what an analyst should find
+# Demo design checks (our own invented data), 3 components (the three
+# latent factors the generator uses).
+
+@pytest.mark.parametrize("seed", [demo_data.LAB_SEED, 1, 2, 3])
+def test_lab_outliers_have_the_largest_spe_and_the_extreme_batch_high_t2(seed):
+    _, ids, fit = _lab_fit(seed)
+    planted = planted_anomalies("lab")
+    outliers = planted["assay_outlier"]["samples"] + planted["dissolution_outlier"]["samples"]
+    top_two = [ids[i] for i in np.argsort(-fit.spe)[:2]]
+    assert sorted(top_two) == sorted(outliers)
+    assert all(fit.spe[ids.index(s)] > fit.spe_limit for s in outliers)
+
+    extreme = ids.index(planted["extreme_valid"]["samples"][0])
+    assert fit.t2[extreme] == fit.t2.max()
+    assert fit.t2[extreme] > fit.t2_limit
+    assert fit.spe[extreme] < fit.spe_limit
+
+
+def test_lab_outliers_are_explained_by_their_planted_variable():
+    _, ids, fit = _lab_fit()
+    planted = planted_anomalies("lab")
+    for name in ("assay_outlier", "dissolution_outlier"):
+        row = ids.index(planted[name]["samples"][0])
+        # SPE contribution of a variable = its squared residual
+        # (Westerhuis, Gurden & Smilde 2000, Chemometr. Intell. Lab. Syst. 51, 95-114).
+        top = LAB_VARIABLES[int(np.argmax(fit.residuals[row] ** 2))]
+        assert [top] == planted[name]["variables"]
+        assert fit.residuals[row, LAB_VARIABLES.index(top)] < 0  # both read low
+
+
+def test_lab_drifting_instrument_shows_in_water_residuals_over_run_order():
+    _, ids, fit = _lab_fit()
+    drift = planted_anomalies("lab")["drifting_instrument"]
+    rows = [ids.index(s) for s in drift["samples"]]
+    water = LAB_VARIABLES.index("Water content (%)")
+    assert drift["variables"] == ["Water content (%)"]
+    # Residuals of water grow along the run order of the drifting batches.
+    rho = stats.spearmanr(np.arange(len(rows)), fit.residuals[rows, water]).statistic
+    assert rho > 0.7
+    # The last batches are out, and water leads their SPE contributions.
+    last = rows[-5:]
+    assert np.median(fit.spe[last]) > fit.spe_limit
+    leaders = [LAB_VARIABLES[int(np.argmax(fit.residuals[r] ** 2))] for r in last]
+    assert leaders.count("Water content (%)") >= 4
+    # ... and far above the typical batch outside the drift.
+    earlier = [i for i, s in enumerate(ids) if s not in drift["samples"]]
+    assert np.median(fit.spe[rows[-5:]]) > 3 * np.median(fit.spe[earlier])
+
+
+def test_lab_line_b_sits_apart_and_the_mislabelled_batch_sits_with_it():
+    frame, ids, fit = _lab_fit()
+    planted = planted_anomalies("lab")
+    mislabelled = ids.index(planted["mislabelled_batch"]["samples"][0])
+    assert frame["Line"].iloc[mislabelled] == "Line A"  # what the record says
+
+    X = _numeric(frame, LAB_VARIABLES)
+    line = frame["Line"].to_numpy()
+    for name in planted["line_shift"]["variables"]:
+        j = LAB_VARIABLES.index(name)
+        others = X[line != "Line B", j]
+        gap = np.nanmean(X[line == "Line B", j]) - np.nanmean(others)
+        assert gap > 1.0 * np.nanstd(others, ddof=1)
+
+    line_b = set(planted["line_shift"]["samples"])
+    true_line = np.array(["Line B" if s in line_b else lab for s, lab in zip(ids, line)])
+    keep = np.arange(len(ids)) != mislabelled
+    centroids = {
+        name: fit.scores[keep & (true_line == name)].mean(axis=0) for name in ("Line A", "Line B", "Line C")
+    }
+    nearest = min(centroids, key=lambda k: np.linalg.norm(fit.scores[mislabelled] - centroids[k]))
+    assert nearest == "Line B"
+
+
+# ----------------------------- survey: what an analyst should find
+# Demo design checks (our own invented data), 4 components (one per trait).
+
+def test_survey_straight_liners_stand_out():
+    frame, ids, fit = _survey_fit()
+    planted = planted_anomalies("survey")["straight_liners"]
+    answers = _numeric(frame, SURVEY_VARIABLES)
+    # Every planted straight-liner, and nobody else, has zero spread.
+    spread = np.nanstd(answers, axis=1)
+    assert {ids[i] for i in np.flatnonzero(spread == 0)} == set(planted["samples"])
+    # Those answering 5 or 1 throughout contradict the negatively worded
+    # items: SPE above the limit, at the top of the list.
+    loud = [s for s in planted["samples"] if answers[ids.index(s), 0] in (1, 5)]
+    assert len(loud) == 3
+    top = {ids[i] for i in np.argsort(-fit.spe)[: len(loud)]}
+    assert top == set(loud)
+    # The one answering 3 throughout sits near the centre, as the docs say.
+    quiet = (set(planted["samples"]) - set(loud)).pop()
+    assert fit.spe[ids.index(quiet)] < fit.spe_limit
+    assert fit.t2[ids.index(quiet)] < fit.t2_limit
+
+
+def test_survey_reversed_block_stands_out():
+    frame, ids, fit = _survey_fit()
+    anomalies = planted_anomalies("survey")
+    block = anomalies["reversed_page_two"]["samples"]
+    rows = [ids.index(s) for s in block]
+    assert set(frame["Mode"].iloc[rows]) == {"paper"}
+    assert set(frame["Department"].iloc[rows]) == {"Logistics"}
+    assert int((fit.spe[rows] > fit.spe_limit).sum()) >= 12
+    planted = set(block) | set(anomalies["straight_liners"]["samples"])
+    others = [i for i, s in enumerate(ids) if s not in planted]
+    assert np.median(fit.spe[rows]) > 3 * np.median(fit.spe[others])
+    # Few unplanted respondents cross the limit: the flags point at the plant.
+    assert int((fit.spe[others] > fit.spe_limit).sum()) <= 0.05 * len(others)
