@@ -1,0 +1,229 @@
+"""View state <-> query string, and the one place that builds page URLs.
+
+A dataset page's whole state (model settings and what is shown) lives in its
+query string, so a reload, the back button or a copied link shows the same
+thing. ``ViewState`` is that state; ``to_query`` writes only what differs from
+the defaults, in a fixed key order; ``parse_query`` reads it back, ignoring
+values it cannot use and saying which. Lists (log10 variables, variables left
+out, excluded samples) are repeated keys, so names may hold commas.
+
+Components are numbered from 1 in the URL (``pcx=1`` is PC1), as on the axes.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from typing import Any, Mapping
+from urllib.parse import parse_qs, quote, urlencode
+
+TABS = ("variance", "scores", "loadings", "diagnostics", "outliers")
+SCALINGS = ("autoscale", "center", "pareto", "none")
+LOADING_VIEWS = ("plot", "biplot", "bars")
+CONFIDENCES = (0.9, 0.95, 0.99)
+
+
+@dataclass(frozen=True)
+class ViewState:
+    """What a dataset page shows.
+
+    Model settings: ``components`` (None = use the recommendation), ``scaling``,
+    ``log10`` (variables log-transformed), ``drop`` (variables left out),
+    ``exclude`` (sample ids left out of the fit), ``confidence``.
+    View: ``tab``, ``pcx``/``pcy`` (1-based components), ``colour``/``shape``
+    (metadata columns), ``labels``, ``loadings`` (plot, biplot or bars),
+    ``sample`` (the sample whose explanation is open), ``order`` (column for the
+    control charts' x axis; None = sample order).
+    """
+
+    components: int | None = None
+    scaling: str = "autoscale"
+    log10: tuple[str, ...] = ()
+    drop: tuple[str, ...] = ()
+    exclude: tuple[str, ...] = ()
+    confidence: float = 0.95
+    tab: str = "scores"
+    pcx: int = 1
+    pcy: int = 2
+    colour: str | None = None
+    shape: str | None = None
+    labels: bool = False
+    loadings: str = "plot"
+    sample: str | None = None
+    order: str | None = None
+
+    def model_settings(self, variables: list[str]) -> dict[str, Any]:
+        """Settings for ``webapp.services.modelling.get_model``: what decides the fit.
+
+        ``variables`` are all of the dataset's variables; those in ``drop`` are
+        left out. Everything else in the state only changes the picture.
+        """
+        dropped = set(self.drop)
+        kept = [v for v in variables if v not in dropped]
+        return {
+            "scaling": self.scaling,
+            "components": self.components if self.components is not None else "auto",
+            "variables": kept,
+            "log10": [v for v in self.log10 if v not in dropped],
+            "exclude": list(self.exclude),
+            "confidence": self.confidence,
+        }
+
+    def with_changes(self, **changes) -> ViewState:
+        """A copy with some fields changed (lists given as any iterable)."""
+        for key in ("log10", "drop", "exclude"):
+            if key in changes and changes[key] is not None:
+                changes[key] = _unique(changes[key])
+        return replace(self, **changes)
+
+
+# URL key for each field, in the order they are written.
+_KEYS = {
+    "tab": "tab", "components": "a", "scaling": "scaling", "log10": "log10", "drop": "drop",
+    "exclude": "exclude", "confidence": "conf", "pcx": "pcx", "pcy": "pcy", "colour": "colour",
+    "shape": "shape", "labels": "labels", "loadings": "loadings", "sample": "sample", "order": "order",
+}
+_LIST_FIELDS = ("log10", "drop", "exclude")
+DEFAULT = ViewState()
+
+
+def _unique(values) -> tuple[str, ...]:
+    seen: dict[str, None] = {}
+    for v in values:
+        if str(v) != "":
+            seen.setdefault(str(v), None)
+    return tuple(seen)
+
+
+def to_query(state: ViewState) -> str:
+    """Query string (without '?') holding every field that differs from the default."""
+    pairs: list[tuple[str, str]] = []
+    for name, key in _KEYS.items():
+        value = getattr(state, name)
+        if value == getattr(DEFAULT, name):
+            continue
+        if name in _LIST_FIELDS:
+            pairs.extend((key, v) for v in value)
+        elif isinstance(value, bool):
+            pairs.append((key, "1" if value else "0"))
+        elif isinstance(value, float):
+            pairs.append((key, f"{value:g}"))
+        else:
+            pairs.append((key, str(value)))
+    return urlencode(pairs, quote_via=quote)
+
+
+def _as_lists(query: str | Mapping[str, Any] | None) -> dict[str, list[str]]:
+    """Normalise a raw query string, or Dash's layout(**query) dict, to key -> list of values."""
+    if query is None:
+        return {}
+    if isinstance(query, str):
+        return parse_qs(query.lstrip("?"), keep_blank_values=True)
+    out: dict[str, list[str]] = {}
+    for key, value in query.items():
+        out[key] = [str(v) for v in value] if isinstance(value, (list, tuple)) else [str(value)]
+    return out
+
+
+def parse_query(query: str | Mapping[str, Any] | None) -> tuple[ViewState, list[str]]:
+    """The ViewState a query string describes, and a note for each value ignored.
+
+    Unknown keys are left alone (other parts of the app may add their own); a
+    known key with an unusable value keeps the default and is named in the notes.
+    """
+    raw = _as_lists(query)
+    values: dict[str, Any] = {}
+    notes: list[str] = []
+
+    def first(name: str) -> str | None:
+        got = raw.get(_KEYS[name])
+        return got[-1] if got else None
+
+    def bad(name: str, text: str, expected: str) -> None:
+        notes.append(f"ignored {_KEYS[name]}={text!r} in the link: expected {expected}")
+
+    for name in _LIST_FIELDS:
+        if _KEYS[name] in raw:
+            values[name] = _unique(raw[_KEYS[name]])
+
+    for name, lowest in (("components", 1), ("pcx", 1), ("pcy", 1)):
+        text = first(name)
+        if text is None or (name == "components" and text in ("", "auto")):
+            continue
+        try:
+            number = int(text)
+        except ValueError:
+            number = 0
+        if number < lowest:
+            bad(name, text, f"a whole number of at least {lowest}")
+        else:
+            values[name] = number
+
+    text = first("confidence")
+    if text is not None:
+        try:
+            conf = float(text)
+        except ValueError:
+            conf = -1.0
+        if 0.5 <= conf < 1.0:
+            values["confidence"] = conf
+        else:
+            bad("confidence", text, "a level between 0.5 and 1, such as 0.95")
+
+    for name, allowed in (("tab", TABS), ("scaling", SCALINGS), ("loadings", LOADING_VIEWS)):
+        text = first(name)
+        if text is None:
+            continue
+        if text in allowed:
+            values[name] = text
+        else:
+            bad(name, text, "one of " + ", ".join(allowed))
+
+    text = first("labels")
+    if text is not None:
+        if text in ("1", "0", "true", "false"):
+            values["labels"] = text in ("1", "true")
+        else:
+            bad("labels", text, "1 or 0")
+
+    for name in ("colour", "shape", "sample", "order"):
+        text = first(name)
+        if text:
+            values[name] = text
+
+    state = replace(DEFAULT, **values)
+    if state.pcx == state.pcy:
+        notes.append(f"pcx and pcy were both {state.pcx}; showing PC1 against PC2")
+        state = replace(state, pcx=1, pcy=2)
+    return state, notes
+
+
+def from_query(query: str | Mapping[str, Any] | None) -> ViewState:
+    """The ViewState a query string describes (see ``parse_query``)."""
+    return parse_query(query)[0]
+
+
+# ------------------------------------------------------------------ URLs
+def _path_part(value) -> str:
+    return quote(str(value), safe="")
+
+
+def home_url() -> str:
+    """The dataset list."""
+    return "/"
+
+
+def upload_url() -> str:
+    """The upload page (file -> intake report -> confirm)."""
+    return "/upload"
+
+
+def dataset_path_template() -> str:
+    """Path template of the dataset page (for dash.register_page)."""
+    return "/datasets/<dataset_id>"
+
+
+def dataset_url(dataset_id, state: ViewState | None = None) -> str:
+    """The dataset page, optionally in a given view state."""
+    path = f"/datasets/{_path_part(dataset_id)}"
+    query = to_query(state) if state is not None else ""
+    return f"{path}?{query}" if query else path
