@@ -14,8 +14,8 @@ import numpy as np
 import pandas as pd
 import pytest
 from scipy import stats
-from sklearn.decomposition import PCA
 
+from analysis.pca import PCAModel
 from webapp import demo_data
 from webapp.demo_data import (
     LAB_METADATA,
@@ -51,44 +51,29 @@ def _numeric(frame: pd.DataFrame, columns: list[str]) -> np.ndarray:
     return np.array([[cell(v) for v in frame[c]] for c in columns]).T
 
 
-class _Fit:
-    """Autoscaled PCA (column means fill the few blanks) with T2 and SPE.
+def _fit(X: np.ndarray, n_components: int) -> PCAModel:
+    """Autoscaled PCA of the demo table with the project's own PCAModel.
 
-    Demo design check helper, not a reference implementation: scores and
-    loadings come from scikit-learn's PCA.
+    This is what the app will fit, so the checks below ask whether the app
+    would flag the planted samples. Blanks are handled by the model's
+    iterative imputation; limits at 95 %: T2 by Tracy, Young & Mason (1992),
+    SPE by Jackson & Mudholkar (1979), as implemented in analysis.diagnostics.
     """
-
-    def __init__(self, X: np.ndarray, n_components: int, confidence: float = 0.95):
-        X = np.where(np.isnan(X), np.nanmean(X, axis=0), X)
-        Z = (X - X.mean(axis=0)) / X.std(axis=0, ddof=1)
-        full = PCA(svd_solver="full").fit(Z)
-        n, A = Z.shape[0], n_components
-        eig = full.explained_variance_  # t't/(n-1), ddof=1
-        P = full.components_[:A].T
-        self.scores = Z @ P
-        self.residuals = Z - self.scores @ P.T
-        self.spe = (self.residuals**2).sum(axis=1)
-        self.t2 = (self.scores**2 / eig[:A]).sum(axis=1)
-        # Training-sample T2 limit: ((n-1)^2/n) Beta(A/2, (n-A-1)/2).
-        # Tracy, Young & Mason (1992), J. Quality Technology 24(2), 88-95.
-        self.t2_limit = (n - 1) ** 2 / n * stats.beta.ppf(confidence, A / 2, (n - A - 1) / 2)
-        # SPE limit: Jackson & Mudholkar (1979), Technometrics 21(3), 341-349.
-        th1, th2, th3 = (np.sum(eig[A:] ** i) for i in (1, 2, 3))
-        h0 = 1 - 2 * th1 * th3 / (3 * th2**2)
-        c = stats.norm.ppf(confidence)
-        self.spe_limit = th1 * (
-            c * np.sqrt(2 * th2 * h0**2) / th1 + 1 + th2 * h0 * (h0 - 1) / th1**2
-        ) ** (1 / h0)
+    return PCAModel(n_components=n_components, scaling="autoscale", confidence=0.95).fit(X)
 
 
 def _lab_fit(seed: int = demo_data.LAB_SEED):
+    """(frame, batch ids, 3-component model, numeric matrix) of the lab demo."""
     frame = _read(lab_scenario(seed)[1])
-    return frame, list(frame["Batch"]), _Fit(_numeric(frame, LAB_VARIABLES), 3)
+    X = _numeric(frame, LAB_VARIABLES)
+    return frame, list(frame["Batch"]), _fit(X, 3), X
 
 
 def _survey_fit(seed: int = demo_data.SURVEY_SEED):
+    """(frame, respondent ids, 4-component model, numeric matrix) of the survey demo."""
     frame = _read(survey_scenario(seed)[1])
-    return frame, list(frame["Respondent"]), _Fit(_numeric(frame, SURVEY_VARIABLES), 4)
+    X = _numeric(frame, SURVEY_VARIABLES)
+    return frame, list(frame["Respondent"]), _fit(X, 4), X
 
 
 # ------------------------------------------------------ determinism
@@ -172,57 +157,56 @@ def test_no_planted_sample_has_a_blank_cell():
 
 @pytest.mark.parametrize("seed", [demo_data.LAB_SEED, 1, 2, 3])
 def test_lab_outliers_have_the_largest_spe_and_the_extreme_batch_high_t2(seed):
-    _, ids, fit = _lab_fit(seed)
+    _, ids, fit, _ = _lab_fit(seed)
     planted = planted_anomalies("lab")
     outliers = planted["assay_outlier"]["samples"] + planted["dissolution_outlier"]["samples"]
-    top_two = [ids[i] for i in np.argsort(-fit.spe)[:2]]
+    top_two = [ids[i] for i in np.argsort(-fit.spe_)[:2]]
     assert sorted(top_two) == sorted(outliers)
-    assert all(fit.spe[ids.index(s)] > fit.spe_limit for s in outliers)
+    assert all(fit.spe_[ids.index(s)] > fit.spe_limit() for s in outliers)
 
     extreme = ids.index(planted["extreme_valid"]["samples"][0])
-    assert fit.t2[extreme] == fit.t2.max()
-    assert fit.t2[extreme] > fit.t2_limit
-    assert fit.spe[extreme] < fit.spe_limit
+    assert fit.t2_[extreme] == fit.t2_.max()
+    assert fit.t2_[extreme] > fit.t2_limit()
+    assert fit.spe_[extreme] < fit.spe_limit()
 
 
 def test_lab_outliers_are_explained_by_their_planted_variable():
-    _, ids, fit = _lab_fit()
+    _, ids, fit, X = _lab_fit()
     planted = planted_anomalies("lab")
     for name in ("assay_outlier", "dissolution_outlier"):
         row = ids.index(planted[name]["samples"][0])
         # SPE contribution of a variable = its squared residual
         # (Westerhuis, Gurden & Smilde 2000, Chemometr. Intell. Lab. Syst. 51, 95-114).
-        top = LAB_VARIABLES[int(np.argmax(fit.residuals[row] ** 2))]
+        top = LAB_VARIABLES[int(np.argmax(fit.contributions(X[row], kind="spe")))]
         assert [top] == planted[name]["variables"]
-        assert fit.residuals[row, LAB_VARIABLES.index(top)] < 0  # both read low
+        assert fit.residuals(X[[row]])[0, LAB_VARIABLES.index(top)] < 0  # both read low
 
 
 def test_lab_drifting_instrument_shows_in_water_residuals_over_run_order():
-    _, ids, fit = _lab_fit()
+    _, ids, fit, X = _lab_fit()
     drift = planted_anomalies("lab")["drifting_instrument"]
     rows = [ids.index(s) for s in drift["samples"]]
     water = LAB_VARIABLES.index("Water content (%)")
     assert drift["variables"] == ["Water content (%)"]
     # Residuals of water grow along the run order of the drifting batches.
-    rho = stats.spearmanr(np.arange(len(rows)), fit.residuals[rows, water]).statistic
+    rho = stats.spearmanr(np.arange(len(rows)), fit.residuals(X[rows])[:, water]).statistic
     assert rho > 0.7
     # The last batches are out, and water leads their SPE contributions.
     last = rows[-5:]
-    assert np.median(fit.spe[last]) > fit.spe_limit
-    leaders = [LAB_VARIABLES[int(np.argmax(fit.residuals[r] ** 2))] for r in last]
+    assert np.median(fit.spe_[last]) > fit.spe_limit()
+    leaders = [LAB_VARIABLES[int(np.argmax(fit.contributions(X[r], kind="spe")))] for r in last]
     assert leaders.count("Water content (%)") >= 4
     # ... and far above the typical batch outside the drift.
     earlier = [i for i, s in enumerate(ids) if s not in drift["samples"]]
-    assert np.median(fit.spe[rows[-5:]]) > 3 * np.median(fit.spe[earlier])
+    assert np.median(fit.spe_[rows[-5:]]) > 3 * np.median(fit.spe_[earlier])
 
 
 def test_lab_line_b_sits_apart_and_the_mislabelled_batch_sits_with_it():
-    frame, ids, fit = _lab_fit()
+    frame, ids, fit, X = _lab_fit()
     planted = planted_anomalies("lab")
     mislabelled = ids.index(planted["mislabelled_batch"]["samples"][0])
     assert frame["Line"].iloc[mislabelled] == "Line A"  # what the record says
 
-    X = _numeric(frame, LAB_VARIABLES)
     line = frame["Line"].to_numpy()
     for name in planted["line_shift"]["variables"]:
         j = LAB_VARIABLES.index(name)
@@ -234,9 +218,9 @@ def test_lab_line_b_sits_apart_and_the_mislabelled_batch_sits_with_it():
     true_line = np.array(["Line B" if s in line_b else lab for s, lab in zip(ids, line)])
     keep = np.arange(len(ids)) != mislabelled
     centroids = {
-        name: fit.scores[keep & (true_line == name)].mean(axis=0) for name in ("Line A", "Line B", "Line C")
+        name: fit.scores_[keep & (true_line == name)].mean(axis=0) for name in ("Line A", "Line B", "Line C")
     }
-    nearest = min(centroids, key=lambda k: np.linalg.norm(fit.scores[mislabelled] - centroids[k]))
+    nearest = min(centroids, key=lambda k: np.linalg.norm(fit.scores_[mislabelled] - centroids[k]))
     assert nearest == "Line B"
 
 
@@ -244,9 +228,8 @@ def test_lab_line_b_sits_apart_and_the_mislabelled_batch_sits_with_it():
 # Demo design checks (our own invented data), 4 components (one per trait).
 
 def test_survey_straight_liners_stand_out():
-    frame, ids, fit = _survey_fit()
+    _, ids, fit, answers = _survey_fit()
     planted = planted_anomalies("survey")["straight_liners"]
-    answers = _numeric(frame, SURVEY_VARIABLES)
     # Every planted straight-liner, and nobody else, has zero spread.
     spread = np.nanstd(answers, axis=1)
     assert {ids[i] for i in np.flatnonzero(spread == 0)} == set(planted["samples"])
@@ -254,24 +237,24 @@ def test_survey_straight_liners_stand_out():
     # items: SPE above the limit, at the top of the list.
     loud = [s for s in planted["samples"] if answers[ids.index(s), 0] in (1, 5)]
     assert len(loud) == 3
-    top = {ids[i] for i in np.argsort(-fit.spe)[: len(loud)]}
+    top = {ids[i] for i in np.argsort(-fit.spe_)[: len(loud)]}
     assert top == set(loud)
     # The one answering 3 throughout sits near the centre, as the docs say.
     quiet = (set(planted["samples"]) - set(loud)).pop()
-    assert fit.spe[ids.index(quiet)] < fit.spe_limit
-    assert fit.t2[ids.index(quiet)] < fit.t2_limit
+    assert fit.spe_[ids.index(quiet)] < fit.spe_limit()
+    assert fit.t2_[ids.index(quiet)] < fit.t2_limit()
 
 
 def test_survey_reversed_block_stands_out():
-    frame, ids, fit = _survey_fit()
+    frame, ids, fit, _ = _survey_fit()
     anomalies = planted_anomalies("survey")
     block = anomalies["reversed_page_two"]["samples"]
     rows = [ids.index(s) for s in block]
     assert set(frame["Mode"].iloc[rows]) == {"paper"}
     assert set(frame["Department"].iloc[rows]) == {"Logistics"}
-    assert int((fit.spe[rows] > fit.spe_limit).sum()) >= 12
+    assert int((fit.spe_[rows] > fit.spe_limit()).sum()) >= 12
     planted = set(block) | set(anomalies["straight_liners"]["samples"])
     others = [i for i, s in enumerate(ids) if s not in planted]
-    assert np.median(fit.spe[rows]) > 3 * np.median(fit.spe[others])
+    assert np.median(fit.spe_[rows]) > 3 * np.median(fit.spe_[others])
     # Few unplanted respondents cross the limit: the flags point at the plant.
-    assert int((fit.spe[others] > fit.spe_limit).sum()) <= 0.05 * len(others)
+    assert int((fit.spe_[others] > fit.spe_limit()).sum()) <= 0.05 * len(others)
