@@ -1,0 +1,94 @@
+"""LatentDesk web app: ``create_app`` builds the Flask server, then mounts Dash.
+
+Order: configuration -> store (engine, migrations) -> accounts (flask-login,
+request guard) -> blueprints -> Dash pages. ``create_app`` returns the Flask
+server (the WSGI app gunicorn runs); the Dash app is kept in
+``server.extensions["latentdesk.dash"]``.
+"""
+
+from __future__ import annotations
+
+import importlib
+import importlib.util
+from pathlib import Path
+from typing import Any, Mapping
+
+from flask import Blueprint, Flask
+from werkzeug.middleware.proxy_fix import ProxyFix
+
+from webapp.config import load_config
+
+PACKAGE = Path(__file__).resolve().parent
+DASH_KEY = "latentdesk.dash"
+# Modules that define blueprints, registered when present (each owned by a helper).
+BLUEPRINT_MODULES = ("webapp.auth_views", "webapp.api", "webapp.api_review")
+
+
+def _register_blueprints(server: Flask) -> None:
+    for module_name in BLUEPRINT_MODULES:
+        if importlib.util.find_spec(module_name) is None:
+            continue
+        module = importlib.import_module(module_name)
+        for value in vars(module).values():
+            if isinstance(value, Blueprint) and value.import_name == module_name:
+                server.register_blueprint(value)
+
+
+def _security_headers(response):
+    response.headers.setdefault("X-Content-Type-Options", "nosniff")
+    response.headers.setdefault("X-Frame-Options", "DENY")
+    response.headers.setdefault("Referrer-Policy", "same-origin")
+    return response
+
+
+def _mount_dash(server: Flask) -> None:
+    import dash
+
+    from webapp import jobs
+    from webapp.ui import shell
+
+    app = dash.Dash(
+        __name__,
+        server=server,
+        use_pages=True,
+        pages_folder=str(PACKAGE / "pages"),
+        assets_folder=str(PACKAGE / "assets"),
+        url_base_pathname="/",
+        suppress_callback_exceptions=True,
+        background_callback_manager=jobs.make_manager(server.config),
+        title="LatentDesk",
+        update_title=None,
+    )
+    app.layout = shell.layout
+    # Dash copies callbacks declared with ``dash.callback`` into the first app
+    # that serves a request. Doing that now keeps each app built by
+    # ``create_app`` complete even when a process builds several (tests).
+    with server.test_request_context("/"):
+        app._setup_server()
+    server.extensions[DASH_KEY] = app
+
+
+def create_app(config: Mapping[str, Any] | None = None) -> Flask:
+    """Build the app from defaults, the home folder, LATENTDESK_* and ``config``.
+
+    Raises webapp.config.ConfigError when a setting is unusable or the secret
+    key is missing outside demo mode.
+    """
+    from webapp import auth, store
+
+    settings = load_config(config)
+    Path(settings["HOME"]).mkdir(parents=True, exist_ok=True)
+    server = Flask(__name__, instance_path=settings["HOME"], static_folder=None)
+    server.config.update(settings)
+    # A page upload travels base64-encoded inside a callback (4/3 of the bytes).
+    server.config["MAX_CONTENT_LENGTH"] = settings["MAX_UPLOAD_MB"] * 1024**2 * 3 // 2 + 1024**2
+    if settings["PROXY_HOPS"]:
+        hops = settings["PROXY_HOPS"]
+        server.wsgi_app = ProxyFix(server.wsgi_app, x_for=hops, x_proto=hops, x_host=hops)
+
+    store.init_app(server)
+    auth.init_app(server)
+    _register_blueprints(server)
+    server.after_request(_security_headers)
+    _mount_dash(server)
+    return server

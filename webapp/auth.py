@@ -1,0 +1,431 @@
+"""Who is asking and what they may do: sessions, passwords, roles, lockout, tokens.
+
+- Browser sessions: flask-login with strong session protection; cookies are
+  HttpOnly, SameSite=Lax, and Secure when ``SECURE_COOKIES`` is on.
+- Passwords: scrypt (RFC 7914) through werkzeug's ``generate_password_hash``.
+- Lockout: after ``LOCKOUT_ATTEMPTS`` failures an account is locked for
+  ``LOCKOUT_MINUTES``; a client address with ``ADDRESS_LOCKOUT_ATTEMPTS``
+  failures inside that window is refused too. Both live in the database, so
+  every gunicorn worker sees them.
+- API tokens: ``Authorization: Bearer <token>``; shown once, stored as SHA-256,
+  revocable.
+- Roles: viewer < analyst < reviewer < admin. ``authorize`` is the one place
+  that decides between 401, 403 and 404.
+
+References: OWASP Authentication and Session Management Cheat Sheets;
+flask-login documentation (session protection, ``next`` validation).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import hmac
+import secrets
+from dataclasses import dataclass
+from datetime import timedelta
+from functools import wraps
+from typing import Callable
+from urllib.parse import urlsplit
+
+from flask import Flask, abort, current_app, g, jsonify, make_response, redirect, request, session, url_for
+from flask_login import LoginManager, UserMixin, current_user
+from werkzeug.exceptions import HTTPException
+from werkzeug.security import check_password_hash, generate_password_hash
+
+from webapp.store import accounts, session_scope, utcnow
+from webapp.store.tables import ROLES
+
+ROLE_RANK = {role: rank for rank, role in enumerate(ROLES)}
+TOKEN_PREFIX = "ldt_"
+MIN_PASSWORD_LENGTH = 10
+LOGIN_PATH = "/-/login"
+LOGOUT_PATH = "/-/logout"
+# Paths served without a session: the sign-in form, health check and styles.
+PUBLIC_PATHS = (LOGIN_PATH, "/health")
+PUBLIC_PREFIXES = ("/assets/",)
+# Requests answered with JSON (401/403 bodies) instead of a redirect or page.
+JSON_PREFIXES = ("/api/", "/_dash-", "/_reload-hash", "/_alive_")
+CSRF_SESSION_KEY = "csrf_token"
+_DUMMY_HASH = generate_password_hash("not-a-real-password-" + "x" * 8, method="scrypt")
+
+login_manager = LoginManager()
+login_manager.session_protection = "strong"
+login_manager.login_view = "auth.login"
+
+
+@dataclass(frozen=True)
+class CurrentUser(UserMixin):
+    """The signed-in user as the request sees it (a detached copy of the row)."""
+
+    id: int
+    name: str
+    display_name: str
+    role: str
+
+    def get_id(self) -> str:
+        return str(self.id)
+
+    def has_role(self, role: str) -> bool:
+        return has_role(self.role, role)
+
+
+def has_role(user_or_role, needed: str) -> bool:
+    """True when a user (or a role name) ranks at least ``needed`` (admin has every right)."""
+    actual = getattr(user_or_role, "role", user_or_role)
+    return ROLE_RANK[actual] >= ROLE_RANK[needed]
+
+
+def api_user() -> CurrentUser | None:
+    """The user behind this request (session or bearer token), or None."""
+    return current_user._get_current_object() if current_user.is_authenticated else None
+
+
+def _from_row(row) -> CurrentUser:
+    return CurrentUser(id=row.id, name=row.name, display_name=row.display_name, role=row.role)
+
+
+# -- passwords -------------------------------------------------------------
+
+def hash_password(password: str) -> str:
+    """scrypt hash with a random salt (werkzeug: n=2**15, r=8, p=1)."""
+    return generate_password_hash(password, method="scrypt")
+
+
+def verify_password(password_hash: str, password: str) -> bool:
+    return check_password_hash(password_hash, password)
+
+
+def check_new_password(password: str) -> None:
+    from analysis.errors import InputError
+
+    if len(password) < MIN_PASSWORD_LENGTH:
+        raise InputError(f"password too short: at least {MIN_PASSWORD_LENGTH} characters needed")
+
+
+def generate_password() -> str:
+    return secrets.token_urlsafe(12)
+
+
+# -- API tokens ------------------------------------------------------------
+
+def token_hash(token: str) -> str:
+    return hashlib.sha256(token.encode("utf-8")).hexdigest()
+
+
+def create_token(session_, user_id: int, label: str = "") -> str:
+    """Store a new token for ``user_id`` (hashed) and return it; it is never shown again."""
+    token = TOKEN_PREFIX + secrets.token_urlsafe(32)
+    accounts.add_token(session_, user_id, token_hash(token), label)
+    return token
+
+
+def verify_token(session_, token: str) -> CurrentUser | None:
+    """The active user owning a live token, or None."""
+    row = accounts.find_token(session_, token_hash(token))
+    if row is None or row.revoked_at is not None:
+        return None
+    user = accounts.get_user(session_, row.user_id)
+    if user is None or not user.active:
+        return None
+    accounts.touch_token(session_, row.id)
+    return _from_row(user)
+
+
+def _bearer_token() -> str | None:
+    header = request.headers.get("Authorization", "")
+    scheme, _, value = header.partition(" ")
+    if scheme.lower() == "bearer" and value.strip():
+        return value.strip()
+    return None
+
+
+@login_manager.user_loader
+def _load_user(user_id: str) -> CurrentUser | None:
+    try:
+        key = int(user_id)
+    except (TypeError, ValueError):
+        return None
+    with session_scope() as s:
+        row = accounts.get_user(s, key)
+        return _from_row(row) if row is not None and row.active else None
+
+
+@login_manager.request_loader
+def _load_user_from_token(req) -> CurrentUser | None:
+    token = _bearer_token()
+    if token is None:
+        return None
+    with session_scope() as s:
+        user = verify_token(s, token)
+    if user is not None:
+        g.auth_via = "token"
+    return user
+
+
+# -- login, lockout --------------------------------------------------------
+
+def client_address() -> str:
+    return request.remote_addr or "unknown"
+
+
+class LoginRefused(Exception):
+    """Sign-in refused; the message is safe to show."""
+
+
+LOCKED_MESSAGE = "Too many failed sign-ins. Try again in {minutes} minutes."
+BAD_CREDENTIALS = "Unknown user name or wrong password."
+
+
+def attempt_login(name: str, password: str, address: str) -> CurrentUser:
+    """Check a sign-in against the password and both lockouts; records the attempt."""
+    cfg = current_app.config
+    window = timedelta(minutes=cfg["LOCKOUT_MINUTES"])
+    now = utcnow()
+    with session_scope() as s:
+        if accounts.failed_attempts_from(s, address, now - window) >= cfg["ADDRESS_LOCKOUT_ATTEMPTS"]:
+            accounts.record_login_attempt(s, name, address, ok=False)
+            raise LoginRefused(LOCKED_MESSAGE.format(minutes=cfg["LOCKOUT_MINUTES"]))
+        row = accounts.get_user_by_name(s, name)
+        # Hash even for unknown names so timing does not reveal which names exist.
+        ok = verify_password(row.password_hash if row else _DUMMY_HASH, password)
+        if row is not None and row.locked_until is not None and row.locked_until > now:
+            accounts.record_login_attempt(s, name, address, ok=False)
+            raise LoginRefused(LOCKED_MESSAGE.format(minutes=cfg["LOCKOUT_MINUTES"]))
+        if row is None or not row.active or not ok:
+            accounts.record_login_attempt(s, name, address, ok=False)
+            if row is not None:
+                if accounts.count_failed_login(s, row.id) >= cfg["LOCKOUT_ATTEMPTS"]:
+                    accounts.lock_user(s, row.id, now + window)
+            raise LoginRefused(BAD_CREDENTIALS)
+        accounts.record_login_attempt(s, name, address, ok=True)
+        accounts.clear_failed_logins(s, row.id)
+        return _from_row(row)
+
+
+def check_password_again(user_id: int, password: str) -> bool:
+    """Re-ask the signed-in user's password (sign-offs); failures count toward lockout."""
+    with session_scope() as s:
+        row = accounts.get_user(s, user_id)
+        if row is None or not row.active:
+            return False
+        if row.locked_until is not None and row.locked_until > utcnow():
+            return False
+        if verify_password(row.password_hash, password):
+            return True
+        accounts.record_login_attempt(s, row.name, client_address(), ok=False)
+        if accounts.count_failed_login(s, row.id) >= current_app.config["LOCKOUT_ATTEMPTS"]:
+            accounts.lock_user(
+                s, row.id, utcnow() + timedelta(minutes=current_app.config["LOCKOUT_MINUTES"])
+            )
+        return False
+
+
+def safe_next(target: str | None) -> str:
+    """``target`` when it is a same-site relative path, otherwise ``/``.
+
+    Refuses scheme- or host-bearing URLs, protocol-relative ``//host``,
+    backslashes (browsers read ``/\\host`` as ``//host``) and control characters.
+    """
+    if not target or not target.startswith("/") or target.startswith("//"):
+        return "/"
+    if "\\" in target or any(ord(ch) < 32 or ord(ch) == 127 for ch in target):
+        return "/"
+    parts = urlsplit(target)
+    if parts.scheme or parts.netloc:
+        return "/"
+    return target
+
+
+# -- CSRF for our own forms --------------------------------------------------
+
+def csrf_token() -> str:
+    """The per-session token embedded in our HTML forms."""
+    token = session.get(CSRF_SESSION_KEY)
+    if not token:
+        token = secrets.token_urlsafe(32)
+        session[CSRF_SESSION_KEY] = token
+    return token
+
+
+def csrf_valid(submitted: str | None) -> bool:
+    expected = session.get(CSRF_SESSION_KEY)
+    return bool(expected and submitted and hmac.compare_digest(expected, submitted))
+
+
+# -- 401 / 403 / 404 -------------------------------------------------------
+
+def wants_json() -> bool:
+    return request.path.startswith(JSON_PREFIXES) or _bearer_token() is not None
+
+
+def _json_error(code: str, message: str, status: int):
+    return make_response(jsonify(ok=False, error={"code": code, "message": message}), status)
+
+
+def denial(status: int, message: str | None = None):
+    """The response for a refused request, shaped for who is asking.
+
+    401: JSON for API/Dash/token requests, else a redirect to the sign-in form
+    carrying the current path as ``next``. 403 and 404: JSON or a small page.
+    """
+    texts = {
+        401: ("unauthenticated", "Sign in first."),
+        403: ("forbidden", "Your role does not allow this."),
+        404: ("not_found", "Not found."),
+    }
+    code, default = texts[status]
+    message = message or default
+    if wants_json():
+        response = _json_error(code, message, status)
+        if status == 401:
+            response.headers["WWW-Authenticate"] = 'Bearer realm="latentdesk"'
+        return response
+    if status == 401:
+        target = request.full_path if request.query_string else request.path
+        return redirect(url_for("auth.login", next=safe_next(target)))
+    from webapp.auth_views import error_page
+
+    return error_page(status, message)
+
+
+def authorize(role: str = "viewer", *, found: bool = True, message: str | None = None) -> None:
+    """Abort with 401, 403 or 404, in that order, unless the request may go on.
+
+    Authentication is checked before the role, and the role before existence, so
+    an outsider cannot probe which records exist.
+    """
+    if not current_user.is_authenticated:
+        abort(denial(401))
+    if not has_role(current_user.role, role):
+        abort(denial(403, message))
+    if not found:
+        abort(denial(404, message))
+
+
+def role_required(*roles: str) -> Callable:
+    """Decorator: the view needs at least the lowest of ``roles``.
+
+    ``role_required("analyst")`` admits analysts, reviewers and admins. The
+    needed role is kept on the view as ``min_role`` so tests can list it.
+    """
+    needed = min(roles or ("viewer",), key=ROLE_RANK.__getitem__)
+
+    def decorate(view: Callable) -> Callable:
+        @wraps(view)
+        def guarded(*args, **kwargs):
+            authorize(needed)
+            return view(*args, **kwargs)
+
+        guarded.min_role = needed
+        return guarded
+
+    return decorate
+
+
+api_auth = role_required
+
+
+# -- the request guard ------------------------------------------------------
+
+def _is_public(path: str) -> bool:
+    return path in PUBLIC_PATHS or path.startswith(PUBLIC_PREFIXES)
+
+
+def _page_min_role(path: str) -> str | None:
+    """The ``min_role`` a Dash page declares in ``register_page`` (None: any user).
+
+    Pages opt in with ``dash.register_page(__name__, path=..., min_role="reviewer")``.
+    """
+    import dash
+
+    for page in dash.page_registry.values():
+        role = page.get("min_role")
+        if role is None:
+            continue
+        if page.get("path") == path or _matches_template(page.get("path_template"), path):
+            return role
+    return None
+
+
+def _matches_template(template: str | None, path: str) -> bool:
+    if not template:
+        return False
+    wanted, given = template.strip("/").split("/"), path.strip("/").split("/")
+    return len(wanted) == len(given) and all(
+        w.startswith("<") and w.endswith(">") or w == p for w, p in zip(wanted, given)
+    )
+
+
+def guard_request():
+    """Runs before every request: nothing but the public paths without a user."""
+    if request.method == "OPTIONS" and _is_public(request.path):
+        return None
+    if _bearer_token() is not None and not current_user.is_authenticated:
+        return denial(401, "The API token is unknown, revoked or belongs to a disabled user.")
+    if _is_public(request.path):
+        return None
+    if not current_user.is_authenticated:
+        return denial(401)
+    if request.method not in ("GET", "HEAD", "OPTIONS") and not _same_origin():
+        return denial(403, "Cross-site request refused.")
+    role = _page_min_role(request.path) if request.method == "GET" else None
+    if role is not None and not has_role(current_user.role, role):
+        return denial(403)
+    return None
+
+
+def _same_origin() -> bool:
+    """Browsers send Origin on cross-site POSTs; refuse those that name another host.
+
+    Defence in depth next to SameSite=Lax cookies (OWASP CSRF Prevention Cheat
+    Sheet, "Verifying Origin with standard headers"). Token requests carry no
+    ambient credentials, so they need no such check.
+    """
+    if getattr(g, "auth_via", None) == "token":
+        return True
+    origin = request.headers.get("Origin")
+    if not origin:
+        return True
+    return urlsplit(origin).netloc == request.host
+
+
+def init_app(app: Flask) -> None:
+    cfg = app.config
+    app.config.update(
+        SESSION_COOKIE_NAME="latentdesk_session",
+        SESSION_COOKIE_HTTPONLY=True,
+        SESSION_COOKIE_SAMESITE="Lax",
+        SESSION_COOKIE_SECURE=bool(cfg["SECURE_COOKIES"]),
+        REMEMBER_COOKIE_HTTPONLY=True,
+        REMEMBER_COOKIE_SAMESITE="Lax",
+        REMEMBER_COOKIE_SECURE=bool(cfg["SECURE_COOKIES"]),
+        PERMANENT_SESSION_LIFETIME=timedelta(hours=cfg["SESSION_HOURS"]),
+    )
+    login_manager.init_app(app)
+    app.before_request(guard_request)
+
+    @app.errorhandler(401)
+    def _unauthorized(_exc: HTTPException):
+        return denial(401)
+
+    @app.errorhandler(403)
+    def _forbidden(exc: HTTPException):
+        return denial(403)
+
+    @app.errorhandler(404)
+    def _not_found(exc: HTTPException):
+        return denial(404)
+
+    @app.errorhandler(405)
+    def _method_not_allowed(exc: HTTPException):
+        if wants_json():
+            return _json_error("method_not_allowed", f"{request.method} is not allowed here.", 405)
+        return exc
+
+    @app.errorhandler(413)
+    def _too_large(exc: HTTPException):
+        limit = app.config["MAX_UPLOAD_MB"]
+        message = f"The upload is larger than the limit of {limit} MB."
+        if wants_json():
+            return _json_error("too_large", message, 413)
+        return make_response(message, 413)

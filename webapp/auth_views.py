@@ -1,0 +1,101 @@
+"""The sign-in form and sign-out (plain Flask, so they work without JavaScript).
+
+Both live under the reserved ``/-/`` prefix, which user-named things never use.
+"""
+
+from __future__ import annotations
+
+from flask import Blueprint, make_response, redirect, render_template_string, request, session, url_for
+from flask_login import current_user, login_user, logout_user
+
+from webapp import auth
+
+bp = Blueprint("auth", __name__)
+
+_PAGE = """<!doctype html>
+<html lang="en">
+<head>
+  <meta charset="utf-8">
+  <meta name="viewport" content="width=device-width, initial-scale=1">
+  <title>{{ title }} · LatentDesk</title>
+  <link rel="stylesheet" href="/assets/latentdesk.css">
+</head>
+<body class="ld-plain">
+  <main class="ld-card">
+    <p class="ld-brand">LatentDesk</p>
+    {% block body %}{% endblock %}
+  </main>
+</body>
+</html>"""
+
+_LOGIN = _PAGE.replace("{% block body %}{% endblock %}", """
+    <h1>Sign in</h1>
+    {% if message %}<p class="ld-alert" role="alert">{{ message }}</p>{% endif %}
+    <form method="post" action="{{ action }}" class="ld-form">
+      <input type="hidden" name="csrf_token" value="{{ csrf }}">
+      <input type="hidden" name="next" value="{{ next_path }}">
+      <label for="name">User name</label>
+      <input id="name" name="name" autocomplete="username" required autofocus value="{{ name }}">
+      <label for="password">Password</label>
+      <input id="password" name="password" type="password" autocomplete="current-password" required>
+      <button type="submit" class="ld-button">Sign in</button>
+    </form>
+""")
+
+_ERROR = _PAGE.replace("{% block body %}{% endblock %}", """
+    <h1>{{ title }}</h1>
+    <p>{{ message }}</p>
+    <p><a href="/">Back to the datasets</a></p>
+""")
+
+
+def error_page(status: int, message: str):
+    titles = {403: "Not allowed", 404: "Not found"}
+    html = render_template_string(_ERROR, title=titles.get(status, "Error"), message=message)
+    return make_response(html, status)
+
+
+def _login_form(message: str = "", name: str = "", next_path: str = "/", status: int = 200):
+    html = render_template_string(
+        _LOGIN,
+        title="Sign in",
+        message=message,
+        name=name,
+        next_path=auth.safe_next(next_path),
+        csrf=auth.csrf_token(),
+        action=auth.LOGIN_PATH,
+    )
+    response = make_response(html, status)
+    response.headers["Cache-Control"] = "no-store"
+    return response
+
+
+@bp.route(auth.LOGIN_PATH, methods=["GET", "POST"], endpoint="login")
+def login():
+    next_path = auth.safe_next(request.values.get("next"))
+    if request.method == "GET":
+        if current_user.is_authenticated:
+            return redirect(next_path)
+        return _login_form(next_path=next_path)
+
+    name = (request.form.get("name") or "").strip()
+    if not auth.csrf_valid(request.form.get("csrf_token")):
+        return _login_form("The form expired. Please sign in again.", name, next_path, 400)
+    try:
+        user = auth.attempt_login(name, request.form.get("password") or "", auth.client_address())
+    except auth.LoginRefused as refused:
+        return _login_form(str(refused), name, next_path, 401)
+    session.clear()  # a fresh session on sign-in (no fixation)
+    session.permanent = True
+    login_user(user, fresh=True)
+    auth.csrf_token()
+    return redirect(next_path)
+
+
+@bp.route(auth.LOGOUT_PATH, methods=["POST"], endpoint="logout")
+def logout():
+    if not auth.csrf_valid(request.form.get("csrf_token")):
+        return error_page(400, "The form expired. Reload the page and sign out again.")
+    logout_user()
+    session.clear()
+    return redirect(url_for("auth.login"))

@@ -1,0 +1,153 @@
+"""Configuration: defaults, then the instance file, then LATENTDESK_* variables,
+then the mapping given to ``create_app`` (a test config wins over everything).
+
+Keys are the environment names without the ``LATENTDESK_`` prefix (``HOME``,
+``DATABASE_URL``, ``SECRET_KEY`` ...). The home folder (``LATENTDESK_HOME``) is
+the instance folder: it holds ``latentdesk.db``, ``files/``, ``cache/``, the
+optional ``latentdesk.toml`` (same keys, lower or upper case) and, in demo
+mode, the generated ``secret_key`` file. Every variable is described in
+docs/configuration.md.
+"""
+
+from __future__ import annotations
+
+import os
+import secrets
+import tomllib
+from pathlib import Path
+from typing import Any, Mapping
+
+from analysis.errors import InputError
+
+PREFIX = "LATENTDESK_"
+INSTANCE_FILE = "latentdesk.toml"
+SECRET_KEY_FILE = "secret_key"
+
+# name -> (type, default). Types: str, int, bool; None default means "not set".
+SETTINGS: dict[str, tuple[type, Any]] = {
+    "HOME": (str, "./instance"),
+    "DATABASE_URL": (str, None),
+    "SECRET_KEY": (str, None),
+    "REDIS_URL": (str, None),
+    "MAX_UPLOAD_MB": (int, 200),
+    "DEMO": (bool, False),
+    "SECURE_COOKIES": (bool, False),
+    "SESSION_HOURS": (int, 12),
+    "LOCKOUT_ATTEMPTS": (int, 5),
+    "LOCKOUT_MINUTES": (int, 15),
+    "ADDRESS_LOCKOUT_ATTEMPTS": (int, 20),
+    "PROXY_HOPS": (int, 0),
+    "MIGRATE_ON_START": (bool, True),
+}
+
+
+class ConfigError(InputError):
+    """A setting is missing or has a value we cannot use; the message names it."""
+
+
+def _parse(name: str, kind: type, value: Any, source: str) -> Any:
+    if value is None or kind is str and isinstance(value, str):
+        return value
+    if kind is bool:
+        if isinstance(value, bool):
+            return value
+        text = str(value).strip().lower()
+        if text in {"1", "true", "yes", "on"}:
+            return True
+        if text in {"0", "false", "no", "off", ""}:
+            return False
+        raise ConfigError(f"{source}: {name} must be true or false, got {value!r}")
+    if kind is int:
+        try:
+            number = int(str(value).strip()) if not isinstance(value, int) else value
+        except ValueError:
+            raise ConfigError(f"{source}: {name} must be a whole number, got {value!r}") from None
+        if number < 0:
+            raise ConfigError(f"{source}: {name} must not be negative, got {number}")
+        return number
+    return str(value)
+
+
+def _from_mapping(data: Mapping[str, Any], source: str, strip_prefix: bool) -> dict[str, Any]:
+    found: dict[str, Any] = {}
+    for key, value in data.items():
+        name = key.upper()
+        if strip_prefix:
+            if not name.startswith(PREFIX):
+                continue
+            name = name[len(PREFIX):]
+        elif name.startswith(PREFIX):
+            name = name[len(PREFIX):]
+        if name in SETTINGS:
+            found[name] = _parse(name, SETTINGS[name][0], value, source)
+        elif not strip_prefix:
+            found[key] = value  # Flask's own keys (TESTING, ...) pass through
+    return found
+
+
+def _instance_file(home: Path) -> dict[str, Any]:
+    path = home / INSTANCE_FILE
+    if not path.is_file():
+        return {}
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"{path}: not valid TOML ({exc})") from None
+    unknown = sorted(k for k in data if k.upper().removeprefix(PREFIX) not in SETTINGS)
+    if unknown:
+        raise ConfigError(f"{path}: unknown setting(s) {', '.join(unknown)}")
+    return _from_mapping(data, str(path), strip_prefix=False)
+
+
+def demo_secret_key(home: Path) -> str:
+    """The demo's secret key: read from ``HOME/secret_key``, created on first use."""
+    path = home / SECRET_KEY_FILE
+    if path.is_file():
+        return path.read_text(encoding="utf-8").strip()
+    home.mkdir(parents=True, exist_ok=True)
+    key = secrets.token_hex(32)
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+    with os.fdopen(fd, "w", encoding="utf-8") as handle:
+        handle.write(key + "\n")
+    return key
+
+
+def load_config(
+    overrides: Mapping[str, Any] | None = None,
+    *,
+    environ: Mapping[str, str] | None = None,
+    require_secret: bool = True,
+) -> dict[str, Any]:
+    """Merge defaults, the instance file, the environment and ``overrides``.
+
+    Raises ConfigError naming the setting when a value is unusable, or when no
+    secret key is configured outside demo mode (and ``require_secret``).
+    """
+    environ = os.environ if environ is None else environ
+    from_env = _from_mapping(environ, "environment", strip_prefix=True)
+    given = _from_mapping(overrides or {}, "config", strip_prefix=False)
+
+    config = {name: default for name, (_, default) in SETTINGS.items()}
+    home = Path(given.get("HOME") or from_env.get("HOME") or config["HOME"])
+    config.update(_instance_file(home))
+    config.update(from_env)
+    config.update(given)
+    config["HOME"] = str(home.resolve())
+
+    if not config["SECRET_KEY"]:
+        key_file = Path(config["HOME"]) / SECRET_KEY_FILE
+        if config["DEMO"]:
+            config["SECRET_KEY"] = demo_secret_key(Path(config["HOME"]))
+        elif key_file.is_file():
+            config["SECRET_KEY"] = key_file.read_text(encoding="utf-8").strip()
+        elif require_secret:
+            raise ConfigError(
+                "LATENTDESK_SECRET_KEY is not set: give a long random value (for example "
+                "`python -c 'import secrets; print(secrets.token_hex(32))'`), or run "
+                "`latentdesk demo` for a local trial"
+            )
+    if config["MAX_UPLOAD_MB"] < 1:
+        raise ConfigError("MAX_UPLOAD_MB must be at least 1")
+    if config["LOCKOUT_ATTEMPTS"] < 1 or config["ADDRESS_LOCKOUT_ATTEMPTS"] < 1:
+        raise ConfigError("LOCKOUT_ATTEMPTS and ADDRESS_LOCKOUT_ATTEMPTS must be at least 1")
+    return config

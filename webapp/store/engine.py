@@ -1,0 +1,125 @@
+"""Engines, sessions and schema migration.
+
+SQLite (the default, ``HOME/latentdesk.db``) runs in WAL mode with foreign keys
+on and a busy timeout, so several gunicorn workers can share it. PostgreSQL is
+used when ``DATABASE_URL`` names it. The schema is created and upgraded only by
+Alembic (``webapp/migrations``), at start-up.
+"""
+
+from __future__ import annotations
+
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any, Iterator, Mapping
+
+from sqlalchemy import Engine, create_engine, event
+from sqlalchemy.orm import Session, sessionmaker
+
+ENGINE_KEY = "latentdesk.engine"
+SESSIONMAKER_KEY = "latentdesk.sessionmaker"
+MIGRATIONS = Path(__file__).resolve().parent.parent / "migrations"
+
+
+def database_url(config: Mapping[str, Any]) -> str:
+    """The configured database URL, or SQLite in the home folder."""
+    url = config.get("DATABASE_URL")
+    if url:
+        return str(url)
+    return f"sqlite:///{Path(config['HOME']).resolve() / 'latentdesk.db'}"
+
+
+def _sqlite_pragmas(dbapi_connection, _record) -> None:
+    cursor = dbapi_connection.cursor()
+    cursor.execute("PRAGMA journal_mode=WAL")
+    cursor.execute("PRAGMA foreign_keys=ON")
+    cursor.execute("PRAGMA busy_timeout=30000")
+    cursor.close()
+
+
+def make_engine(url: str) -> Engine:
+    """A new engine for ``url`` with the per-connection settings LatentDesk needs."""
+    if url.startswith("sqlite"):
+        engine = create_engine(url, connect_args={"timeout": 30})
+        event.listen(engine, "connect", _sqlite_pragmas)
+        return engine
+    return create_engine(url, pool_pre_ping=True)
+
+
+def get_engine(app_or_url) -> Engine:
+    """The app's engine (a Flask app made by ``create_app``) or a new one for a URL."""
+    if isinstance(app_or_url, str):
+        return make_engine(app_or_url)
+    return app_or_url.extensions[ENGINE_KEY]
+
+
+def _alembic_config(connection):
+    from alembic.config import Config
+
+    cfg = Config()
+    cfg.set_main_option("script_location", str(MIGRATIONS))
+    cfg.attributes["connection"] = connection
+    return cfg
+
+
+def migrate(engine: Engine) -> None:
+    """Upgrade the database to the newest schema (no-op when already there)."""
+    from alembic import command
+
+    with engine.begin() as connection:
+        if connection.dialect.name == "postgresql":
+            # Several workers may start at once: one migrates, the others wait.
+            connection.exec_driver_sql("SELECT pg_advisory_xact_lock(74657321)")
+        command.upgrade(_alembic_config(connection), "head")
+
+
+def current_revision(engine: Engine) -> str | None:
+    """The Alembic revision the database is at (None before the first migration)."""
+    from alembic.runtime.migration import MigrationContext
+
+    with engine.connect() as connection:
+        return MigrationContext.configure(connection).get_current_revision()
+
+
+def init_app(app) -> None:
+    """Bind an engine and a session factory to ``app`` and migrate the schema."""
+    engine = make_engine(database_url(app.config))
+    if app.config.get("MIGRATE_ON_START", True):
+        migrate(engine)
+    app.extensions[ENGINE_KEY] = engine
+    app.extensions[SESSIONMAKER_KEY] = sessionmaker(engine, expire_on_commit=False)
+
+
+@contextmanager
+def session_scope(app=None) -> Iterator[Session]:
+    """A session that commits on success and rolls back on error.
+
+    ``app`` defaults to the Flask app of the current application context.
+    """
+    if app is None:
+        from flask import current_app
+
+        app = current_app
+    factory = app.extensions[SESSIONMAKER_KEY]
+    session = factory()
+    try:
+        yield session
+        session.commit()
+    except BaseException:
+        session.rollback()
+        raise
+    finally:
+        session.close()
+
+
+@contextmanager
+def engine_session(engine: Engine) -> Iterator[Session]:
+    """Like ``session_scope`` but for a bare engine (CLI, tests)."""
+    session = Session(engine, expire_on_commit=False)
+    try:
+        yield session
+        session.commit()
+    except BaseException:
+        session.rollback()
+        raise
+    finally:
+        session.close()

@@ -1,0 +1,194 @@
+"""Every LatentDesk table (SQLAlchemy 2 declarative mapping).
+
+The schema is changed only through Alembic migrations in ``webapp/migrations``;
+this module is the source the migrations are written against.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Any
+
+from sqlalchemy import (
+    JSON,
+    Boolean,
+    CheckConstraint,
+    ForeignKey,
+    Integer,
+    MetaData,
+    String,
+    Text,
+    BigInteger,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+from webapp.store.types import UTCDateTime, utcnow
+
+ROLES = ("viewer", "analyst", "reviewer", "admin")
+PROPOSAL_ACTIONS = ("exclude", "reinstate")
+PROPOSAL_STATES = ("proposed", "approved", "rejected", "withdrawn")
+SIGN_OFF_MEANINGS = ("approved", "rejected")
+
+# Deterministic constraint names so migrations can refer to them on every engine.
+NAMING = {
+    "ix": "ix_%(column_0_label)s",
+    "uq": "uq_%(table_name)s_%(column_0_name)s",
+    "ck": "ck_%(table_name)s_%(constraint_name)s",
+    "fk": "fk_%(table_name)s_%(column_0_name)s_%(referred_table_name)s",
+    "pk": "pk_%(table_name)s",
+}
+
+
+def _in(column: str, values: tuple[str, ...]) -> str:
+    return f"{column} IN ({', '.join(repr(v) for v in values)})"
+
+
+class Base(DeclarativeBase):
+    metadata = MetaData(naming_convention=NAMING)
+    type_annotation_map = {datetime: UTCDateTime(), dict[str, Any]: JSON, list[Any]: JSON}
+
+
+class User(Base):
+    __tablename__ = "users"
+    __table_args__ = (CheckConstraint(_in("role", ROLES), name="role"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(String(80), unique=True)
+    display_name: Mapped[str] = mapped_column(String(200))
+    role: Mapped[str] = mapped_column(String(16))
+    password_hash: Mapped[str] = mapped_column(String(256))
+    active: Mapped[bool] = mapped_column(Boolean, default=True)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    failed_logins: Mapped[int] = mapped_column(Integer, default=0)
+    locked_until: Mapped[datetime | None] = mapped_column(nullable=True)
+
+
+class LoginAttempt(Base):
+    __tablename__ = "login_attempts"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(String(200), index=True)
+    client_addr: Mapped[str] = mapped_column(String(64), index=True)
+    ok: Mapped[bool] = mapped_column(Boolean)
+    at: Mapped[datetime] = mapped_column(default=utcnow, index=True)
+
+
+class ApiToken(Base):
+    __tablename__ = "api_tokens"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id"), index=True)
+    token_hash: Mapped[str] = mapped_column(String(64), unique=True)
+    label: Mapped[str] = mapped_column(String(200), default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    revoked_at: Mapped[datetime | None] = mapped_column(nullable=True)
+    last_used_at: Mapped[datetime | None] = mapped_column(nullable=True)
+
+
+class Dataset(Base):
+    __tablename__ = "datasets"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    sha256: Mapped[str] = mapped_column(String(64), index=True)
+    name: Mapped[str] = mapped_column(String(500))
+    stored_path: Mapped[str] = mapped_column(String(200))
+    size_bytes: Mapped[int] = mapped_column(BigInteger)
+    id_column: Mapped[str | None] = mapped_column(String(500), nullable=True)
+    sheet: Mapped[str | None] = mapped_column(String(500), nullable=True)
+    intake_options: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    n_samples: Mapped[int] = mapped_column(Integer)
+    n_variables: Mapped[int] = mapped_column(Integer)
+    variables: Mapped[list[Any]] = mapped_column(default=list)
+    metadata_columns: Mapped[list[Any]] = mapped_column(default=list)
+    warnings: Mapped[list[Any]] = mapped_column(default=list)
+    report: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    uploaded_by: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class Model(Base):
+    __tablename__ = "models"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    dataset_id: Mapped[int] = mapped_column(ForeignKey("datasets.id"), index=True)
+    fingerprint: Mapped[str] = mapped_column(String(64), unique=True)
+    settings: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    summary: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    created_by: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class ExclusionProposal(Base):
+    __tablename__ = "exclusion_proposals"
+    __table_args__ = (
+        CheckConstraint(_in("action", PROPOSAL_ACTIONS), name="action"),
+        CheckConstraint(_in("state", PROPOSAL_STATES), name="state"),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    dataset_id: Mapped[int] = mapped_column(ForeignKey("datasets.id"), index=True)
+    action: Mapped[str] = mapped_column(String(16), default="exclude")
+    samples: Mapped[list[Any]] = mapped_column(default=list)
+    reason_category: Mapped[str] = mapped_column(String(64))
+    reason: Mapped[str] = mapped_column(Text)
+    proposed_by: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    state: Mapped[str] = mapped_column(String(16), default="proposed", index=True)
+    decided_at: Mapped[datetime | None] = mapped_column(nullable=True)
+    comparison: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
+
+
+class SignOff(Base):
+    __tablename__ = "sign_offs"
+    __table_args__ = (CheckConstraint(_in("meaning", SIGN_OFF_MEANINGS), name="meaning"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    # UNIQUE: one decision per proposal, enforced by the database itself.
+    proposal_id: Mapped[int] = mapped_column(ForeignKey("exclusion_proposals.id"), unique=True)
+    signer_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    printed_name: Mapped[str] = mapped_column(String(200))
+    meaning: Mapped[str] = mapped_column(String(16))
+    comment: Mapped[str] = mapped_column(Text, default="")
+    signed_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class ReviewLogEntry(Base):
+    __tablename__ = "review_log"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    seq: Mapped[int] = mapped_column(Integer, unique=True)
+    dataset_id: Mapped[int | None] = mapped_column(
+        ForeignKey("datasets.id"), nullable=True, index=True
+    )
+    at: Mapped[datetime] = mapped_column(default=utcnow)
+    actor_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"), nullable=True)
+    actor_name: Mapped[str] = mapped_column(String(200))
+    action: Mapped[str] = mapped_column(String(64))
+    payload: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    prev_hash: Mapped[str] = mapped_column(String(64))
+    hash: Mapped[str] = mapped_column(String(64))
+
+
+class SavedView(Base):
+    __tablename__ = "saved_views"
+
+    id: Mapped[str] = mapped_column(String(64), primary_key=True)
+    dataset_id: Mapped[int] = mapped_column(ForeignKey("datasets.id"), index=True)
+    title: Mapped[str] = mapped_column(String(300))
+    note: Mapped[str] = mapped_column(Text, default="")
+    state: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    model_fingerprint: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    excluded: Mapped[list[Any]] = mapped_column(default=list)
+    created_by: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class ReviewLogHead(Base):
+    """One row: the last review-log entry's seq and hash (catches entries removed at the end)."""
+
+    __tablename__ = "review_log_head"
+    __table_args__ = (CheckConstraint("id = 1", name="single_row"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    seq: Mapped[int] = mapped_column(Integer)
+    hash: Mapped[str] = mapped_column(String(64))
