@@ -55,6 +55,8 @@ from analysis.preprocessing import (
 SOLVERS = ("auto", "xtx", "xxt", "svd")
 IMPUTATION_TOL = 1e-20  # squared change of imputed cells per round, relative to the total sum of squares
 IMPUTATION_MAX_ITER = 5000
+SIGN_TIE = 1e-9  # loading magnitudes closer than this are tied for the sign convention
+RANK_RTOL_FACTOR = 10.0  # eigenvalues below lambda_max * 10 * max(n, p) * eps are rounding noise
 
 
 class PCAModel:
@@ -430,21 +432,29 @@ def _decompose_full(z: np.ndarray, solver: str) -> _Decomposition:
 
 
 def _numerical_rank(eigenvalues: np.ndarray, n: int, p: int, centred: bool) -> int:
-    """Components above rounding level: lambda > lambda_max * max(n, p) * eps.
+    """Components above rounding level: lambda > lambda_max * 10 * max(n, p) * eps.
 
-    The Gram-matrix solvers resolve eigenvalues only to about eps * lambda_max,
-    so the same tolerance is used on every solver to give the same count.
+    The Gram-matrix solvers resolve eigenvalues only to a few times
+    eps * lambda_max, so the same tolerance is used on every solver to give
+    the same count (common practice; cf. numpy.linalg.matrix_rank).
     """
     if eigenvalues.size == 0 or eigenvalues[0] <= 0:
         return 0
-    tol = eigenvalues[0] * max(n, p) * np.finfo(float).eps
+    tol = eigenvalues[0] * RANK_RTOL_FACTOR * max(n, p) * np.finfo(float).eps
     rank = int(np.sum(eigenvalues > tol))
     return min(rank, n - 1 if centred else n, p)
 
 
 def _sign_convention(loadings: np.ndarray) -> np.ndarray:
-    """Flip each loading vector so that its largest-magnitude element is positive."""
-    idx = np.argmax(np.abs(loadings), axis=0)
+    """Flip each loading vector so that its largest-magnitude element is positive.
+
+    Elements within SIGN_TIE of the largest magnitude count as tied and the
+    first of them decides, so rounding differences between solvers cannot
+    change the choice (e.g. the exact ties of two autoscaled variables).
+    """
+    magnitude = np.abs(loadings)
+    tied = magnitude >= magnitude.max(axis=0) - SIGN_TIE
+    idx = np.argmax(tied, axis=0)
     signs = np.sign(loadings[idx, np.arange(loadings.shape[1])])
     signs[signs == 0] = 1.0
     return loadings * signs
