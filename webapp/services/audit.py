@@ -169,3 +169,94 @@ def verify_entries(
     elif head is not None and count > 0:
         return False, 1, f"the chain head records no entries, the log holds {count}"
     return True, None, f"intact: {count} entries"
+
+
+# --- the stored chain ---------------------------------------------------------------------
+
+
+def append(
+    session,
+    *,
+    actor_id: int | None,
+    actor_name: str,
+    action: str,
+    dataset_id: int | None = None,
+    payload: Mapping[str, Any] | None = None,
+):
+    """Append one entry to the review log inside the caller's transaction.
+
+    Takes the review write lock first (a no-op when the caller already holds
+    it), so the seq and prev_hash read here cannot be taken by anyone else
+    before this transaction commits.  Returns the new ``ReviewLogEntry`` row.
+    """
+    from webapp.store import review as store
+
+    store.lock_review(session)
+    head = store.chain_head(session)
+    if head is None:
+        raise RuntimeError("the review log has no chain head row; run the database migrations")
+    seq, prev_hash = head.seq + 1, head.hash
+    at = now_utc()
+    body = json_safe(dict(payload or {}))
+    digest = entry_hash(
+        seq=seq,
+        at=at,
+        actor=actor_of(actor_id, actor_name),
+        action=action,
+        dataset_id=dataset_id,
+        payload=body,
+        prev_hash=prev_hash,
+    )
+    row = store.insert_log_entry(
+        session,
+        seq=seq,
+        dataset_id=dataset_id,
+        at=at,
+        actor_id=actor_id,
+        actor_name=actor_name,
+        action=action,
+        payload=body,
+        prev_hash=prev_hash,
+        hash=digest,
+    )
+    if not store.move_chain_head(session, head.seq, seq, digest):
+        raise ChainMoved(f"the review log head moved while entry {seq} was being written")
+    return row
+
+
+class ChainMoved(RuntimeError):
+    """Another writer appended first; the caller's transaction is rolled back and retried."""
+
+
+def entry_dict(row) -> dict[str, Any]:
+    """A stored log entry as plain data (what ``verify_entries`` and the API read)."""
+    return {
+        "seq": row.seq,
+        "at": utc_iso(row.at),
+        "actor_id": row.actor_id,
+        "actor_name": row.actor_name,
+        "action": row.action,
+        "dataset_id": row.dataset_id,
+        "payload": row.payload,
+        "prev_hash": row.prev_hash,
+        "hash": row.hash,
+    }
+
+
+def verify_chain(session) -> tuple[bool, int | None, str]:
+    """Recompute the whole stored chain: ``(ok, first_broken_seq, reason)``."""
+    from webapp.store import review as store
+
+    head = store.chain_head(session)
+    if head is None:
+        return False, None, "the chain head row is missing (it was deleted outside the app)"
+    recorded = {"seq": head.seq, "hash": head.hash}
+    return verify_entries((entry_dict(row) for row in store.iter_log(session)), recorded)
+
+
+def chain_head_summary(session) -> dict[str, Any]:
+    """The last entry's seq and hash: print it somewhere outside the database to anchor the log."""
+    from webapp.store import review as store
+
+    head = store.chain_head(session)
+    return {"seq": head.seq, "hash": head.hash} if head is not None else {"seq": None, "hash": None}
