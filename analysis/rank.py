@@ -1,0 +1,557 @@
+"""Choosing the number of principal components.
+
+Three published rules are computed side by side, one table row per component
+count, and one of them decides the recommendation:
+
+* Cross-validated explained variance by element-wise k-fold cross-validation
+  ("ekf"): rows are left out in folds, a PCA is fitted on the remaining rows,
+  and every cell of a left-out row is predicted from the *other* cells of that
+  row (least-squares scores on the loadings without that variable), so no
+  value ever helps to predict itself. The scheme goes back to Eastment &
+  Krzanowski (1982); this element-wise form is the one reviewed and
+  recommended by Bro, Kjeldahl, Smilde & Kiers (2008). For a row with
+  loadings P and residual e_j of its full least-squares projection, the
+  leave-one-cell-out residual is e_j / (1 - h_j), h_j the j-th diagonal
+  element of the projection (hat) matrix of the row's observed loadings,
+  the usual leave-one-out identity of least squares.
+* Parallel analysis (Horn 1965): a component is worth keeping while its
+  eigenvalue exceeds the 95th percentile of the same eigenvalue of seeded
+  random normal data of the same shape, preprocessed the same way.
+* Broken stick (Jackson 1993): the expected share of component k among p if
+  the total variance were split at random, (1/p) * sum_{i=k..p} 1/i.
+
+Recommendation: the cross-validation rule, "keep adding components while each
+raises the cross-validated explained variance by at least one percentage
+point"; when cross-validation is impossible (too few rows or variables), the
+parallel-analysis count.
+
+References
+----------
+Wold, H. (1966) Estimation of principal components and related models by
+iterative least squares. In Krishnaiah, P.R. (ed.) Multivariate Analysis,
+Academic Press, 391-420.
+Nelson, P.R.C., Taylor, P.A., MacGregor, J.F. (1996) Missing data methods in
+PCA and PLS: score calculations with incomplete observations. Chemometrics and
+Intelligent Laboratory Systems 35, 45-65.
+Eastment, H.T., Krzanowski, W.J. (1982) Cross-validatory choice of the number
+of components from a principal component analysis. Technometrics 24, 73-77.
+Bro, R., Kjeldahl, K., Smilde, A.K., Kiers, H.A.L. (2008) Cross-validation of
+component models: a critical look at current methods. Analytical and
+Bioanalytical Chemistry 390, 1241-1251.
+Horn, J.L. (1965) A rationale and test for the number of factors in factor
+analysis. Psychometrika 30, 179-185.
+Jackson, D.A. (1993) Stopping rules in principal components analysis: a
+comparison of heuristical and statistical approaches. Ecology 74(8), 2204-2214.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from analysis.errors import InputError
+from analysis.preprocessing import Preprocessor, as_matrix, scale_block
+
+MAX_COMPONENTS = 20
+MAX_FOLDS = 7
+CV_MAX_ROWS = 2000
+CV_MIN_GAIN = 0.01
+PA_QUANTILE = 95.0
+PA_MIN_SIMULATIONS, PA_MAX_SIMULATIONS = 20, 100
+PA_WORK_BUDGET = 2e10  # floating-point operations spent on random eigenvalues, at most
+NIPALS_TOL, NIPALS_MAX_ITER = 1e-10, 500
+_CHUNK_ROWS = 8192
+
+TABLE_COLUMNS = [
+    "components",
+    "eigenvalue",
+    "explained",
+    "cumulative",
+    "cv_explained",
+    "parallel_threshold",
+    "broken_stick",
+]
+
+
+@dataclass(frozen=True)
+class RankResult:
+    """The component-count table and the recommendation.
+
+    Attributes
+    ----------
+    table : pandas.DataFrame
+        One row per component count a = 1..A with columns ``components``,
+        ``eigenvalue`` (lambda_a = t_a't_a/(n-1)), ``explained`` (share of the
+        total variance), ``cumulative``, ``cv_explained`` (cumulative
+        cross-validated explained variance, NaN where not computed),
+        ``parallel_threshold`` (95th percentile of the a-th random eigenvalue)
+        and ``broken_stick`` (expected share of component a).
+    recommended : int
+        Recommended number of components (at least 1).
+    rule : str
+        The rule that decided, in plain words.
+    method : str
+        ``"cross-validation"`` or ``"parallel analysis"``.
+    notes : list of str
+        How the table was computed where it departs from the plain definition
+        (row subsampling, capped counts, skipped rows).
+    """
+
+    table: pd.DataFrame
+    recommended: int
+    rule: str
+    method: str
+    notes: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        """JSON-safe dict: ``table`` as a list of row dicts (NaN -> None)."""
+        rows = []
+        for record in self.table.to_dict(orient="records"):
+            rows.append(
+                {
+                    key: (int(value) if key == "components" else _finite_or_none(value))
+                    for key, value in record.items()
+                }
+            )
+        return {
+            "table": rows,
+            "recommended": int(self.recommended),
+            "rule": self.rule,
+            "method": self.method,
+            "notes": list(self.notes),
+        }
+
+
+def _finite_or_none(value):
+    value = float(value)
+    return value if math.isfinite(value) else None
+
+
+def choose_components(
+    X, scaling="autoscale", log10=(), max_components=None, random_state=0
+) -> RankResult:
+    """Table of component-count rules and a recommended number of components.
+
+    Parameters
+    ----------
+    X : ndarray or DataFrame of shape (n_samples, n_variables)
+        Raw data, NaN allowed; preprocessed exactly as ``PCAModel`` would.
+    scaling, log10 :
+        As for ``analysis.pca.PCAModel``.
+    max_components : int or None
+        Largest component count in the table; default and upper cap 20,
+        further capped by what the data allow.
+    random_state : int
+        Seed for fold assignment, row subsampling and the random data of
+        parallel analysis; equal seeds give equal tables.
+
+    Returns
+    -------
+    RankResult
+
+    Missing values: eigenvalue-based columns use the preprocessed data with
+    missing cells replaced by their column mean; cross-validation never
+    predicts or counts a missing cell.
+    """
+    limit = _check_max_components(max_components)
+    Z = _preprocess(X, scaling, log10)
+    return rank_table(Z, scaling, limit, random_state)
+
+
+def _check_max_components(max_components) -> int:
+    if max_components is None:
+        return MAX_COMPONENTS
+    if isinstance(max_components, bool) or not isinstance(max_components, (int, np.integer)):
+        raise InputError(f"max_components must be a whole number, got {max_components!r}")
+    if max_components < 1:
+        raise InputError(f"max_components must be at least 1, got {max_components}")
+    return int(min(max_components, MAX_COMPONENTS))
+
+
+def _preprocess(X, scaling, log10) -> np.ndarray:
+    """The data as PCAModel preprocesses them before fitting (log10, centring, scaling; NaN kept)."""
+    values, ids, names = as_matrix(X)
+    prep = Preprocessor(scaling, log10).fit(values, ids, names)
+    return scale_block(values[:, prep.keep_], prep.log_mask_, prep.mean_, prep.scale_)
+
+
+def rank_table(Z, scaling, max_components=MAX_COMPONENTS, random_state=0) -> RankResult:
+    """The rank table for already preprocessed data ``Z`` (NaN allowed).
+
+    ``scaling`` names the preprocessing ``Z`` went through; parallel analysis
+    applies the same one to its random data.
+    """
+    Z = np.asarray(Z, dtype=np.float64)
+    n, p = Z.shape
+    notes: list[str] = []
+    eigenvalues = data_eigenvalues(mean_imputed(Z))
+    total = float(eigenvalues.sum())
+    rank = _numerical_rank(eigenvalues, Z.shape, centred=scaling != "none")
+    n_rows = min(max_components, rank)
+    if n_rows < 1:
+        raise InputError("the data have no variance left after preprocessing; no component can be fitted")
+    if n_rows < max_components:
+        notes.append(f"the data allow at most {n_rows} component(s)")
+
+    explained = eigenvalues[:n_rows] / total
+    cv = np.full(n_rows, np.nan)
+    cv_values, cv_notes = ekf_cross_validation(Z, n_rows, random_state=random_state)
+    cv[: cv_values.size] = cv_values
+    notes.extend(cv_notes)
+    thresholds = parallel_analysis(Z, scaling, n_rows, random_state=random_state)
+    table = pd.DataFrame(
+        {
+            "components": np.arange(1, n_rows + 1),
+            "eigenvalue": eigenvalues[:n_rows],
+            "explained": explained,
+            "cumulative": np.cumsum(explained),
+            "cv_explained": cv,
+            "parallel_threshold": thresholds,
+            "broken_stick": broken_stick(p)[:n_rows],
+        },
+        columns=TABLE_COLUMNS,
+    )
+    recommended, rule, method = _recommend(table, cv_values.size, cv_notes)
+    return RankResult(table, recommended, rule, method, notes)
+
+
+def _recommend(table: pd.DataFrame, n_cv: int, cv_notes: list[str]):
+    if n_cv >= 1:
+        cv = table["cv_explained"].to_numpy()[:n_cv]
+        gains = np.diff(np.concatenate([[0.0], cv]))
+        kept = 0
+        while kept < n_cv and gains[kept] >= CV_MIN_GAIN:
+            kept += 1
+        citation = "element-wise k-fold, Eastment & Krzanowski 1982; Bro et al. 2008"
+        if kept == 0:
+            return (
+                1,
+                f"cross-validation ({citation}): no component raised the cross-validated explained "
+                "variance by 1 percentage point or more, so the data look like noise; "
+                "1 component is the smallest model",
+                "cross-validation",
+            )
+        if kept == n_cv:
+            ending = (
+                f"each of the {n_cv} component(s) that could be cross-validated raised it by at least "
+                "1 percentage point"
+            )
+        else:
+            ending = (
+                f"component {kept + 1} would change it by {100 * gains[kept]:+.1f} percentage points"
+            )
+        return (
+            kept,
+            f"cross-validation ({citation}): keep adding components while each raises the "
+            f"cross-validated explained variance by at least 1 percentage point; {ending}",
+            "cross-validation",
+        )
+    above = table["eigenvalue"].to_numpy() > table["parallel_threshold"].to_numpy()
+    kept = int(np.argmin(above)) if not above.all() else int(above.size)
+    reason = cv_notes[-1] if cv_notes else "cross-validation was not possible"
+    return (
+        max(kept, 1),
+        f"parallel analysis (Horn 1965): {kept} leading component(s) have an eigenvalue above the "
+        "95th percentile of random data of the same shape"
+        + ("; 1 component is the smallest model" if kept == 0 else "")
+        + f" ({reason})",
+        "parallel analysis",
+    )
+
+
+# --- pure parts: broken stick, eigenvalues, parallel analysis, cross-validation ---------
+
+
+def broken_stick(n_variables: int) -> np.ndarray:
+    """Expected variance share of components 1..p under the broken-stick model.
+
+    b_k = (1/p) * sum_{i=k..p} 1/i (Jackson 1993, Ecology 74(8), 2204-2214).
+    """
+    p = int(n_variables)
+    inverse = 1.0 / np.arange(1, p + 1)
+    return np.cumsum(inverse[::-1])[::-1] / p
+
+
+def mean_imputed(Z) -> np.ndarray:
+    """Copy of ``Z`` with each missing cell replaced by its column mean (0 for an empty column)."""
+    Z = np.array(Z, dtype=np.float64)
+    missing = np.isnan(Z)
+    if missing.any():
+        counts = (~missing).sum(axis=0)
+        sums = np.where(missing, 0.0, Z).sum(axis=0)
+        means = np.divide(sums, counts, out=np.zeros_like(sums), where=counts > 0)
+        Z[missing] = np.take(means, np.nonzero(missing)[1])
+    return Z
+
+
+def data_eigenvalues(Z) -> np.ndarray:
+    """Eigenvalues lambda = t't/(n-1) of complete preprocessed data, all min(n, p), descending."""
+    Z = np.asarray(Z, dtype=np.float64)
+    n = Z.shape[0]
+    return _gram_eigenvalues(Z.T @ Z if n >= Z.shape[1] else Z @ Z.T, n)
+
+
+def _gram_eigenvalues(gram: np.ndarray, n: int) -> np.ndarray:
+    values = np.linalg.eigvalsh(gram)[::-1] / max(n - 1, 1)
+    return np.clip(values, 0.0, None)
+
+
+def _numerical_rank(eigenvalues: np.ndarray, shape=None, centred=True) -> int:
+    """Components above rounding level, lambda > lambda_max * max(n, p) * eps (as PCAModel counts)."""
+    if eigenvalues.size == 0 or eigenvalues[0] <= 0:
+        return 0
+    n, p = shape if shape is not None else (eigenvalues.size, eigenvalues.size)
+    tolerance = eigenvalues[0] * max(n, p) * np.finfo(float).eps
+    rank = int(np.count_nonzero(eigenvalues > tolerance))
+    return min(rank, n - 1 if centred else n, p)
+
+
+def parallel_analysis(
+    Z, scaling, n_components, quantile=PA_QUANTILE, n_simulations=None, random_state=0
+) -> np.ndarray:
+    """Horn's (1965) parallel-analysis thresholds for components 1..n_components.
+
+    Each simulation draws an (n, p) matrix N of independent standard normal
+    values (``numpy.random.default_rng(random_state)``, one simulation after
+    the other, rows in order) and preprocesses it like the data, column by
+    column, with m_j and s_j the mean and standard deviation (ddof=1) of the
+    observed cells of column j of ``Z``:
+
+    * ``none``: m_j + s_j N_j (no centring, as the data);
+    * ``center``: s_j (N_j - mean N_j);
+    * ``autoscale``: (N_j - mean N_j) / sd(N_j);
+    * ``pareto``: s_j (N_j - mean N_j) / sqrt(sd(N_j)).
+
+    These are distributed as random normal columns with the data's mean and
+    spread before scaling, put through the same scaling. The threshold of
+    component a is the ``quantile`` percentile of the a-th eigenvalue over the
+    simulations. Without ``n_simulations`` the count is 100, lowered (not
+    below 20) to keep the work bounded on large data.
+    """
+    Z = np.asarray(Z, dtype=np.float64)
+    n, p = Z.shape
+    if scaling not in ("none", "center", "autoscale", "pareto"):
+        raise InputError(f"unknown scaling {scaling!r}; use none, center, autoscale or pareto")
+    observed = ~np.isnan(Z)
+    counts = observed.sum(axis=0)
+    means = np.where(counts > 0, np.nansum(Z, axis=0) / np.maximum(counts, 1), 0.0)
+    deviations = np.where(observed, Z - means, 0.0)
+    spreads = np.sqrt(np.divide((deviations**2).sum(axis=0), counts - 1, out=np.zeros(p), where=counts > 1))
+    if n_simulations is None:
+        work = float(n) * p * min(n, p)
+        n_simulations = int(np.clip(PA_WORK_BUDGET // max(work, 1.0), PA_MIN_SIMULATIONS, PA_MAX_SIMULATIONS))
+    rng = np.random.default_rng(random_state)
+    simulated = np.empty((n_simulations, n_components))
+    for s in range(n_simulations):
+        simulated[s] = _random_eigenvalues(rng, n, p, means, spreads, scaling)[:n_components]
+    return np.percentile(simulated, quantile, axis=0)
+
+
+def _random_eigenvalues(rng, n, p, means, spreads, scaling) -> np.ndarray:
+    """Eigenvalues of one preprocessed random normal matrix (see parallel_analysis)."""
+    if n < p:
+        N = rng.standard_normal((n, p))
+        if scaling == "none":
+            R = means + spreads * N
+        else:
+            centred = N - N.mean(axis=0)
+            R = centred * _column_factors(centred.std(axis=0, ddof=1), spreads, scaling)
+        return _gram_eigenvalues(R @ R.T, n)
+    # Tall data: accumulate N'N and the column sums chunk by chunk, so memory stays O(p^2).
+    gram = np.zeros((p, p))
+    sums = np.zeros(p)
+    for start in range(0, n, _CHUNK_ROWS):
+        N = rng.standard_normal((min(_CHUNK_ROWS, n - start), p))
+        gram += N.T @ N
+        sums += N.sum(axis=0)
+    if scaling == "none":
+        # R = m + s N, so R'R = S N'N S + S u m' + m u' S + n m m' with u = N'1.
+        scaled = spreads[:, None] * gram * spreads[None, :]
+        cross = np.outer(spreads * sums, means)
+        return _gram_eigenvalues(scaled + cross + cross.T + n * np.outer(means, means), n)
+    centred = gram - np.outer(sums, sums) / n
+    factors = _column_factors(np.sqrt(np.clip(np.diag(centred), 0.0, None) / (n - 1)), spreads, scaling)
+    return _gram_eigenvalues(factors[:, None] * centred * factors[None, :], n)
+
+
+def _column_factors(random_sd, spreads, scaling) -> np.ndarray:
+    if scaling == "center":
+        return spreads
+    if scaling == "autoscale":
+        return 1.0 / random_sd
+    return spreads / np.sqrt(random_sd)  # pareto
+
+
+def ekf_cross_validation(
+    Z, max_components, n_folds=MAX_FOLDS, random_state=0, max_rows=CV_MAX_ROWS
+) -> tuple[np.ndarray, list[str]]:
+    """Cumulative cross-validated explained variance for 1..A components (element-wise k-fold).
+
+    Rows go to ``min(n_folds, n)`` folds by a seeded permutation. For each
+    fold the remaining rows are centred (by their own column means) and a PCA
+    is fitted to them; every observed cell x_ij of a left-out row is then
+    predicted from the other observed cells of row i (least-squares scores
+    on the loadings without variable j), which gives the residual
+    e_ij / (1 - h_ij) (see the module docstring). With PRESS_a the sum of
+    squared prediction errors over all predicted cells and PRESS_0 that of
+    predicting each cell by its fold's training mean, the result for a
+    components is 1 - PRESS_a / PRESS_0 (Eastment & Krzanowski 1982;
+    Bro et al. 2008, "ekf").
+
+    Missing cells are neither predicted nor used as predictors. With more
+    than ``max_rows`` rows a seeded random subset of ``max_rows`` rows is
+    used. A is capped at p - 1 (a left-out cell needs one other cell per
+    component) and at the numerical rank of every training fold.
+
+    Returns
+    -------
+    cv_explained : ndarray of shape (A',), A' <= max_components (empty when
+        cross-validation was impossible)
+    notes : list of str explaining subsampling, caps and skipped rows
+    """
+    Z = np.asarray(Z, dtype=np.float64)
+    n, p = Z.shape
+    notes: list[str] = []
+    rng = np.random.default_rng(random_state)
+    if n > max_rows:
+        rows = np.sort(rng.choice(n, size=max_rows, replace=False))
+        Z = Z[rows]
+        notes.append(f"cross-validation used a random subset of {max_rows} of the {n} samples (seeded)")
+        n = max_rows
+    n_folds = min(int(n_folds), n)
+    limit = min(int(max_components), p - 1)
+    if p < 2:
+        return np.empty(0), notes + ["cross-validation needs at least 2 variables"]
+    if n_folds < 3 or n - int(math.ceil(n / n_folds)) < 3:
+        return np.empty(0), notes + ["cross-validation needs at least 4 samples"]
+    folds = rng.permutation(n) % n_folds
+
+    fitted = []
+    for fold in range(n_folds):
+        train = Z[folds != fold]
+        centre = _nanmean_or_zero(train)
+        loadings = _fold_loadings(train - centre, min(limit, train.shape[0] - 1))
+        fitted.append((fold, centre, loadings))
+        limit = min(limit, loadings.shape[1])
+    if limit < 1:
+        return np.empty(0), notes + ["cross-validation found no component it could fit"]
+    if limit < max_components:
+        notes.append(f"cross-validation covers components 1..{limit}")
+
+    press = np.zeros(limit + 1)
+    skipped = 0
+    for fold, centre, loadings in fitted:
+        part, n_skipped = ekf_press(Z[folds == fold] - centre, loadings[:, :limit])
+        press += part
+        skipped += n_skipped
+    if skipped:
+        notes.append(
+            f"cross-validation skipped {skipped} sample(s) with fewer than {limit + 1} observed values"
+        )
+    if press[0] <= 0:
+        return np.empty(0), notes + ["cross-validation found no variance to predict"]
+    return 1.0 - press[1:] / press[0], notes
+
+
+def _nanmean_or_zero(X: np.ndarray) -> np.ndarray:
+    observed = ~np.isnan(X)
+    counts = observed.sum(axis=0)
+    return np.where(counts > 0, np.where(observed, X, 0.0).sum(axis=0) / np.maximum(counts, 1), 0.0)
+
+
+def _fold_loadings(centred: np.ndarray, n_components: int) -> np.ndarray:
+    """Orthonormal loadings (p, <=n_components) of centred training rows."""
+    if n_components < 1:
+        return np.empty((centred.shape[1], 0))
+    if np.isnan(centred).any():
+        return _incomplete_loadings(centred, n_components)
+    n, p = centred.shape
+    if n >= p:
+        values, vectors = np.linalg.eigh(centred.T @ centred)
+        values, vectors = values[::-1], vectors[:, ::-1]
+    else:
+        values, left = np.linalg.eigh(centred @ centred.T)
+        values, left = values[::-1], left[:, ::-1]
+        keep = values > 0
+        vectors = np.zeros((p, values.size))
+        vectors[:, keep] = (centred.T @ left[:, keep]) / np.sqrt(values[keep])
+    kept = min(n_components, _numerical_rank(np.clip(values, 0.0, None), centred.shape))
+    return vectors[:, :kept]
+
+
+def _incomplete_loadings(centred: np.ndarray, n_components: int) -> np.ndarray:
+    """Loadings of training rows with missing cells: NIPALS skipping missing cells.
+
+    Each component is fitted by alternating least squares over the observed
+    cells only and then deflated, so the first a loadings are those of the
+    a-component model, as nested cross-validation needs (Wold 1966; the
+    missing-data NIPALS reviewed by Nelson, Taylor & MacGregor 1996). The
+    columns are orthonormalised (QR keeps the nested spans).
+    """
+    observed = ~np.isnan(centred)
+    weights = observed.astype(np.float64)
+    residual = np.where(observed, centred, 0.0)
+    columns = []
+    for _ in range(n_components):
+        strength = np.einsum("ij,ij->j", residual, residual)
+        if strength.max() <= 0:
+            break
+        scores = residual[:, int(np.argmax(strength))].copy()
+        for _ in range(NIPALS_MAX_ITER):
+            loading = residual.T @ scores / np.maximum(weights.T @ scores**2, np.finfo(float).tiny)
+            loading /= np.linalg.norm(loading)
+            updated = residual @ loading / np.maximum(weights @ loading**2, np.finfo(float).tiny)
+            converged = np.linalg.norm(updated - scores) <= NIPALS_TOL * np.linalg.norm(updated)
+            scores = updated
+            if converged:
+                break
+        columns.append(loading)
+        residual -= weights * np.outer(scores, loading)
+    if not columns:
+        return np.empty((centred.shape[1], 0))
+    q, r = np.linalg.qr(np.column_stack(columns))
+    kept = int(np.count_nonzero(np.abs(np.diag(r)) > 1e-10))
+    return q[:, :kept]
+
+
+def ekf_press(test: np.ndarray, loadings: np.ndarray) -> tuple[np.ndarray, int]:
+    """PRESS for 0..A components over the observed cells of centred left-out rows.
+
+    For each row with observed cells O, Q R = P_O (thin QR) spans the same
+    nested column spaces as P_O[:, :a] for every a, so the least-squares fit
+    with a components is the sum of the first a terms q_k (q_k' x_O) and the
+    hat-matrix diagonal is the cumulative sum of q_k^2.
+    """
+    n_components = loadings.shape[1]
+    press = np.zeros(n_components + 1)
+    observed = ~np.isnan(test)
+    complete = observed.all(axis=1)
+    skipped = 0
+    blocks = []
+    if complete.any():
+        blocks.append((test[complete], loadings))
+    for row, mask in zip(test[~complete], observed[~complete]):
+        if mask.sum() <= n_components:
+            skipped += 1
+            continue
+        q, r = np.linalg.qr(loadings[mask])
+        # A (near) zero R_kk: column k of P_O adds no direction to the fit, so from
+        # there on the least-squares fit stays that of the fewer components.
+        singular = np.abs(np.diag(r)) <= 1e-10
+        if singular.any():
+            q[:, int(np.argmax(singular)) :] = 0.0
+        blocks.append((row[mask][None, :], q))
+    for X, Q in blocks:
+        press[0] += np.sum(X**2)
+        coefficients = X @ Q  # (m, A)
+        fitted = np.zeros_like(X)
+        leverage = np.zeros(X.shape[1])
+        for a in range(n_components):
+            fitted += np.outer(coefficients[:, a], Q[:, a])
+            leverage += Q[:, a] ** 2
+            denominator = np.maximum(1.0 - leverage, 1e-12)
+            press[a + 1] += np.sum(((X - fitted) / denominator) ** 2)
+    return press, skipped
