@@ -107,6 +107,10 @@ def build_parser() -> argparse.ArgumentParser:
     apply.add_argument("--out", required=True, help="output folder")
     apply.set_defaults(handler=_cmd_apply)
 
+    from webapp.cli_platform import add_platform_commands
+
+    add_platform_commands(commands)  # serve, demo, users, tokens
+
     return parser
 
 

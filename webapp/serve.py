@@ -1,0 +1,117 @@
+"""``latentdesk serve`` and ``latentdesk demo``: gunicorn around ``create_app``.
+
+The parent process checks the configuration and migrates the database once;
+each gunicorn worker then builds its own app (no state is shared in memory).
+The demo prepares its home folder, users and datasets in a separate spawned
+process so the server starts with no database handles inherited over fork.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+from typing import Any, Mapping
+
+from webapp.accounts import user_line
+from webapp.config import load_config
+from webapp.store import make_engine, migrate
+from webapp.store.engine import database_url
+
+# Invented demo accounts: (name, role, printed name).
+DEMO_USERS = (
+    ("ana", "analyst", "Ana Demo (analyst)"),
+    ("rowan", "reviewer", "Rowan Demo (reviewer)"),
+    ("sage", "reviewer", "Sage Demo (reviewer)"),
+    ("vic", "viewer", "Vic Demo (viewer)"),
+    ("admin", "admin", "Admin Demo"),
+)
+
+
+def _gunicorn(overrides: Mapping[str, Any], host: str, port: int, workers: int, threads: int):
+    from gunicorn.app.base import BaseApplication
+
+    class LatentDeskServer(BaseApplication):
+        def load_config(self):
+            self.cfg.set("bind", f"{host}:{port}")
+            self.cfg.set("workers", workers)
+            self.cfg.set("worker_class", "gthread")
+            self.cfg.set("threads", threads)
+            self.cfg.set("timeout", 300)
+            self.cfg.set("accesslog", "-")
+
+        def load(self):
+            from webapp import create_app
+
+            return create_app(dict(overrides))
+
+    return LatentDeskServer()
+
+
+def _prepare(overrides: Mapping[str, Any]) -> None:
+    """Check the configuration (ConfigError names the problem) and migrate once."""
+    config = load_config(overrides)
+    engine = make_engine(database_url(config))
+    try:
+        migrate(engine)
+    finally:
+        engine.dispose()
+
+
+def serve(host: str, port: int, workers: int, threads: int = 4, overrides=None) -> None:
+    overrides = dict(overrides or {})
+    _prepare(overrides)
+    print(f"LatentDesk on http://{host}:{port}/ with {workers} worker(s)", flush=True)
+    _gunicorn(overrides, host, port, workers, threads).run()
+
+
+def prepare_demo(overrides: Mapping[str, Any]) -> list[tuple[str, str, str]]:
+    """Home folder, secret key, schema, demo users (fresh random passwords) and the
+    two invented demo datasets. Returns (name, role, password) per user."""
+    from webapp import auth, create_app
+    from webapp.demo_data import lab_scenario, survey_scenario
+    from webapp.services.ingest import ingest_upload
+    from webapp.store import accounts, session_scope
+
+    app = create_app({**overrides, "DEMO": True})
+    handed_out = []
+    with app.app_context():
+        with session_scope() as s:
+            for name, role, printed in DEMO_USERS:
+                password = auth.generate_password()
+                user = accounts.get_user_by_name(s, name)
+                if user is None:
+                    accounts.add_user(s, name, role, auth.hash_password(password), printed)
+                else:
+                    accounts.set_password(s, user, auth.hash_password(password))
+                    accounts.set_active(s, user, True)
+                handed_out.append((name, role, password))
+            owner = accounts.get_user_by_name(s, "ana").id
+        for scenario in (lab_scenario, survey_scenario):
+            filename, raw = scenario()
+            ingest_upload(raw, filename, owner)
+    return handed_out
+
+
+def _prepare_demo_child(overrides: dict, queue) -> None:
+    queue.put(prepare_demo(overrides))
+
+
+def demo(host: str, port: int, workers: int, overrides=None) -> None:
+    overrides = {**(overrides or {}), "DEMO": True}
+    context = multiprocessing.get_context("spawn")
+    queue = context.SimpleQueue()
+    child = context.Process(target=_prepare_demo_child, args=(overrides, queue))
+    child.start()
+    child.join()
+    if child.exitcode != 0 or queue.empty():
+        raise RuntimeError("preparing the demo failed (see the message above)")
+    config = load_config(overrides)
+    print(f"LatentDesk demo in {config['HOME']}")
+    for name, role, password in queue.get():
+        print(user_line(name, role, password))
+    if host == "127.0.0.1":
+        print(f"Listening on 127.0.0.1 only (this computer): http://127.0.0.1:{port}/ "
+              "- pass --host 0.0.0.0 to let other computers connect.", flush=True)
+    else:
+        print(f"Listening on {host}:{port} as asked with --host: anyone who can reach this "
+              "address can open the sign-in page.", flush=True)
+    serve(host, port, workers, overrides=overrides)
