@@ -373,7 +373,8 @@ def _survey_anomalies() -> dict:
             "variables": list(_PAGE_TWO),
             "cause": "one print run of the paper form (Logistics) showed the scale reversed "
                      "on page two (Q09-Q16)",
-            "finding": "high SPE for the block; page-two items lead their contributions; "
-                       "all are paper forms from Logistics",
+            "finding": "most of the block has SPE above the limit, with contributions on both "
+                       "pages because the pages disagree; coloured by Mode and Department they are "
+                       "all paper forms from Logistics, submitted together",
         },
     }
