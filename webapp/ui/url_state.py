@@ -64,7 +64,8 @@ class ViewState:
             "components": self.components if self.components is not None else "auto",
             "variables": kept,
             "log10": [v for v in self.log10 if v not in dropped],
-            "exclude": list(self.exclude),
+            # No exclude in the link: the dataset's approved exclusions apply (webapp.services.review).
+            "exclude": list(self.exclude) if self.exclude else None,
             "confidence": self.confidence,
         }
 
@@ -227,3 +228,44 @@ def dataset_url(dataset_id, state: ViewState | None = None) -> str:
     path = f"/datasets/{_path_part(dataset_id)}"
     query = to_query(state) if state is not None else ""
     return f"{path}?{query}" if query else path
+
+
+# -- review pages (owner: REVIEW) -----------------------------------------------
+def review_url(dataset_id=None) -> str:
+    """The reviewer queue, optionally for one dataset."""
+    return f"/review?{urlencode({'dataset': dataset_id})}" if dataset_id is not None else "/review"
+
+
+def propose_url(dataset_id, samples=(), action: str = "exclude", state: ViewState | None = None) -> str:
+    """The proposal form for samples of a dataset (the dataset page's selection),
+    fitted with the model settings of ``state``."""
+    pairs = [("dataset", str(dataset_id)), ("action", action)] + [("sample", str(s)) for s in samples]
+    query = urlencode(pairs, quote_via=quote)
+    settings = to_query(state) if state is not None else ""
+    return f"/review/propose?{query}&{settings}" if settings else f"/review/propose?{query}"
+
+
+def review_log_url(dataset_id, **filters) -> str:
+    """A dataset's review log page; filters: action, actor (both optional)."""
+    pairs = [("dataset", str(dataset_id))] + [(k, str(v)) for k, v in filters.items() if v not in (None, "")]
+    return f"/review/log?{urlencode(pairs, quote_via=quote)}"
+
+
+def signoff_report_url(dataset_id, proposal_id=None) -> str:
+    """The printable sign-off report (HTML) of a dataset, or of one proposal."""
+    path = f"/-/review/datasets/{_path_part(dataset_id)}/report"
+    return f"{path}?proposal={_path_part(proposal_id)}" if proposal_id is not None else path
+
+
+def review_log_csv_url(dataset_id) -> str:
+    return f"/api/v1/datasets/{_path_part(dataset_id)}/review-log.csv"
+
+
+def views_url(dataset_id=None) -> str:
+    """The saved views list, optionally for one dataset."""
+    return f"/views?{urlencode({'dataset': dataset_id})}" if dataset_id is not None else "/views"
+
+
+def view_url(view_id) -> str:
+    """A saved view's shareable link."""
+    return f"/views/{_path_part(view_id)}"
