@@ -77,10 +77,9 @@ def spe_limit(discarded_eigenvalues, confidence: float, method: str = "jackson-m
     ``jackson-mudholkar`` (Jackson & Mudholkar 1979):
         h0 = 1 - 2 theta1 theta3 / (3 theta2^2)
         Q = theta1 [c sqrt(2 theta2 h0^2) / theta1 + 1 + theta2 h0 (h0 - 1) / theta1^2]^(1/h0)
-      with c the standard normal quantile. When h0 < 0 (rare: one discarded
-      eigenvalue dominating many tiny ones) (Q/theta1)^h0 decreases with Q, so
-      the lower normal quantile is used (c -> -c), which is the same
-      normal approximation read in the right direction.
+      with c the standard normal quantile. The normal approximation of
+      (Q/theta1)^h0 needs h0 > 0; in the rare case h0 <= 0 (one discarded
+      eigenvalue dominating very many small ones) the Box limit is returned.
     ``box`` (Box 1954; Nomikos & MacGregor 1995): Q ~ g chi2(h), g = theta2/theta1,
         h = theta1^2 / theta2.
 
@@ -95,11 +94,11 @@ def spe_limit(discarded_eigenvalues, confidence: float, method: str = "jackson-m
     theta1, theta2, theta3 = (float(np.sum(lam**i)) for i in (1, 2, 3))
     if theta1 <= 0.0 or theta2 <= 0.0:
         return 0.0
-    if method == "box":
+    h0 = 1.0 - 2.0 * theta1 * theta3 / (3.0 * theta2**2)
+    if method == "box" or h0 <= 0.0:
         g, h = theta2 / theta1, theta1**2 / theta2
         return float(g * stats.chi2.ppf(confidence, h))
-    h0 = 1.0 - 2.0 * theta1 * theta3 / (3.0 * theta2**2)
-    c = stats.norm.ppf(confidence) * np.sign(h0)
+    c = stats.norm.ppf(confidence)
     base = c * np.sqrt(2.0 * theta2 * h0**2) / theta1 + 1.0 + theta2 * h0 * (h0 - 1.0) / theta1**2
     return float(theta1 * base ** (1.0 / h0))
 
