@@ -37,6 +37,7 @@ _LINE_SITE = {"Line A": "Site North", "Line B": "Site North", "Line C": "Site So
 _LINE_WEIGHTS = {"Line A": 0.36, "Line B": 0.32, "Line C": 0.32}
 _FIRST_DAY = "2026-01-05"
 _LOD_IMPURITY_B = 0.05
+_LOST_RESULTS = 15  # empty assay cells (about 1 %)
 
 # name, mean, standard deviation, decimals, loadings on the three latent
 # factors (granulation, degradation, suspension rheology), in SD units.
@@ -134,11 +135,11 @@ def _lab_frame(seed: int) -> pd.DataFrame:
         if values[i, col["Impurity B (%)"]] < _LOD_IMPURITY_B:
             cells[i][col["Impurity B (%)"]] = f"<{_LOD_IMPURITY_B:g}"
 
-    # A few lost results (about 1 % of cells), never on a planted batch.
+    # A few lost results, never on a planted batch.
     planted = {design["mislabelled"], design["assay_outlier"], design["dissolution_outlier"],
                design["extreme"], *design["drift"]}
     candidates = [(i, j) for i in range(n) if i not in planted for j in range(p)]
-    for k in rng.choice(len(candidates), size=15, replace=False):
+    for k in rng.choice(len(candidates), size=_LOST_RESULTS, replace=False):
         i, j = candidates[k]
         cells[i][j] = ""
 
@@ -210,6 +211,7 @@ _DEPARTMENT_EFFECT = {
     "Logistics": {},
 }
 _PAPER_SHARE = 0.2
+_SKIPPED_ANSWERS = 90  # blank answers (about 2 %)
 _FIRST_SUBMISSION = "2026-10-05"
 # Straight-liners by respondent position and their one repeated answer.
 _STRAIGHT_LINERS = {36: 5, 144: 5, 233: 1, 290: 3}
@@ -259,7 +261,7 @@ def _survey_frame(seed: int) -> pd.DataFrame:
     cells = answers.astype(str).astype(object)
     planted = set(_STRAIGHT_LINERS) | set(_REVERSED_BLOCK)
     candidates = [(i, j) for i in range(n) if i not in planted for j in range(len(_ITEMS))]
-    for c in rng.choice(len(candidates), size=90, replace=False):
+    for c in rng.choice(len(candidates), size=_SKIPPED_ANSWERS, replace=False):
         i, j = candidates[c]
         cells[i, j] = ""
 
