@@ -1,0 +1,485 @@
+"""File intake: CSV/TSV/XLSX bytes -> Table + IntakeReport, or a clear IntakeError.
+
+Owns the public entry points (``read_table``, ``read_path``), the report,
+the first look at the bytes (size, emptiness, what kind of file) and
+typing: column roles (id, metadata, variable, ignore), numbers, missing
+markers, detection-limit values, sample ids and the checks on the result.
+Reading the bytes is left to ``intake_text`` (delimited text) and
+``intake_xlsx`` (workbooks); cells are read by ``intake_cells``.
+
+Values below a detection limit ("<0.05") become LOD/2 by default, LOD/sqrt(2)
+or missing on request (common practice for multivariate screening of
+censored lab values); the policy and the counts are in the report.
+Nothing is stored: this is a pure function of the bytes and the options.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from analysis.intake_cells import MISSING_MARKERS, looks_numeric, parse_column
+from analysis.intake_layout import Grid, IntakeError
+from analysis.intake_text import read_text
+from analysis.intake_xlsx import read_xlsx
+from analysis.table import Table
+
+__all__ = ["IntakeError", "IntakeReport", "read_table", "read_path"]
+
+ROLES = ("id", "metadata", "variable", "ignore")
+BELOW_LIMIT_POLICIES = ("half", "sqrt2", "missing")
+BAD_CELL_POLICIES = ("error", "missing")
+MAX_LISTED = 10
+CLASSIFY_SAMPLE = 2000
+_ID_NAME = re.compile(
+    r"^(?:(?:sample|specimen|subject|respondent|participant|record|lot|batch|patient|unit)[ _.-]*)?"
+    r"(?:id|no\.?|nr\.?|number|code|name|sample|specimen)$",
+    re.IGNORECASE,
+)
+_POLICY_TEXT = {"half": "LOD/2", "sqrt2": "LOD/sqrt(2)", "missing": "missing"}
+_SIGNATURES = (
+    (b"\x89PNG\r\n\x1a\n", "a PNG image"),
+    (b"\xff\xd8\xff", "a JPEG image"),
+    (b"GIF87a", "a GIF image"),
+    (b"GIF89a", "a GIF image"),
+    (b"%PDF", "a PDF document"),
+    (b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1", "an old-style .xls workbook or a password-protected file"),
+    (b"\x1f\x8b", "a gzip archive"),
+    (b"7z\xbc\xaf\x27\x1c", "a 7-Zip archive"),
+    (b"Rar!\x1a\x07", "a RAR archive"),
+    (b"\x7fELF", "a program (ELF binary)"),
+    (b"MZ", "a Windows program"),
+    (b"II*\x00", "a TIFF image"),
+    (b"MM\x00*", "a TIFF image"),
+    (b"SQLite format 3\x00", "an SQLite database"),
+)
+
+
+@dataclass
+class IntakeReport:
+    """What intake found and decided; shown to the user beside the table.
+
+    Attributes
+    ----------
+    filename, file_type ("csv" or "xlsx"), encoding, delimiter, decimal, sheet :
+        how the file was read (None where not applicable).
+    roles : dict[str, str]
+        column -> "id" | "metadata" | "variable" | "ignore".
+    units : dict[str, str]
+        unit per variable from a units row under the header.
+    missing_counts, below_limit_counts, above_range_counts : dict[str, int]
+        per variable: missing cells (after cleaning), detection-limit values
+        replaced, above-range values kept as their bound.
+    below_limit_policy : str
+        "half" (LOD/2), "sqrt2" (LOD/sqrt(2)) or "missing".
+    dropped_rows : list[int]
+        spreadsheet rows left out because every variable was missing.
+    warnings : list[str]
+    """
+
+    filename: str
+    file_type: str
+    encoding: str | None = None
+    delimiter: str | None = None
+    decimal: str | None = None
+    sheet: str | None = None
+    header_row: int = 1
+    id_column: str | None = None
+    n_samples: int = 0
+    n_variables: int = 0
+    roles: dict[str, str] = field(default_factory=dict)
+    units: dict[str, str] = field(default_factory=dict)
+    missing_counts: dict[str, int] = field(default_factory=dict)
+    below_limit_counts: dict[str, int] = field(default_factory=dict)
+    above_range_counts: dict[str, int] = field(default_factory=dict)
+    below_limit_policy: str = "half"
+    dropped_rows: list[int] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        """JSON-safe copy (plain str/int/None, lists and dicts)."""
+        return asdict(self)
+
+
+def read_path(path, **options) -> tuple[Table, IntakeReport]:
+    """Read a file from disk; the base name is used as the file name in messages."""
+    name = os.path.basename(os.fspath(path))
+    max_bytes = options.get("max_bytes", 200 * 1024**2)
+    try:
+        size = os.path.getsize(path)
+        if size > max_bytes:
+            raise IntakeError(_too_big(name, size, max_bytes))
+        with open(path, "rb") as fh:
+            raw = fh.read()
+    except OSError as exc:
+        raise IntakeError(f"{name}: cannot be opened ({exc.strerror or exc}).") from None
+    return read_table(raw, name, **options)
+
+
+def read_table(
+    raw: bytes,
+    filename: str,
+    *,
+    id_column: str | None = None,
+    group_columns=(),
+    sheet: str | None = None,
+    below_limit: str = "half",
+    bad_cells: str = "error",
+    roles: dict[str, str] | None = None,
+    max_bytes: int = 200 * 1024**2,
+    max_columns: int = 20000,
+    mostly_missing: float = 0.5,
+) -> tuple[Table, IntakeReport]:
+    """Read CSV/TSV/XLSX bytes into a Table and an IntakeReport.
+
+    Parameters
+    ----------
+    raw : bytes
+        The file as uploaded.
+    filename : str
+        Shown in every message; its extension is a hint only (content decides).
+    id_column : str, optional
+        Column holding sample ids. Default: the first text column whose values
+        are all present and unique; if none, ids are the spreadsheet rows ("row 2").
+    group_columns : sequence of str
+        Columns kept as metadata even when numeric.
+    sheet : str, optional
+        XLSX sheet name (default: the first sheet).
+    below_limit : {"half", "sqrt2", "missing"}
+        Replacement for "<LOD" values with a number: LOD/2, LOD/sqrt(2) or missing.
+    bad_cells : {"error", "missing"}
+        Text or infinities in a numeric column: refuse the file (listing the
+        cells) or read them as missing with a warning.
+    roles : dict[str, str], optional
+        Column -> "id" | "metadata" | "variable" | "ignore"; overrides detection.
+    max_bytes, max_columns : int
+        Size limits; larger files are refused.
+    mostly_missing : float
+        Warn about variables and samples missing more than this fraction.
+
+    Raises
+    ------
+    IntakeError
+        The message names the file, the spreadsheet row (header = its row in
+        the file), the column and the value.
+    """
+    filename = str(filename) or "upload"
+    _check_options(filename, below_limit, bad_cells, roles, mostly_missing)
+    raw = bytes(raw)
+    if len(raw) > max_bytes:
+        raise IntakeError(_too_big(filename, len(raw), max_bytes))
+    if not raw.strip():
+        raise IntakeError(f"{filename}: the file is empty.")
+    roles = dict(roles or {})
+    if id_column is not None:
+        roles[str(id_column)] = "id"
+    for g in group_columns or ():
+        roles.setdefault(str(g), "metadata")
+    ids = [c for c, r in roles.items() if r == "id"]
+    if len(ids) > 1:
+        raise IntakeError(f"{filename}: more than one id column requested: {', '.join(map(repr, ids))}.")
+    if raw.startswith(b"PK\x03\x04") or filename.lower().endswith((".xlsx", ".xlsm")):
+        if not raw.startswith(b"PK"):
+            raise IntakeError(
+                f"{filename}: is not a valid XLSX file (an XLSX file is a zip container; this one is not)."
+                + _kind_hint(raw)
+            )
+        grid = read_xlsx(raw, filename, sheet=sheet, max_bytes=max_bytes, max_columns=max_columns)
+    else:
+        for magic, kind in _SIGNATURES:
+            if raw.startswith(magic):
+                raise IntakeError(f"{filename}: is {kind}, not a table. Upload a CSV, TSV or XLSX file.")
+        if sheet is not None:
+            raise IntakeError(f"{filename}: sheet {sheet!r} was asked for, but this is a text file without sheets.")
+        grid = read_text(raw, filename, text_columns=set(roles), max_columns=max_columns)
+    return _typed(grid, filename, roles, below_limit, bad_cells, mostly_missing)
+
+
+def _too_big(filename: str, size: int, limit: int) -> str:
+    return (
+        f"{filename}: the file is {size / 1024**2:.1f} MB ({size} bytes), over the limit of "
+        f"{limit / 1024**2:.1f} MB ({limit} bytes)."
+    )
+
+
+def _kind_hint(raw: bytes) -> str:
+    for magic, kind in _SIGNATURES:
+        if raw.startswith(magic):
+            return f" It looks like {kind}."
+    return ""
+
+
+def _check_options(filename, below_limit, bad_cells, roles, mostly_missing) -> None:
+    if below_limit not in BELOW_LIMIT_POLICIES:
+        raise IntakeError(f"below_limit must be one of {', '.join(BELOW_LIMIT_POLICIES)}, not {below_limit!r}.")
+    if bad_cells not in BAD_CELL_POLICIES:
+        raise IntakeError(f"bad_cells must be one of {', '.join(BAD_CELL_POLICIES)}, not {bad_cells!r}.")
+    for col, role in (roles or {}).items():
+        if role not in ROLES:
+            raise IntakeError(f"role {role!r} for column {col!r} is not one of {', '.join(ROLES)}.")
+    if not 0 < mostly_missing <= 1:
+        raise IntakeError(f"mostly_missing must be a fraction in (0, 1], not {mostly_missing!r}.")
+
+
+def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: str, mostly_missing: float):
+    frame, rows = grid.frame, grid.row_numbers
+    report = IntakeReport(
+        filename=filename, file_type=grid.file_type, encoding=grid.encoding, delimiter=grid.delimiter,
+        decimal=grid.decimal, sheet=grid.sheet, header_row=grid.header_row, below_limit_policy=below_limit,
+    )
+    unknown = [c for c in roles if c not in frame.columns]
+    if unknown:
+        raise IntakeError(
+            f"{filename}: no column named {', '.join(map(repr, unknown))} in the header (row {grid.header_row}); "
+            f"the columns are: {', '.join(map(repr, frame.columns[:30]))}."
+        )
+    if frame.shape[0] == 0:
+        raise IntakeError(f"{filename}: has a header (row {grid.header_row}) but no data rows.")
+
+    def where(col: str) -> str:
+        return f"column {col!r} ({grid.letters[col]})"
+
+    # Decide roles; text columns are kept as raw cells until the end.
+    decided: dict[str, str] = {}
+    numbers: dict[str, np.ndarray] = {}
+    parses = {}
+    for col in frame.columns:
+        series = frame[col]
+        if col in roles:
+            decided[col] = roles[col]
+        elif _is_numeric(series):
+            decided[col] = "variable"
+        elif _looks_like_numbers(series, grid.decimal):
+            decided[col] = "variable"
+        else:
+            decided[col] = "metadata"
+        if decided[col] == "variable":
+            if _is_numeric(series):
+                values = series.to_numpy(dtype=np.float64)
+                parses[col] = None
+            else:
+                parses[col] = parse_column(series.to_numpy(dtype=object), grid.decimal, below_limit)
+                values = parses[col].values
+            numbers[col] = values
+    # Fully blank rows and columns (trailing separators, blank lines) vanish silently.
+    blank_row = frame.isna().all(axis=1).to_numpy()
+    for col in list(decided):
+        if decided[col] == "variable" and np.isnan(numbers[col][~blank_row]).all() and col not in roles:
+            empty_text = parses[col] is None or not (parses[col].bare_limit or parses[col].bad)
+            if empty_text:
+                decided[col] = "ignore"
+                del numbers[col]
+                if not col.startswith("column "):
+                    report.warnings.append(f"{where(col)} has no values and was left out.")
+        elif decided[col] == "metadata" and _missing_mask(frame[col])[~blank_row].all() and col not in roles:
+            decided[col] = "ignore"
+            if not col.startswith("column "):
+                report.warnings.append(f"{where(col)} has no values and was left out.")
+    keep = ~blank_row
+    rows = rows[keep]
+
+    # Sample ids.
+    id_col = next((c for c, r in decided.items() if r == "id"), None)
+    if id_col is None:
+        id_col = _detect_id(frame, decided, keep, roles)
+        if id_col is not None:
+            decided[id_col] = "id"
+    if id_col is not None:
+        ids = _text(frame[id_col])[keep]
+        _check_ids(ids, rows, id_col, where(id_col), filename)
+    else:
+        ids = np.array([f"row {r}" for r in rows], dtype=object)
+    report.id_column = id_col
+    report.roles = dict(decided)
+
+    # Numbers: bad cells, infinities, counts.
+    variables = [c for c, r in decided.items() if r == "variable"]
+    problems = []
+    for col in variables:
+        values = numbers[col] if keep.all() else numbers[col][keep]
+        parse = parses[col]
+        if parse is not None:
+            bad = [(p, v, why) for p, v, why in parse.bad if keep[p]]
+        else:
+            inf_pos = np.flatnonzero(np.isinf(numbers[col]) & keep)
+            bad = [(int(p), str(numbers[col][p]), "infinite value") for p in inf_pos]
+        if bad:
+            values = values.copy() if not values.flags.writeable or values is numbers[col] else values
+            pos_in_kept = np.cumsum(keep) - 1
+            for p, v, why in bad:
+                problems.append((int(grid.row_numbers[p]), col, v, why))
+                values[pos_in_kept[p]] = np.nan
+            if bad_cells == "missing":
+                report.warnings.append(
+                    f"{where(col)}: {len(bad)} cell(s) that are not numbers read as missing "
+                    f"(first: row {grid.row_numbers[bad[0][0]]}, {bad[0][1]!r})."
+                )
+        numbers[col] = values
+        if parse is not None:
+            _count_parse(report, col, where(col), parse, below_limit)
+    if problems and bad_cells == "error":
+        problems.sort()
+        listed = "; ".join(
+            f"row {r}, {where(c)}: {v!r} ({why})" for r, c, v, why in problems[:MAX_LISTED]
+        )
+        more = f"; and {len(problems) - MAX_LISTED} more" if len(problems) > MAX_LISTED else ""
+        raise IntakeError(
+            f"{filename}: {len(problems)} cell(s) in numeric columns are not numbers: {listed}{more}. "
+            "Correct them, or read them as missing (bad cells: missing)."
+        )
+    if not variables:
+        raise IntakeError(
+            f"{filename}: no numeric variables found; at least 2 are needed. "
+            f"Columns read as text: {', '.join(map(repr, list(frame.columns)[:20]))}."
+        )
+    data = pd.DataFrame(numbers, columns=variables, copy=False)
+    data.index = pd.Index(ids, dtype=object, name=id_col or "sample")
+    metadata_cols = [c for c, r in decided.items() if r == "metadata"]
+    metadata = pd.DataFrame({c: _text(frame[c])[keep] for c in metadata_cols}, index=data.index, columns=metadata_cols)
+
+    # Rows where every variable is missing are left out, with a warning.
+    data_missing = data.isna()
+    empty = data_missing.all(axis=1).to_numpy()
+    if empty.any():
+        report.dropped_rows = [int(r) for r in rows[empty]]
+        shown = ", ".join(str(r) for r in report.dropped_rows[:MAX_LISTED])
+        report.warnings.append(
+            f"{int(empty.sum())} row(s) with no numeric values were left out (rows {shown}"
+            + (", ..." if empty.sum() > MAX_LISTED else "") + ")."
+        )
+        data, metadata, data_missing = data[~empty], metadata[~empty], data_missing[~empty]
+    if data.shape[0] < 3:
+        raise IntakeError(f"{filename}: only {data.shape[0]} sample(s) with numeric values; at least 3 are needed.")
+    if data.shape[1] < 2:
+        raise IntakeError(
+            f"{filename}: only {data.shape[1]} numeric variable ({', '.join(map(repr, variables))}); at least 2 "
+            f"are needed. Text columns: {', '.join(map(repr, metadata_cols[:20])) or 'none'}."
+        )
+    _warn_about_values(report, data, data_missing, where, mostly_missing)
+    report.missing_counts = {c: int(n) for c, n in data_missing.sum().items()}
+    report.units = {c: u for c, u in grid.units.items() if c in numbers}
+    report.n_samples, report.n_variables = data.shape
+    table = Table(data=data, metadata=metadata, units=dict(report.units), id_column=id_col)
+    return table, report
+
+
+def _is_numeric(series: pd.Series) -> bool:
+    return pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(series.dtype)
+
+
+def _missing_mask(series: pd.Series) -> np.ndarray:
+    """True where a cell is blank, NaN or a missing-value marker."""
+    marker = series.astype(str).str.strip().str.lower().isin(MISSING_MARKERS)
+    return (series.isna() | marker).to_numpy(dtype=bool)
+
+
+def _looks_like_numbers(series: pd.Series, decimal: str) -> bool:
+    """Classify a text column from a sample of its filled cells: numbers if half or more read as numbers."""
+    cells = series.dropna()
+    if len(cells) > CLASSIFY_SAMPLE:
+        cells = cells.sample(CLASSIFY_SAMPLE, random_state=0)
+    cells = [c for c in cells.astype(object) if not (isinstance(c, str) and c.strip().lower() in MISSING_MARKERS)]
+    if not cells:
+        return True  # nothing but missing markers: an empty variable
+    return sum(looks_numeric(c, decimal) for c in cells) >= 0.5 * len(cells)
+
+
+def _text(series: pd.Series) -> np.ndarray:
+    """Cells as stripped strings (None for missing); whole numbers lose their '.0'."""
+    if pd.api.types.is_string_dtype(series.dtype):
+        stripped = series.str.strip()
+        out = stripped.to_numpy(dtype=object, na_value=None)
+        out[_missing_mask(stripped)] = None
+        return out
+    out = np.empty(len(series), dtype=object)
+    for i, c in enumerate(series.astype(object).to_numpy()):
+        if c is None or (isinstance(c, float) and math.isnan(c)):
+            out[i] = None
+        elif isinstance(c, float) and c.is_integer():
+            out[i] = str(int(c))
+        else:
+            text = str(c).strip()
+            out[i] = None if text.lower() in MISSING_MARKERS else text
+    return out
+
+
+def _detect_id(frame: pd.DataFrame, decided: dict, keep: np.ndarray, roles: dict) -> str | None:
+    """First metadata column (not named by the user) whose values are all present and unique.
+
+    A first column named like an id ("Sample ID", "Code", ...) or holding
+    nearly unique text (at least 80% distinct) is taken as the id column too,
+    so that a duplicated id is reported, not hidden.
+    """
+    for j, col in enumerate(frame.columns):
+        if decided[col] != "metadata" or col in roles:
+            continue
+        series = frame[col][keep]
+        stripped = series.astype(str).str.strip()
+        if series.isna().any() or stripped.str.lower().isin(MISSING_MARKERS).any():
+            continue
+        if stripped.is_unique or (j == 0 and (_ID_NAME.match(col) or stripped.nunique() >= 0.8 * len(stripped))):
+            return col
+    return None
+
+
+def _check_ids(ids: np.ndarray, rows: np.ndarray, col: str, where: str, filename: str) -> None:
+    empty = [int(r) for r in rows[pd.isna(ids)]]
+    if empty:
+        listed = ", ".join(map(str, empty[:MAX_LISTED])) + (", ..." if len(empty) > MAX_LISTED else "")
+        raise IntakeError(f"{filename}: {len(empty)} sample id(s) missing in {where}: rows {listed}.")
+    index = pd.Index(ids)
+    if index.is_unique:
+        return
+    dup_mask = index.duplicated(keep=False)
+    groups: dict[str, list[int]] = {}
+    for v, r in zip(ids[dup_mask], rows[dup_mask]):
+        groups.setdefault(v, []).append(int(r))
+    listed = "; ".join(
+        f"{v!r} (rows {', '.join(map(str, rs[:5]))}{', ...' if len(rs) > 5 else ''})"
+        for v, rs in list(groups.items())[:MAX_LISTED]
+    )
+    more = f"; and {len(groups) - MAX_LISTED} more" if len(groups) > MAX_LISTED else ""
+    raise IntakeError(f"{filename}: duplicate sample ids in {where}: {listed}{more}. Each sample needs its own id.")
+
+
+def _count_parse(report: IntakeReport, col: str, where: str, parse, policy: str) -> None:
+    if parse.below:
+        report.below_limit_counts[col] = parse.below
+        report.warnings.append(
+            f"{where}: {parse.below} value(s) below a detection limit replaced by {_POLICY_TEXT[policy]}."
+        )
+    if parse.above:
+        report.above_range_counts[col] = parse.above
+        report.warnings.append(f"{where}: {parse.above} value(s) above the range ('> x') kept as the bound x.")
+    if parse.bare_limit:
+        report.warnings.append(
+            f"{where}: {parse.bare_limit} value(s) below a detection limit without a number ('<LOD') read as missing."
+        )
+    if parse.mixed:
+        report.warnings.append(
+            f"{where}: mixes decimal marks; {parse.mixed} value(s) written with the other mark than "
+            f"'{report.decimal}' were read as decimals. Please check them."
+        )
+
+
+def _warn_about_values(report, data: pd.DataFrame, missing: pd.DataFrame, where, mostly_missing: float) -> None:
+    lowest, highest = data.min(), data.max()
+    for c in data.columns[(lowest == highest).to_numpy()]:
+        report.warnings.append(f"{where(c)} is constant; it cannot be autoscaled.")
+    frac_col = missing.mean(axis=0)
+    for c, f in frac_col.items():
+        if f > mostly_missing:
+            report.warnings.append(f"{where(c)} is {f:.0%} missing.")
+    frac_row = missing.mean(axis=1).to_numpy()
+    mostly = np.flatnonzero(frac_row > mostly_missing)
+    if len(mostly):
+        shown = ", ".join(repr(str(s)) for s in data.index[mostly[:MAX_LISTED]])
+        report.warnings.append(
+            f"{len(mostly)} sample(s) have more than {mostly_missing:.0%} of their values missing: {shown}"
+            + (", ..." if len(mostly) > MAX_LISTED else "") + "."
+        )

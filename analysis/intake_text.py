@@ -1,0 +1,212 @@
+"""Delimited text (CSV, TSV, semicolon or pipe separated) -> Grid.
+
+Owns encoding detection (UTF-8 with or without BOM, UTF-16, cp1252 /
+Latin-1 fallback), refusing binary content, delimiter detection from a
+sample, and the fast path: pandas' C parser over the whole byte string,
+so only columns that did not parse as numbers are read cell by cell later.
+"""
+
+from __future__ import annotations
+
+import codecs
+import csv
+import io
+import re
+from collections import Counter
+
+import numpy as np
+import pandas as pd
+
+from analysis.intake_cells import MISSING_MARKERS, PANDAS_NA_VALUES
+from analysis.intake_layout import (
+    Grid,
+    IntakeError,
+    column_letter,
+    column_names,
+    find_header,
+    find_units_row,
+    guess_decimal,
+    is_comment_row,
+)
+
+SAMPLE_BYTES = 64 * 1024
+SAMPLE_LINES = 200
+DELIMITERS = (",", ";", "\t", "|")
+_DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
+_LINE_BREAK = re.compile(r"\r\n|\n|\r")
+# A line starting with '#' is a comment unless it starts with a spreadsheet error marker.
+_COMMENT_LINE = re.compile(
+    rb"(?m)^#(?!N/A|NA\b|VALUE!|DIV/0!|NUM!|REF!|NAME\?|NULL!|CALC!|SPILL!)[^\r\n]*"
+)
+
+
+def decode(raw: bytes, filename: str) -> tuple[str, bytes, str, str]:
+    """Pick the encoding; returns (encoding name, bytes for pandas, pandas encoding, sample text)."""
+    if raw.startswith(codecs.BOM_UTF8):
+        name, text = "utf-8-sig", None
+    elif raw.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)) or _looks_utf16(raw):
+        name = "utf-16" if raw.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)) else _utf16_order(raw)
+        try:
+            text = raw.decode(name)
+        except UnicodeDecodeError as exc:
+            raise IntakeError(
+                f"{filename}: looks like UTF-16 text but byte {exc.start} cannot be decoded; "
+                "the file is damaged or not text."
+            ) from None
+        return name, text.lstrip("\ufeff").encode("utf-8"), "utf-8", text[: SAMPLE_BYTES // 2]
+    else:
+        name, text = "utf-8", None
+    nul = raw.find(b"\x00")
+    if nul >= 0:
+        raise IntakeError(
+            f"{filename}: contains binary data (a NUL byte at byte {nul}); it is not a text table. "
+            "Upload a CSV, TSV or XLSX file."
+        )
+    if raw.isascii():
+        return "utf-8", raw, "utf-8", raw[:SAMPLE_BYTES].decode("ascii")
+    try:
+        raw.decode("utf-8")
+        return name, raw, name, raw[:SAMPLE_BYTES].decode(name, errors="ignore")
+    except UnicodeDecodeError:
+        pass
+    try:
+        text = raw.decode("cp1252")
+        name = "cp1252"
+    except UnicodeDecodeError:
+        text = raw.decode("latin-1")
+        name = "latin-1"
+    return name, text.encode("utf-8"), "utf-8", text[:SAMPLE_BYTES]
+
+
+def _looks_utf16(raw: bytes) -> bool:
+    head = raw[:2000]
+    if len(head) < 4:
+        return False
+    even, odd = head[0::2], head[1::2]
+    return max(even.count(0) / len(even), odd.count(0) / len(odd)) > 0.4 and min(even.count(0), odd.count(0)) < 0.05 * len(odd)
+
+
+def _utf16_order(raw: bytes) -> str:
+    head = raw[:2000]
+    return "utf-16-le" if head[1::2].count(0) > head[0::2].count(0) else "utf-16-be"
+
+
+def refuse_binary(sample: str, filename: str) -> None:
+    """Control characters in more than 1% of the sample mean it is not text."""
+    if not sample:
+        return
+    bad = sum(1 for ch in sample if (ord(ch) < 32 and ch not in "\t\n\r\f") or 0x7F <= ord(ch) <= 0x9F or ch == "\ufffd")
+    if bad > 0.01 * len(sample):
+        raise IntakeError(
+            f"{filename}: does not look like a text table ({bad} control characters in the first "
+            f"{len(sample)} characters); it may be binary data. Upload a CSV, TSV or XLSX file."
+        )
+
+
+def detect_delimiter(lines: list[str], filename: str) -> str:
+    """The candidate that splits most sample lines into the same number (>= 2) of fields."""
+    lines = [ln for ln in lines if ln.strip() and not ln.lstrip().startswith("#")]
+    best, best_key = None, None
+    for d in DELIMITERS:
+        counts = [len(r) for r in csv.reader(lines, delimiter=d)]
+        if not counts:
+            continue
+        mode, hits = Counter(counts).most_common(1)[0]
+        key = (mode >= 2, round(hits / len(counts), 2), mode)
+        if mode >= 2 and (best_key is None or key > best_key):
+            best, best_key = d, key
+    if best is None:
+        head = lines[0][:60] if lines else ""
+        if head.lstrip().lower().startswith(("<!doctype", "<html", "<?xml")):
+            raise IntakeError(f"{filename}: looks like a web page or XML document, not a table.")
+        raise IntakeError(
+            f"{filename}: no columns found: no comma, semicolon, tab or pipe splits the lines into "
+            f"two or more fields (first line: {head!r})."
+        )
+    return best
+
+
+def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns: int) -> Grid:
+    """Read delimited text into a Grid (numbers typed by pandas, other cells as text)."""
+    encoding, data, pandas_encoding, sample = decode(raw, filename)
+    refuse_binary(sample, filename)
+    lines = _LINE_BREAK.split(sample)
+    if len(sample) >= SAMPLE_BYTES // 2 and len(lines) > 1:
+        lines = lines[:-1]  # the last line of a sample may be cut short
+    lines = lines[:SAMPLE_LINES]
+    delimiter = detect_delimiter(lines, filename)
+    rows = [next(csv.reader([ln], delimiter=delimiter), []) for ln in lines]
+    header = find_header(rows, filename)
+    body = [c for r in rows[header + 1 :] if not is_comment_row(r) for c in r]
+    decimal = guess_decimal(body)
+    units_at = find_units_row(rows, header, decimal)
+    width = max(len(r) for r in rows[header:])
+    if width > max_columns:
+        raise IntakeError(
+            f"{filename}: row {header + 1} has {width} columns, more than the limit of {max_columns}."
+        )
+    names = column_names(rows[header], width, filename, header + 1)
+    units = {}
+    if units_at is not None:
+        units = {n: u.strip() for n, u in zip(names, rows[units_at]) if u.strip() and u.strip().lower() not in MISSING_MARKERS}
+    skip = (units_at if units_at is not None else header) + 1
+    if b"\n#" in data:
+        data = _COMMENT_LINE.sub(b"", data)
+    try:
+        frame = pd.read_csv(
+            io.BytesIO(data),
+            sep=delimiter,
+            decimal=decimal,
+            header=None,
+            names=names,
+            skiprows=skip,
+            skip_blank_lines=False,
+            keep_default_na=False,
+            na_values=PANDAS_NA_VALUES,
+            dtype={n: str for j, n in enumerate(names) if n in text_columns or j >= len(rows[header])},
+            encoding=pandas_encoding,
+            engine="c",
+            index_col=False,
+        )
+    except (pd.errors.ParserError, ValueError, OverflowError) as exc:
+        raise _parser_error(exc, filename, delimiter, header + 1, width) from None
+    _refuse_unnamed_values(frame, names[len(rows[header]):], skip, filename, header + 1, len(rows[header]))
+    return Grid(
+        frame=frame,
+        row_numbers=np.arange(skip + 1, skip + 1 + len(frame), dtype=np.int64),
+        letters={n: column_letter(j) for j, n in enumerate(names)},
+        header_row=header + 1,
+        file_type="csv",
+        decimal=decimal,
+        units=units,
+        encoding=encoding,
+        delimiter=delimiter,
+    )
+
+
+def _parser_error(exc: Exception, filename: str, delimiter: str, header_row: int, width: int) -> IntakeError:
+    text = str(exc)
+    m = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", text)
+    if m:
+        return IntakeError(
+            f"{filename}: row {m.group(2)} has {m.group(3)} fields but the header (row {header_row}) has "
+            f"{width}; check the {_DELIMITER_NAMES[delimiter]} separators and quotes on that row."
+        )
+    m = re.search(r"EOF inside string starting (?:at|on) (?:row|line) (\d+)", text)
+    if m:
+        return IntakeError(f"{filename}: a quote opened near row {int(m.group(1)) + 1} is never closed.")
+    first = text.strip().splitlines()[0] if text.strip() else type(exc).__name__
+    return IntakeError(f"{filename}: could not be read as a {_DELIMITER_NAMES[delimiter]}-separated table ({first}).")
+
+
+def _refuse_unnamed_values(frame, extra: list[str], skip: int, filename: str, header_row: int, named: int) -> None:
+    """Fields beyond the header are fine when empty (trailing separators); values there are misaligned."""
+    for name in extra:
+        filled_at = np.flatnonzero(frame[name].notna().to_numpy())
+        if len(filled_at):
+            row = skip + 1 + int(filled_at[0])
+            value = frame[name].iloc[filled_at[0]]
+            raise IntakeError(
+                f"{filename}: row {row} has a value ({value!r}) in {name}, beyond the {named} columns "
+                f"of the header (row {header_row}); check the separators and quotes on that row."
+            )

@@ -1,0 +1,354 @@
+"""Intake of realistic messy files, each parsed back to the numbers that were written.
+
+Every file is made here, from a known table of numbers, in the way a lab or
+survey tool would write it (delimiters, decimal marks, encodings, title rows,
+units rows, detection limits, missing markers). The expected values are the
+numbers we wrote, never intake's own output.
+
+Conventions checked are facts of the trade (common practice): European lab
+exports write ';' and a decimal comma; "<0.05" is a value below a detection
+limit, replaced by LOD/2 or LOD/sqrt(2) for multivariate screening.
+"""
+
+from __future__ import annotations
+
+import codecs
+import io
+import math
+
+import numpy as np
+import openpyxl
+import pytest
+
+from analysis.errors import InputError
+from analysis.intake import IntakeError, IntakeReport, read_path, read_table
+from analysis.table import Table
+
+IDS = ["QC-001", "QC-002", "QC-003", "QC-004", "QC-005"]
+SITES = ["Basin A", "Basin B", "Basin A", "Basin C", "Basin B"]
+VARIABLES = ["Lead µg/L", "Cadmium µg/L", "Turbidity NTU"]
+VALUES = np.array(
+    [
+        [12.5, 0.31, 1234.5],
+        [0.75, 0.08, 987.25],
+        [3.0, 1.2, 15.0],
+        [101.25, 0.5, 2500.0],
+        [7.125, 0.02, 0.5],
+    ]
+)
+
+
+def _eu(x: float) -> str:
+    """A number as a European LIMS writes it: decimal comma, '.' grouping thousands."""
+    whole, _, frac = f"{x:.6f}".rstrip("0").rstrip(".").partition(".")
+    grouped = f"{int(whole):,}".replace(",", ".")
+    return grouped + ("," + frac if frac else "")
+
+
+def _check_table(table: Table, values=VALUES, ids=IDS, variables=VARIABLES):
+    assert table.sample_ids == ids
+    assert table.variables == variables
+    np.testing.assert_allclose(table.values, values, rtol=0, atol=1e-12)
+
+
+# --- the corpus ---------------------------------------------------------------------------
+
+
+def test_european_lims_export_semicolon_decimal_comma_thousands_and_comments():
+    # common practice: ';' delimiter, ',' decimal mark, '.' thousands, comment lines on top.
+    lines = ["# LIMS export, lab 2", "# exported by: system"]
+    lines.append(";".join(["Sample ID", "Site", *VARIABLES]))
+    for sid, site, row in zip(IDS, SITES, VALUES):
+        lines.append(";".join([sid, site, *(_eu(v) for v in row)]))
+    raw = ("\r\n".join(lines) + "\r\n").encode("utf-8")
+    table, report = read_table(raw, "lims_export.csv")
+    _check_table(table)
+    assert table.metadata["Site"].tolist() == SITES
+    assert table.id_column == "Sample ID"
+    assert (report.delimiter, report.decimal, report.header_row) == (";", ",", 3)
+    assert report.roles == {"Sample ID": "id", "Site": "metadata", **{v: "variable" for v in VARIABLES}}
+
+
+def test_survey_export_with_units_row_and_missing_markers():
+    header = "respondent,age,income,score"
+    units = ",years,EUR,points"
+    rows = ["R1,34,\"52,000\",7", "R2,NA,\"48,500.50\",8", "R3,29,N/A,-", "R4,41,\"61,250\",9", "R5,?,\"39,900\",6"]
+    raw = "\n".join([header, units, *rows]).encode()
+    table, report = read_table(raw, "survey.csv")
+    expected = np.array(
+        [[34, 52000, 7], [np.nan, 48500.5, 8], [29, np.nan, np.nan], [41, 61250, 9], [np.nan, 39900, 6]], dtype=float
+    )
+    _check_table(table, expected, ["R1", "R2", "R3", "R4", "R5"], ["age", "income", "score"])
+    assert report.units == {"age": "years", "income": "EUR", "score": "points"}
+    assert report.missing_counts == {"age": 2, "income": 1, "score": 1}
+    # header = row 1, units = row 2, so the first sample is spreadsheet row 3
+    raw_bad = "\n".join([header, units, "R1,34,1,oops", *rows[1:]]).encode()
+    with pytest.raises(IntakeError, match=r"row 3, column 'score' \(D\): 'oops'"):
+        read_table(raw_bad, "survey.csv")
+
+
+def test_spreadsheet_title_row_above_header_counts_in_row_numbers():
+    lines = ["Water quality, quarter 3,,,,", ",,,,", "Sample ID,Site," + ",".join(VARIABLES)]
+    for sid, site, row in zip(IDS, SITES, VALUES):
+        lines.append(",".join([sid, site, *(repr(float(v)) for v in row)]))
+    table, report = read_table("\n".join(lines).encode(), "titled.csv")
+    _check_table(table)
+    assert report.header_row == 3
+    lines[5] = lines[5].replace("3.0", "3,,0").replace(",,0", "..0")  # QC-003, spreadsheet row 6
+    with pytest.raises(IntakeError, match=r"row 6, column 'Lead µg/L' \(C\): '3\.\.0'"):
+        read_table("\n".join(lines).encode(), "titled.csv")
+
+
+def _tab_text(decimal=","):
+    lines = ["\t".join(["Sample ID", "Site", *VARIABLES])]
+    for sid, site, row in zip(IDS, SITES, VALUES):
+        cells = [repr(float(v)).replace(".", decimal) for v in row]
+        lines.append("\t".join([sid, site, *cells]))
+    return "\r\n".join(lines) + "\r\n"
+
+
+@pytest.mark.parametrize("codec", ["utf-16", "utf-16-le", "utf-16-be"])
+def test_utf16_unicode_text_export(codec):
+    raw = _tab_text().encode(codec)
+    if codec == "utf-16-le":
+        raw = codecs.BOM_UTF16_LE + raw  # spreadsheet "Unicode text" writes a BOM
+    table, report = read_table(raw, "unicode_text.txt")
+    _check_table(table)
+    assert report.encoding.startswith("utf-16")
+    assert report.delimiter == "\t"
+
+
+def test_utf16_without_bom_is_recognised():
+    table, report = read_table(_tab_text(".").encode("utf-16-le"), "nobom.txt")
+    _check_table(table)
+    assert report.encoding == "utf-16-le"
+
+
+def test_cp1252_file_keeps_micro_sign_in_header():
+    raw = _tab_text().replace("\t", ";").encode("cp1252")
+    assert b"\xb5g/L" in raw  # the micro sign as one cp1252 byte
+    table, report = read_table(raw, "latin.csv")
+    _check_table(table)
+    assert report.encoding == "cp1252"
+    assert "Lead µg/L" in table.variables
+
+
+def test_utf8_with_bom():
+    raw = codecs.BOM_UTF8 + _tab_text(".").replace("\t", ",").encode("utf-8")
+    table, report = read_table(raw, "bom.csv")
+    _check_table(table)
+    assert table.id_column == "Sample ID"  # the BOM is not glued to the first name
+
+
+@pytest.mark.parametrize("delimiter", [",", ";", "\t", "|"])
+def test_every_delimiter(delimiter):
+    lines = [delimiter.join(["Sample ID", *VARIABLES])]
+    for sid, row in zip(IDS, VALUES):
+        lines.append(delimiter.join([sid, *(repr(float(v)) for v in row)]))
+    table, report = read_table("\n".join(lines).encode(), "t.csv")
+    _check_table(table)
+    assert report.delimiter == delimiter
+
+
+def test_detection_limits_policies_and_above_range():
+    raw = (
+        "id;A;B\n"
+        "s1;<0,05;1\n"
+        "s2;< 0,2;2\n"
+        "s3;0,4;> 1000\n"
+        "s4;<LOD;3\n"
+        "s5;1,5;>1.000\n"
+    ).encode()
+    expected_a = {"half": [0.025, 0.1], "sqrt2": [0.05 / math.sqrt(2), 0.2 / math.sqrt(2)], "missing": [np.nan, np.nan]}
+    for policy, first_two in expected_a.items():
+        table, report = read_table(raw, "lod.csv", below_limit=policy)
+        np.testing.assert_allclose(table.data["A"].to_numpy(), [*first_two, 0.4, np.nan, 1.5], atol=1e-15)
+        np.testing.assert_allclose(table.data["B"].to_numpy(), [1, 2, 1000, 3, 1000])
+        assert report.below_limit_counts == {"A": 2}
+        assert report.above_range_counts == {"B": 2}
+        assert report.below_limit_policy == policy
+        assert any("'<LOD'" in w for w in report.warnings)
+        assert any("kept as the bound" in w for w in report.warnings)
+
+
+def test_mixed_decimal_marks_warn():
+    raw = "id;x;y\na;0,5;1\nb;0.75;2\nc;1,25;4\n".encode()
+    table, report = read_table(raw, "mixed.csv")
+    np.testing.assert_allclose(table.data["x"], [0.5, 0.75, 1.25])
+    assert any("mixes decimal marks" in w and "'x'" in w for w in report.warnings)
+
+
+def test_space_and_apostrophe_thousands():
+    raw = "id;x;y\na;1 234,5;1\nb;12\u00a0000;2\nc;2'500,25;4\n".encode()
+    table, _ = read_table(raw, "groups.csv")
+    np.testing.assert_allclose(table.data["x"], [1234.5, 12000, 2500.25])
+
+
+def test_xlsx_with_title_units_formula_and_text_limits():
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.title = "Results"
+    ws.append(["Quarterly results, invented site"])
+    ws.append([])
+    ws.append(["Sample ID", "Site", *VARIABLES])
+    ws.append([None, None, "µg/L", "µg/L", "NTU"])
+    for sid, site, row in zip(IDS, SITES, VALUES):
+        ws.append([sid, site, *map(float, row)])
+    ws["D6"] = "<0.16"  # QC-002 cadmium: a text cell, below a limit of 0.16 -> 0.08 with LOD/2
+    ws["C9"] = "=1+1"  # a formula without a cached value: never evaluated -> missing
+    wb.create_sheet("Notes").append(["nothing here"])
+    buf = io.BytesIO()
+    wb.save(buf)
+    table, report = read_table(buf.getvalue(), "results.xlsx")
+    expected = VALUES.copy()
+    expected[4, 0] = np.nan  # C9 = QC-005 lead
+    _check_table(table, expected)
+    assert report.file_type == "xlsx" and report.sheet == "Results" and report.header_row == 3
+    assert report.units == {"Lead µg/L": "µg/L", "Cadmium µg/L": "µg/L", "Turbidity NTU": "NTU"}
+    assert report.below_limit_counts == {"Cadmium µg/L": 1}
+    with pytest.raises(IntakeError, match="no sheet named 'Missing'.*'Results', 'Notes'"):
+        read_table(buf.getvalue(), "results.xlsx", sheet="Missing")
+
+
+def test_xlsx_named_sheet_and_numeric_ids_as_given():
+    wb = openpyxl.Workbook()
+    wb.active.append(["cover page"])
+    ws = wb.create_sheet("Data")
+    ws.append(["Batch", "x", "y"])
+    for b, x, y in [(101, 1.0, 2.0), (102, 3.0, 5.0), (103, 4.0, 4.5)]:
+        ws.append([b, x, y])
+    buf = io.BytesIO()
+    wb.save(buf)
+    table, report = read_table(buf.getvalue(), "b.xlsx", sheet="Data", id_column="Batch")
+    assert table.sample_ids == ["101", "102", "103"]
+    np.testing.assert_allclose(table.values, [[1, 2], [3, 5], [4, 4.5]])
+
+
+def test_no_id_column_generates_row_ids():
+    table, report = read_table(b"a,b\n1,2\n3,4\n5,7\n", "plain.csv")
+    assert table.sample_ids == ["row 2", "row 3", "row 4"]
+    assert table.id_column is None and report.id_column is None
+
+
+def test_id_column_given_keeps_leading_zeros_and_group_columns_are_metadata():
+    raw = b"code,line,a,b\n007,1,1.5,2\n008,2,2.5,3\n009,1,3.5,5\n"
+    table, report = read_table(raw, "codes.csv", id_column="code", group_columns=["line"])
+    assert table.sample_ids == ["007", "008", "009"]
+    assert table.metadata["line"].tolist() == ["1", "2", "1"]
+    assert report.roles == {"code": "id", "line": "metadata", "a": "variable", "b": "variable"}
+
+
+def test_roles_override_and_ignore():
+    raw = b"id,a,b,c,d,comment\nx,1,2,9,1,ok\ny,2,3,9,0,ok\nz,4,4,9,1,no\n"
+    table, report = read_table(raw, "r.csv", roles={"c": "ignore", "b": "metadata", "comment": "ignore"})
+    assert table.variables == ["a", "d"]
+    assert table.metadata_columns == ["b"]
+    assert report.roles == {"id": "id", "a": "variable", "b": "metadata", "c": "ignore", "d": "variable", "comment": "ignore"}
+
+
+def test_all_missing_rows_dropped_and_blank_lines_ignored():
+    raw = b"id,a,b\nx,1,2\n\ny,NA,-\nz,3,4\nw,5,7\n,,\n"
+    table, report = read_table(raw, "gaps.csv")
+    assert table.sample_ids == ["x", "z", "w"]
+    assert report.dropped_rows == [4]
+    assert any("left out" in w and "rows 4" in w for w in report.warnings)
+
+
+def test_read_path_uses_base_name(tmp_path):
+    path = tmp_path / "plant_7.csv"
+    path.write_bytes(b"id,a,b\nx,1,2\ny,2,3\nz,4,6\n")
+    table, report = read_path(path)
+    assert report.filename == "plant_7.csv"
+    path.write_bytes(b"")
+    with pytest.raises(IntakeError, match=r"^plant_7\.csv: the file is empty"):
+        read_path(path)
+
+
+def test_report_is_json_safe():
+    import json
+
+    _, report = read_table("id;a;b\nx;<1;2\ny;2;3\nz;4;> 6\n".encode(), "r.csv")
+    assert isinstance(report, IntakeReport)
+    assert json.loads(json.dumps(report.to_dict())) == report.to_dict()
+
+
+# --- refusals ------------------------------------------------------------------------------
+
+
+def test_intake_error_is_an_input_error():
+    assert issubclass(IntakeError, InputError)
+
+
+@pytest.mark.parametrize(
+    "raw, name, pattern",
+    [
+        (b"", "e.csv", r"e\.csv: the file is empty"),
+        (b"id,a,b\n", "h.csv", r"h\.csv: has a header \(row 1\) but no data rows"),
+        (b"\x89PNG\r\n\x1a\n" + bytes(100), "photo.csv", r"photo\.csv: is a PNG image, not a table"),
+        (b"id,a\x00,b\n1,2,3\n", "nul.csv", r"nul\.csv: contains binary data \(a NUL byte at byte 4\)"),
+        (b"just some words\nand more words\n", "prose.csv", r"prose\.csv: no columns found"),
+        (b"id,a,b\nx,1,2\ny,2,3\n", "two.csv", r"two\.csv: only 2 sample\(s\).*at least 3"),
+        (b"id,a,t\nx,1,p\ny,2,q\nz,3,r\n", "one.csv", r"one\.csv: only 1 numeric variable \('a'\); at least 2"),
+        (b"id,a,a\nx,1,2\n", "dupcol.csv", r"names a column twice: 'a' \(columns B and C\)"),
+        (b"id,a,b\nx,1,2\ny,1,2,3,4\nz,1,1\n", "ragged.csv", r"ragged\.csv: row 3 has a value \('3'\) in column D, beyond the 3 columns"),
+        (b"id,a,b\n" + b"x,1,2\n" * 300 + b"y,1,2,3,4\n", "late.csv", r"late\.csv: row 302 has 5 fields but the header \(row 1\) has 3"),
+        (b"not a zip at all", "fake.xlsx", r"fake\.xlsx: is not a valid XLSX file"),
+        (b"PK\x03\x04" + bytes(60), "broken.xlsx", r"broken\.xlsx: is not a valid XLSX file"),
+    ],
+)
+def test_refusals_name_file_and_problem(raw, name, pattern):
+    with pytest.raises(IntakeError, match=pattern):
+        read_table(raw, name)
+
+
+def test_size_and_column_limits():
+    raw = b"id,a,b\nx,1,2\ny,2,3\nz,4,6\n"
+    with pytest.raises(IntakeError, match=rf"over the limit of .*\({len(raw) - 1} bytes\)"):
+        read_table(raw, "big.csv", max_bytes=len(raw) - 1)
+    with pytest.raises(IntakeError, match=r"row 1 has 3 columns, more than the limit of 2"):
+        read_table(raw, "wide.csv", max_columns=2)
+
+
+def test_duplicate_ids_are_named_with_rows():
+    raw = b"Sample ID,a,b\nS1,1,2\nS2,2,3\nS1,4,6\nS3,1,1\nS2,0,0\n"
+    with pytest.raises(IntakeError, match=r"duplicate sample ids in column 'Sample ID' \(A\): 'S1' \(rows 2, 4\); 'S2' \(rows 3, 6\)"):
+        read_table(raw, "d.csv")
+
+
+def test_bad_cells_listed_up_to_ten_then_counted_or_read_as_missing():
+    rows = [f"s{i},{'x' if i < 12 else i},1.5" for i in range(30)]
+    raw = ("id,a,b\n" + "\n".join(rows) + "\ns30,inf,2\n").encode()
+    raw = raw.replace(b"s13,13", b"s13,-Infinity")
+    with pytest.raises(IntakeError) as err:
+        read_table(raw, "typos.csv")
+    message = str(err.value)
+    assert message.startswith("typos.csv: 14 cell(s) in numeric columns are not numbers")
+    assert message.count("row ") == 10 and "and 4 more" in message
+    assert "row 2, column 'a' (B): 'x' (not a number)" in message
+    table, report = read_table(raw.replace(b"x,", b"12..5,"), "typos.csv", bad_cells="missing")
+    assert np.isnan(table.data["a"]).sum() == 14
+    assert any("read as missing" in w for w in report.warnings)
+
+
+def test_warnings_constant_and_mostly_missing():
+    raw = b"id,a,b,c\nx,1,5,NA\ny,2,5,NA\nz,4,5,1\nw,3,5,NA\n"
+    _, report = read_table(raw, "w.csv")
+    assert any("'b' (C) is constant" in w for w in report.warnings)
+    assert any("'c' (D) is 75% missing" in w for w in report.warnings)
+    _, report = read_table(raw, "w.csv", mostly_missing=0.8)
+    assert not any("missing" in w for w in report.warnings)
+
+
+@pytest.mark.parametrize(
+    "options, pattern",
+    [
+        ({"below_limit": "third"}, "below_limit must be one of half, sqrt2, missing"),
+        ({"bad_cells": "drop"}, "bad_cells must be one of error, missing"),
+        ({"roles": {"a": "target"}}, "role 'target' for column 'a'"),
+        ({"id_column": "nope"}, r"no column named 'nope' in the header \(row 1\)"),
+        ({"sheet": "Data"}, "text file without sheets"),
+    ],
+)
+def test_bad_options(options, pattern):
+    with pytest.raises(IntakeError, match=pattern):
+        read_table(b"id,a,b\nx,1,2\ny,2,3\nz,4,6\n", "o.csv", **options)
