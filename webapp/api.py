@@ -1,0 +1,322 @@
+"""The JSON API: ``/health`` and ``/api/v1`` for datasets, models and their tables.
+
+One success shape ``{"ok": true, ...}`` and one error shape
+``{"ok": false, "error": {"code", "message"}}`` (DESIGN.md 5, docs/api.md).
+``json_ok`` and ``json_error`` are shared with the review API. Every error
+under ``/api/`` is answered as JSON with a 4xx status for bad input or missing
+rights; a file intake refuses is a 400 with intake's message, never a 500.
+Routes call services only; user text (ids, column names) goes out as JSON
+strings, never as HTML.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from flask import Blueprint, Response, current_app, jsonify, request
+from sqlalchemy import text
+from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
+
+import analysis
+from analysis.errors import InputError
+from webapp.services import ingest, modelling
+from webapp.services.context import max_upload_bytes, session_scope
+from webapp.services.exports import to_csv_bytes
+
+bp = Blueprint("api", __name__)
+
+API_PREFIX = "/api/v1"
+MULTIPART_ALLOWANCE = 1024**2  # room for the multipart envelope around the file
+HTTP_CODES = {
+    400: "bad_request",
+    401: "unauthenticated",
+    403: "forbidden",
+    404: "not_found",
+    405: "method_not_allowed",
+    409: "conflict",
+    413: "too_large",
+    415: "unsupported_media_type",
+    429: "too_many_requests",
+}
+
+
+def jsonable(value: Any) -> Any:
+    """``value`` with numpy types made plain and NaN/inf made null (strict JSON)."""
+    if isinstance(value, dict):
+        return {str(k): jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [jsonable(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return [jsonable(v) for v in value.tolist()]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if value is pd.NA or value is pd.NaT:
+        return None
+    return value
+
+
+def json_ok(status: int = 200, **payload: Any) -> Response:
+    """``{"ok": true, **payload}`` with ``status``."""
+    response = jsonify({"ok": True, **jsonable(payload)})
+    response.status_code = status
+    return response
+
+
+def json_error(code: str, message: str, status: int) -> Response:
+    """``{"ok": false, "error": {"code", "message"}}`` with ``status``."""
+    response = jsonify({"ok": False, "error": {"code": code, "message": str(message)}})
+    response.status_code = status
+    return response
+
+
+def _is_api_path() -> bool:
+    return request.path.startswith("/api/") or request.path == "/health"
+
+
+# --- errors -----------------------------------------------------------------
+
+
+@bp.errorhandler(InputError)
+def _input_error(exc: InputError):
+    return json_error("bad_input", str(exc), 400)
+
+
+@bp.errorhandler(ingest.DatasetNotFound)
+def _no_dataset(exc):
+    return json_error("not_found", f"no dataset with id {exc.args[0]}", 404)
+
+
+@bp.errorhandler(modelling.ModelNotFound)
+def _no_model(exc):
+    return json_error("not_found", f"no model with id {exc.args[0]}", 404)
+
+
+@bp.errorhandler(modelling.SampleNotFound)
+def _no_sample(exc):
+    return json_error("not_found", f"no sample with id {exc.args[0]!r} in this dataset", 404)
+
+
+def _too_large_message() -> str:
+    limit = current_app.config.get("MAX_UPLOAD_MB")
+    return f"the upload is larger than the limit of {limit} MB (LATENTDESK_MAX_UPLOAD_MB)"
+
+
+@bp.errorhandler(RequestEntityTooLarge)
+def _too_large(exc):
+    return json_error("too_large", _too_large_message(), 413)
+
+
+@bp.app_errorhandler(HTTPException)
+def _http_error(exc: HTTPException):
+    """JSON for every HTTP error under /api/ (also unknown routes and methods)."""
+    if not _is_api_path():
+        return exc
+    status = exc.code or 500
+    response = json_error(HTTP_CODES.get(status, "http_error"), exc.description, status)
+    if status == 405 and exc.valid_methods:
+        response.headers["Allow"] = ", ".join(exc.valid_methods)
+    return response
+
+
+@bp.app_errorhandler(500)
+def _internal_error(exc):
+    if not _is_api_path():
+        return exc
+    return json_error("internal", "internal error; the server log has the details", 500)
+
+
+@bp.after_request
+def _no_store(response: Response) -> Response:
+    # Answers hold user data; shared caches and the back-forward cache must not keep them.
+    response.headers.setdefault("Cache-Control", "no-store")
+    return response
+
+
+# --- auth -------------------------------------------------------------------
+
+
+def requires(role: str):
+    """Route decorator: 401 without a user, 403 below ``role`` (``webapp.auth`` decides)."""
+    from webapp import auth
+
+    return auth.role_required(role)
+
+
+def _user_id() -> int:
+    from webapp import auth
+
+    return auth.api_user().id
+
+
+# --- routes -----------------------------------------------------------------
+
+
+@bp.get("/health")
+def health():
+    """Liveness and database check; no sign-in needed."""
+    try:
+        with session_scope() as session:
+            session.execute(text("SELECT 1"))
+    except Exception:  # noqa: BLE001 - report, do not raise: this is the health check
+        current_app.logger.exception("health check: database unreachable")
+        return json_error("database_unavailable", "the database does not answer", 503)
+    return json_ok(version=analysis.__version__, database="ok")
+
+
+def _form_text(name: str) -> str | None:
+    value = request.form.get(name)
+    return value.strip() or None if value is not None else None
+
+
+@bp.post(f"{API_PREFIX}/datasets")
+@requires("analyst")
+def upload_dataset():
+    request.max_content_length = max_upload_bytes() + MULTIPART_ALLOWANCE
+    upload = request.files.get("file")
+    if upload is None:
+        return json_error("bad_input", "send the data file as the multipart field 'file'", 400)
+    raw = upload.read()
+    if len(raw) > max_upload_bytes():
+        return json_error("too_large", _too_large_message(), 413)
+    options = {"id_column": _form_text("id_column"), "sheet": _form_text("sheet")}
+    for name in ("below_limit", "bad_cells"):
+        if _form_text(name):
+            options[name] = _form_text(name)
+    dataset = ingest.ingest_upload(raw, upload.filename or "", _user_id(), **options)
+    return json_ok(status=201, dataset=dataset)
+
+
+@bp.get(f"{API_PREFIX}/datasets")
+@requires("viewer")
+def list_datasets():
+    return json_ok(datasets=ingest.list_datasets())
+
+
+@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>")
+@requires("viewer")
+def get_dataset(dataset_id: int):
+    dataset = ingest.dataset_info(dataset_id)
+    dataset.pop("stored_path", None)  # a server detail, not part of the contract
+    return json_ok(dataset=dataset)
+
+
+def _json_body() -> dict[str, Any]:
+    body = request.get_json(silent=True)
+    if body is None and request.get_data():
+        raise InputError("the request body is not valid JSON")
+    if body is None:
+        return {}
+    if not isinstance(body, dict):
+        raise InputError("the request body must be a JSON object")
+    return body
+
+
+@bp.post(f"{API_PREFIX}/datasets/<int:dataset_id>/models")
+@requires("analyst")
+def fit_model(dataset_id: int):
+    _, info = modelling.get_model(dataset_id, _json_body(), user_id=_user_id())
+    return json_ok(model=info)
+
+
+def _confidence_arg() -> float | None:
+    value = request.args.get("confidence")
+    if value is None:
+        return None
+    try:
+        confidence = float(value)
+    except ValueError:
+        raise InputError(f"'confidence' must be a number between 0 and 1, got {value!r}") from None
+    if not 0 < confidence < 1:
+        raise InputError(f"'confidence' must be a number between 0 and 1, got {value!r}")
+    return confidence
+
+
+@bp.get(f"{API_PREFIX}/models/<int:model_id>")
+@requires("viewer")
+def get_model(model_id: int):
+    _, info = modelling.model_by_id(model_id, confidence=_confidence_arg())
+    return json_ok(model=info)
+
+
+def _csv(frame: pd.DataFrame, filename: str) -> Response:
+    return Response(
+        to_csv_bytes(frame),
+        mimetype="text/csv",
+        headers={"Content-Disposition": f'attachment; filename="{filename}"'},
+    )
+
+
+def _score_columns(frame: pd.DataFrame) -> list[str]:
+    return [c for c in frame.columns if c.startswith("PC") and c[2:].isdigit()]
+
+
+@bp.get(f"{API_PREFIX}/models/<int:model_id>/samples")
+@requires("viewer")
+def model_samples(model_id: int):
+    frame = modelling.samples_table(model_id, confidence=_confidence_arg())
+    info = frame.attrs["model"]
+    metadata = list(ingest.dataset_info(info["dataset_id"])["metadata_columns"])
+    scores = frame[_score_columns(frame)].to_numpy()
+    samples = [
+        {
+            "sample_id": record["sample_id"],
+            "metadata": {m: None if pd.isna(record[m]) else record[m] for m in metadata},
+            "excluded": bool(record["excluded"]),
+            "scores": scores[i],
+            "t2": record["T2"],
+            "t2_limit": record["T2_limit"],
+            "spe": record["SPE"],
+            "spe_limit": record["SPE_limit"],
+            "flags": [f for f in record["flags"].split(";") if f],
+        }
+        for i, record in enumerate(frame.to_dict("records"))
+    ]
+    return json_ok(model_id=model_id, fingerprint=info["fingerprint"], samples=samples)
+
+
+@bp.get(f"{API_PREFIX}/models/<int:model_id>/samples.csv")
+@requires("viewer")
+def model_samples_csv(model_id: int):
+    frame = modelling.samples_table(model_id, confidence=_confidence_arg())
+    return _csv(frame, f"model-{model_id}-samples.csv")
+
+
+@bp.get(f"{API_PREFIX}/models/<int:model_id>/variables")
+@requires("viewer")
+def model_variables(model_id: int):
+    frame = modelling.variables_table(model_id)
+    columns = _score_columns(frame)
+    variables = [
+        {
+            "variable": row["variable"],
+            "loadings": row[columns].to_numpy(dtype=float),
+            "explained": row["explained"],
+            "log10": bool(row["log10"]),
+        }
+        for _, row in frame.iterrows()
+    ]
+    return json_ok(model_id=model_id, fingerprint=frame.attrs["model"]["fingerprint"], variables=variables)
+
+
+@bp.get(f"{API_PREFIX}/models/<int:model_id>/variables.csv")
+@requires("viewer")
+def model_variables_csv(model_id: int):
+    return _csv(modelling.variables_table(model_id), f"model-{model_id}-variables.csv")
+
+
+@bp.get(f"{API_PREFIX}/models/<int:model_id>/contributions/<path:sample_id>")
+@requires("viewer")
+def sample_contributions(model_id: int, sample_id: str):
+    result = modelling.contributions(model_id, sample_id, confidence=_confidence_arg())
+    return json_ok(model_id=model_id, contributions=result)
+
+
+@bp.get("/api/<path:unknown>")
+def unknown_route(unknown: str):
+    # Without this, the pages' catch-all route would answer an unknown API path with HTML.
+    return json_error("not_found", f"no API route /api/{unknown}", 404)

@@ -1,0 +1,251 @@
+"""Uploads: check a file with intake, store it content-addressed, record the dataset.
+
+A dataset is immutable and known by the SHA-256 of its raw bytes (DESIGN.md 3).
+The bytes live at ``HOME/files/<sha[:2]>/<sha>``; the user's file name is
+display text only and never part of a path. Storing is one unit of work: the
+file is written to a temporary name and moved into place with ``os.replace``
+(atomic on POSIX), then the database row is committed; if anything fails in
+between, the new file is removed again, so a failure leaves no half dataset.
+Uploading the same bytes with the same intake options returns the dataset
+already stored.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import time
+from pathlib import Path, PurePosixPath, PureWindowsPath
+from typing import Any
+
+import diskcache
+
+from analysis.errors import InputError
+from analysis.intake import read_table
+from analysis.table import Table
+from webapp.services.context import cache_folder, home_folder, max_upload_bytes, session_scope
+from webapp.store import datasets as store
+from webapp.store import files
+
+TABLE_CACHE_FOLDER = "tables"
+LOCK_SECONDS = 600
+NAME_LIMIT = 255
+
+
+class DatasetNotFound(LookupError):
+    """No dataset with that id (the API answers 404)."""
+
+
+def intake_options(
+    *,
+    id_column: str | None = None,
+    sheet: str | None = None,
+    roles: dict[str, str] | None = None,
+    group_columns=(),
+    below_limit: str = "half",
+    bad_cells: str = "error",
+) -> dict[str, Any]:
+    """The intake options in the canonical form stored with a dataset."""
+    return {
+        "id_column": id_column or None,
+        "sheet": sheet or None,
+        "roles": dict(sorted((str(k), str(v)) for k, v in (roles or {}).items())) or None,
+        "group_columns": [str(c) for c in group_columns],
+        "below_limit": below_limit,
+        "bad_cells": bad_cells,
+    }
+
+
+def options_key(sha256: str, options: dict[str, Any]) -> str:
+    """Identity of a dataset: its bytes plus the options that turned them into a Table."""
+    canonical = json.dumps({"sha256": sha256, "intake": options}, sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(canonical.encode("utf-8")).hexdigest()
+
+
+def display_name(filename: str) -> str:
+    """The last component of a client-supplied file name, as display text only."""
+    name = PureWindowsPath(PurePosixPath(str(filename or "")).name).name.strip()
+    return (name or "upload")[:NAME_LIMIT]
+
+
+def _read(raw: bytes, filename: str, options: dict[str, Any]):
+    return read_table(
+        raw,
+        filename,
+        id_column=options["id_column"],
+        group_columns=tuple(options["group_columns"]),
+        sheet=options["sheet"],
+        below_limit=options["below_limit"],
+        bad_cells=options["bad_cells"],
+        roles=options["roles"],
+        max_bytes=max_upload_bytes(),
+    )
+
+
+def preview_upload(raw: bytes, filename: str, **options) -> dict[str, Any]:
+    """Run intake on ``raw`` without storing anything; the IntakeReport as a dict.
+
+    Keyword options are those of :func:`intake_options`. Raises InputError
+    (IntakeError) with intake's message for a file that cannot be read.
+    """
+    opts = intake_options(**options)
+    table, report = _read(raw, display_name(filename), opts)
+    preview = report.to_dict()
+    preview.update(
+        sha256=hashlib.sha256(raw).hexdigest(),
+        n_samples=table.n_samples,
+        n_variables=table.n_variables,
+        variables=table.variables,
+        metadata_columns=table.metadata_columns,
+    )
+    return preview
+
+
+def blob_path(sha256: str) -> Path:
+    """Absolute path of the stored bytes with this SHA-256."""
+    return files.absolute_path(home_folder(), files.relative_path(sha256))
+
+
+def _lock(sha256: str) -> diskcache.Lock:
+    # Serialises uploads of the same bytes across gunicorn workers on this host,
+    # so the "already stored?" check, the file write and the insert (or the
+    # clean-up after a failed insert) of one upload never interleave with another's.
+    cache = diskcache.Cache(str(cache_folder() / "locks"))
+    return diskcache.Lock(cache, f"ingest:{sha256}", expire=LOCK_SECONDS)
+
+
+def ingest_upload(
+    raw: bytes,
+    filename: str,
+    user_id: int,
+    *,
+    id_column: str | None = None,
+    sheet: str | None = None,
+    roles: dict[str, str] | None = None,
+    group_columns=(),
+    below_limit: str = "half",
+    bad_cells: str = "error",
+) -> dict[str, Any]:
+    """Check, store and record an uploaded file; the dataset as the API shows it.
+
+    Returns the dataset dict (see :func:`webapp.store.datasets.dataset_dict`) plus
+    ``created`` (False when these bytes with these options were stored before).
+    Raises InputError (IntakeError) for a file intake refuses; nothing is stored then.
+    """
+    name = display_name(filename)
+    sha256 = hashlib.sha256(raw).hexdigest()
+    opts = intake_options(
+        id_column=id_column,
+        sheet=sheet,
+        roles=roles,
+        group_columns=group_columns,
+        below_limit=below_limit,
+        bad_cells=bad_cells,
+    )
+    with _lock(sha256):
+        with session_scope() as session:
+            existing = store.find_dataset(session, sha256, opts)
+            if existing is not None:
+                return {**store.dataset_dict(existing), "created": False}
+        table, report = _read(raw, name, opts)
+        created = not blob_path(sha256).exists()
+        stored = files.store_bytes(home_folder(), raw)
+        try:
+            with session_scope() as session:
+                row = store.insert_dataset(
+                    session,
+                    sha256=sha256,
+                    name=name,
+                    stored_path=stored.stored_path,
+                    size_bytes=stored.size_bytes,
+                    id_column=table.id_column,
+                    sheet=opts["sheet"],
+                    intake_options=opts,
+                    n_samples=table.n_samples,
+                    n_variables=table.n_variables,
+                    variables=table.variables,
+                    metadata_columns=table.metadata_columns,
+                    warnings=list(report.warnings),
+                    report=report.to_dict(),
+                    uploaded_by=user_id,
+                )
+                result = store.dataset_dict(row)
+        except BaseException:
+            if created:
+                _remove_unreferenced_blob(sha256)
+            raise
+    return {**result, "created": True}
+
+
+def _remove_unreferenced_blob(sha256: str) -> None:
+    try:
+        with session_scope() as session:
+            referenced = store.sha256_in_use(session, sha256)
+    except Exception:  # noqa: BLE001 - database gone: the file is unreferenced by definition
+        referenced = False
+    if not referenced:
+        blob_path(sha256).unlink(missing_ok=True)
+
+
+def remove_orphan_files(min_age_seconds: float = 3600.0) -> list[str]:
+    """Delete stored files (and temp files) no dataset refers to; returns their names.
+
+    Only a process killed between writing a file and committing its row leaves
+    such a file; it is complete but unlisted. ``min_age_seconds`` spares
+    uploads that are in progress right now.
+    """
+    root = home_folder() / files.FILES_FOLDER
+    if not root.is_dir():
+        return []
+    now = time.time()
+    removed = []
+    with session_scope() as session:
+        known = store.all_sha256(session)
+    for path in sorted(root.glob("*/*")):
+        if not path.is_file() or now - path.stat().st_mtime < min_age_seconds:
+            continue
+        if path.name.startswith(".") or path.name not in known:
+            path.unlink(missing_ok=True)
+            removed.append(path.name)
+    return removed
+
+
+def dataset_info(dataset_id: int) -> dict[str, Any]:
+    """The dataset dict for ``dataset_id``; DatasetNotFound when there is none."""
+    with session_scope() as session:
+        row = store.get_dataset(session, dataset_id)
+        if row is None:
+            raise DatasetNotFound(dataset_id)
+        return store.dataset_dict(row, full=True)
+
+
+def list_datasets() -> list[dict[str, Any]]:
+    """Every dataset, newest first."""
+    with session_scope() as session:
+        return [store.dataset_dict(row) for row in store.list_datasets(session)]
+
+
+def load_table(dataset_id: int) -> Table:
+    """Re-read a stored dataset into a Table (cached on disk by content and options).
+
+    The stored bytes are checked against their SHA-256 before parsing, so a
+    damaged file is reported instead of silently giving other numbers.
+    """
+    info = dataset_info(dataset_id)
+    key = options_key(info["sha256"], info["intake_options"])
+    cache = diskcache.Cache(str(cache_folder() / TABLE_CACHE_FOLDER))
+    try:
+        table = cache.get(key)
+    except Exception:  # noqa: BLE001 - unreadable cache entry: parse again
+        table = None
+    if isinstance(table, Table):
+        return table
+    raw = files.read_bytes(home_folder(), info["stored_path"])
+    if hashlib.sha256(raw).hexdigest() != info["sha256"]:
+        raise RuntimeError(f"stored file for dataset {dataset_id} does not match its SHA-256")
+    try:
+        table, _ = _read(raw, info["name"], info["intake_options"])
+    except InputError as exc:  # accepted once, so this means the intake rules changed
+        raise RuntimeError(f"dataset {dataset_id} can no longer be read: {exc}") from exc
+    cache.set(key, table)
+    return table

@@ -1,0 +1,407 @@
+"""Fitted models for stored datasets: fingerprint, disk cache, model records, result tables.
+
+A model is known by its fingerprint (DESIGN.md 3): SHA-256 of canonical JSON
+of the dataset, the preprocessing settings, the variables, the number of
+components, the excluded samples and the analysis version
+(``analysis.modelfile.model_fingerprint``). The fitted ``PCAModel`` is kept in
+a diskcache under that fingerprint in ``HOME/cache/models``, shared by every
+worker on the host; a cache hit never refits. Each distinct fit is recorded in
+the ``models`` table so the API can refer to it by id.
+
+The confidence level is not part of the fingerprint: limits are computed from
+the fitted model at whatever level is asked for.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any, Mapping
+
+import diskcache
+import numpy as np
+import pandas as pd
+
+from analysis.diagnostics import explain_sample
+from analysis.errors import InputError
+from analysis.pca import PCAModel
+from analysis.table import Table
+from webapp.services import ingest
+from webapp.services.context import cache_folder, session_scope
+from webapp.store import datasets as store
+
+SCALINGS = ("none", "center", "autoscale", "pareto")
+DEFAULT_CONFIDENCE = 0.95
+MODEL_CACHE_FOLDER = "models"
+FIT_LOCK_SECONDS = 1800
+SETTING_KEYS = ("scaling", "components", "variables", "log10", "exclude", "confidence")
+
+
+class ModelNotFound(LookupError):
+    """No recorded model with that id (the API answers 404)."""
+
+
+class SampleNotFound(LookupError):
+    """The model's dataset has no sample with that id (the API answers 404)."""
+
+
+def _string_list(value: Any, name: str) -> list[str]:
+    if value is None:
+        return []
+    if isinstance(value, str) or not isinstance(value, (list, tuple)):
+        raise InputError(f"'{name}' must be a list of names, got {value!r}")
+    return [str(v) for v in value]
+
+
+def normalise_settings(settings: Mapping[str, Any], dataset_variables: list[str]) -> dict[str, Any]:
+    """Check fit settings and put them in canonical form.
+
+    ``variables`` is returned in the dataset's column order (None = all),
+    ``log10`` and ``exclude`` sorted and de-duplicated. Raises InputError
+    naming the setting and the value that is wrong.
+    """
+    unknown = sorted(set(settings) - set(SETTING_KEYS))
+    if unknown:
+        raise InputError(
+            f"unknown setting(s): {', '.join(unknown)}; allowed: {', '.join(SETTING_KEYS)}"
+        )
+    scaling = settings.get("scaling", "autoscale")
+    if scaling not in SCALINGS:
+        raise InputError(f"'scaling' must be one of {', '.join(SCALINGS)}, got {scaling!r}")
+
+    components = settings.get("components", "auto")
+    if isinstance(components, str) and components.strip().isdigit():
+        components = int(components)
+    if components != "auto" and (
+        isinstance(components, bool) or not isinstance(components, int) or components < 1
+    ):
+        raise InputError(f"'components' must be a whole number of at least 1 or \"auto\", got {components!r}")
+
+    chosen = _string_list(settings.get("variables"), "variables")
+    missing = sorted(set(chosen) - set(dataset_variables))
+    if missing:
+        raise InputError(f"unknown variable(s) in 'variables': {', '.join(missing[:10])}")
+    variables = [v for v in dataset_variables if v in set(chosen)] if chosen else list(dataset_variables)
+
+    log10 = sorted(set(_string_list(settings.get("log10"), "log10")))
+    not_used = [v for v in log10 if v not in variables]
+    if not_used:
+        raise InputError(f"'log10' names variable(s) not in the model: {', '.join(not_used[:10])}")
+
+    exclude = sorted(set(_string_list(settings.get("exclude"), "exclude")))
+
+    confidence = settings.get("confidence", DEFAULT_CONFIDENCE)
+    if isinstance(confidence, bool) or not isinstance(confidence, (int, float)) or not 0 < confidence < 1:
+        raise InputError(f"'confidence' must be a number between 0 and 1 (e.g. 0.95), got {confidence!r}")
+
+    return {
+        "scaling": scaling,
+        "components": components,
+        "variables": variables,
+        "log10": log10,
+        "exclude": exclude,
+        "confidence": float(confidence),
+    }
+
+
+def _intake(dataset: Mapping[str, Any]) -> dict[str, Any] | None:
+    """Intake options for the fingerprint: None for the defaults, so the command
+    line and the web app agree on a file read the default way; other options
+    give another Table from the same bytes, hence another fingerprint."""
+    options = dataset["intake_options"]
+    return None if options == ingest.intake_options() else dict(options)
+
+
+def fingerprint_for(dataset: Mapping[str, Any], settings: Mapping[str, Any], n_components) -> str:
+    """The model fingerprint of normalised ``settings`` (``n_components`` may be "auto")."""
+    from analysis.modelfile import model_fingerprint
+
+    return model_fingerprint(
+        dataset["sha256"],
+        settings["scaling"],
+        settings["log10"],
+        settings["variables"],
+        n_components,
+        settings["exclude"],
+        intake=_intake(dataset),
+    )
+
+
+def _auto_key(dataset: Mapping[str, Any], settings: Mapping[str, Any]) -> str:
+    """Cache key remembering how many components "auto" chose for these settings."""
+    return "auto:" + fingerprint_for(dataset, settings, "auto")
+
+
+def _cache() -> diskcache.Cache:
+    return diskcache.Cache(str(cache_folder() / MODEL_CACHE_FOLDER))
+
+
+def _cached(cache: diskcache.Cache, fingerprint: str) -> dict[str, Any] | None:
+    try:
+        entry = cache.get(fingerprint)
+    except Exception:  # noqa: BLE001 - an entry from older code that no longer unpickles: refit
+        return None
+    if isinstance(entry, dict) and isinstance(entry.get("model"), PCAModel):
+        return entry
+    return None
+
+
+def _fit(dataset_id: int, settings: Mapping[str, Any]) -> dict[str, Any]:
+    from webapp.services.headless import fit_table
+
+    table = ingest.load_table(dataset_id)
+    model, summary, rank = fit_table(
+        table,
+        scaling=settings["scaling"],
+        log10=settings["log10"],
+        components=settings["components"],
+        exclude=settings["exclude"],
+        confidence=settings["confidence"],
+        variables=settings["variables"],
+    )
+    return {"model": model, "rank": rank.to_dict() if rank is not None else None}
+
+
+def _finite(value: float) -> float | None:
+    value = float(value)
+    return value if math.isfinite(value) else None
+
+
+def describe(model: PCAModel, confidence: float) -> dict[str, Any]:
+    """The JSON-safe summary of a fitted model at a confidence level."""
+    return {
+        "n_components": int(model.scores_.shape[1]),
+        "n_samples": int(model.n_samples_),
+        "n_variables": len(model.variable_names_),
+        "variables": list(model.variable_names_),
+        "dropped_variables": list(model.dropped_variables_),
+        "explained_variance_ratio": [float(v) for v in model.explained_variance_ratio_],
+        "cumulative": [float(v) for v in model.cumulative_explained_],
+        "eigenvalues": [float(v) for v in model.eigenvalues_[: model.scores_.shape[1]]],
+        "confidence": confidence,
+        "t2_limit": _finite(model.t2_limit(confidence)),
+        "spe_limit": _finite(model.spe_limit(confidence)),
+        "solver": model.solver_,
+        "n_missing": int(model.n_missing_),
+        "warnings": list(model.warnings_),
+    }
+
+
+def _record(dataset: Mapping[str, Any], fingerprint: str, settings: dict, summary: dict, user_id) -> int:
+    from sqlalchemy.exc import IntegrityError
+
+    stored = {**settings, "confidence": settings["confidence"]}
+    try:
+        with session_scope() as session:
+            row = store.record_model(
+                session,
+                dataset_id=dataset["id"],
+                fingerprint=fingerprint,
+                settings=stored,
+                summary=summary,
+                created_by=user_id if user_id is not None else dataset["uploaded_by"],
+            )
+            return row.id
+    except IntegrityError:  # another worker recorded the same model a moment ago
+        with session_scope() as session:
+            return store.model_by_fingerprint(session, fingerprint).id
+
+
+def get_model(
+    dataset_id: int, settings: Mapping[str, Any], *, user_id: int | None = None
+) -> tuple[PCAModel, dict[str, Any]]:
+    """The fitted model for a dataset and fit settings, from the cache when possible.
+
+    Parameters
+    ----------
+    dataset_id : int
+    settings : mapping
+        ``scaling`` (none|center|autoscale|pareto, default autoscale),
+        ``components`` (int or "auto", default "auto"), ``variables`` (list, default
+        all), ``log10`` (list), ``exclude`` (sample ids), ``confidence`` (default 0.95).
+    user_id : int, optional
+        Recorded as the model's creator when the fit is new.
+
+    Returns
+    -------
+    (PCAModel, info) where info holds ``id`` (models row), ``dataset_id``,
+    ``fingerprint``, ``cache_hit``, ``settings`` (normalised), ``excluded``,
+    ``rank`` (the component-choice table when "auto" was asked) and the
+    fields of :func:`describe`.
+    """
+    dataset = ingest.dataset_info(dataset_id)
+    from webapp.services.review import exclusion_settings  # no exclude: the approved exclusions apply
+
+    settings, exclusion_note = exclusion_settings(dataset_id, settings)
+    settings = normalise_settings(settings, dataset["variables"])
+    cache = _cache()
+
+    fingerprint = None
+    if settings["components"] == "auto":
+        chosen = cache.get(_auto_key(dataset, settings))
+        if chosen is not None:
+            fingerprint = fingerprint_for(dataset, settings, chosen)
+    else:
+        fingerprint = fingerprint_for(dataset, settings, settings["components"])
+
+    entry = _cached(cache, fingerprint) if fingerprint else None
+    cache_hit = entry is not None
+    if entry is None:
+        lock_name = fingerprint or _auto_key(dataset, settings)
+        # One fit per fingerprint across workers: the others wait, then hit the cache.
+        with diskcache.Lock(cache, f"lock:{lock_name}", expire=FIT_LOCK_SECONDS):
+            entry = _cached(cache, fingerprint) if fingerprint else None
+            cache_hit = entry is not None
+            if entry is None:
+                entry = _fit(dataset_id, settings)
+                n_components = int(entry["model"].scores_.shape[1])
+                fingerprint = fingerprint_for(dataset, settings, n_components)
+                cache.set(fingerprint, entry)
+                if settings["components"] == "auto":
+                    cache.set(_auto_key(dataset, settings), n_components)
+
+    model = entry["model"]
+    summary = describe(model, settings["confidence"])
+    model_id = _record(dataset, fingerprint, settings, {**summary, "rank": entry["rank"]}, user_id)
+    info = {
+        "id": model_id,
+        "dataset_id": dataset_id,
+        "fingerprint": fingerprint,
+        "cache_hit": cache_hit,
+        "settings": settings,
+        "excluded": settings["exclude"],
+        **exclusion_note,
+        **summary,
+        "rank": entry["rank"],
+    }
+    return model, info
+
+
+def model_by_id(model_id: int, *, confidence: float | None = None) -> tuple[PCAModel, dict[str, Any]]:
+    """A recorded model (from the cache, refitted only when the cache lost it)."""
+    with session_scope() as session:
+        row = store.get_model_row(session, model_id)
+        if row is None:
+            raise ModelNotFound(model_id)
+        dataset_id, settings, created_by = row.dataset_id, dict(row.settings), row.created_by
+    if confidence is not None:
+        settings["confidence"] = confidence
+    return get_model(dataset_id, settings, user_id=created_by)
+
+
+def _rows_of(table: Table, model: PCAModel) -> pd.DataFrame:
+    return table.data[list(model.variable_names_)]
+
+
+def _sample_results(model: PCAModel, table: Table, info: Mapping[str, Any]):
+    """Scores, T2, SPE and limits for every sample of the dataset, in file order.
+
+    Training samples keep the values of the fit; excluded samples are
+    projected onto the model and judged against the new-sample T2 limit.
+    """
+    ids = table.sample_ids
+    position = {sid: i for i, sid in enumerate(model.sample_ids_)}
+    n_comp = model.scores_.shape[1]
+    scores = np.full((len(ids), n_comp), np.nan)
+    t2 = np.full(len(ids), np.nan)
+    spe = np.full(len(ids), np.nan)
+    trained = np.array([sid in position for sid in ids], dtype=bool)
+    if trained.any():
+        rows = [position[sid] for sid, used in zip(ids, trained) if used]
+        scores[trained] = model.scores_[rows]
+        t2[trained] = model.t2_[rows]
+        spe[trained] = model.spe_[rows]
+    if (~trained).any():
+        other = _rows_of(table, model).loc[~trained]
+        scores[~trained] = model.transform(other)
+        t2[~trained] = model.hotelling_t2(other)
+        spe[~trained] = model.spe(other)
+    confidence = info["confidence"]
+    t2_limit = np.where(trained, model.t2_limit(confidence), model.t2_limit(confidence, new=True))
+    spe_limit = model.spe_limit(confidence)
+    return ids, trained, scores, t2, spe, t2_limit, spe_limit
+
+
+def samples_table(model_id: int, *, confidence: float | None = None) -> pd.DataFrame:
+    """One row per dataset sample: sample_id, metadata, PC scores, T2, SPE, limits, flags.
+
+    Columns: ``sample_id``, the metadata columns, ``excluded`` (bool),
+    ``PC1``..``PCk``, ``T2``, ``T2_limit``, ``SPE``, ``SPE_limit``,
+    ``T2_flag``, ``SPE_flag`` (bool: above the limit) and ``flags`` (text,
+    e.g. "T2;SPE").
+    """
+    model, info = model_by_id(model_id, confidence=confidence)
+    table = ingest.load_table(info["dataset_id"])
+    ids, trained, scores, t2, spe, t2_limit, spe_limit = _sample_results(model, table, info)
+    frame = pd.DataFrame({"sample_id": ids})
+    for column in table.metadata_columns:
+        frame[column] = table.metadata[column].to_numpy(dtype=object)
+    frame["excluded"] = ~trained
+    for a in range(scores.shape[1]):
+        frame[f"PC{a + 1}"] = scores[:, a]
+    frame["T2"] = t2
+    frame["T2_limit"] = t2_limit
+    frame["SPE"] = spe
+    frame["SPE_limit"] = spe_limit
+    frame["T2_flag"] = t2 > t2_limit
+    frame["SPE_flag"] = spe > spe_limit
+    frame["flags"] = [
+        ";".join(name for name, hit in (("T2", a), ("SPE", b)) if hit)
+        for a, b in zip(frame["T2_flag"], frame["SPE_flag"])
+    ]
+    frame.attrs["model"] = info
+    return frame
+
+
+def variables_table(model_id: int) -> pd.DataFrame:
+    """One row per model variable: ``variable``, loadings ``PC1``..``PCk``, ``explained``.
+
+    ``explained`` is the fraction of the variable's (preprocessed) sum of
+    squares the components reproduce (``PCAModel.variable_explained_``).
+    """
+    model, info = model_by_id(model_id)
+    frame = pd.DataFrame({"variable": list(model.variable_names_)})
+    for a in range(model.loadings_.shape[1]):
+        frame[f"PC{a + 1}"] = model.loadings_[:, a]
+    frame["explained"] = model.variable_explained_
+    frame["log10"] = [v in set(info["settings"]["log10"]) for v in model.variable_names_]
+    frame.attrs["model"] = info
+    return frame
+
+
+def contributions(model_id: int, sample_id: str, *, confidence: float | None = None) -> dict[str, Any]:
+    """Why one sample sits where it does: SPE and T2 contributions per variable.
+
+    Uses ``PCAModel.contributions`` (SPE: squared residuals; T2: Westerhuis,
+    Gurden & Smilde 2000, summing to T2) and ``analysis.diagnostics.explain_sample``
+    for the plain-language sentence. Raises SampleNotFound for an unknown id.
+    """
+    model, info = model_by_id(model_id, confidence=confidence)
+    table = ingest.load_table(info["dataset_id"])
+    sample_id = str(sample_id)
+    if sample_id not in set(table.sample_ids):
+        raise SampleNotFound(sample_id)
+    x = _rows_of(table, model).loc[sample_id].to_numpy(dtype=np.float64)
+    excluded = sample_id not in set(model.sample_ids_)
+    explained = explain_sample(model, x, sample_id=sample_id)
+    spe_parts = model.contributions(x, kind="spe")
+    t2_parts = model.contributions(x, kind="t2")
+    confidence = info["confidence"]
+    return {
+        "sample_id": sample_id,
+        "excluded": excluded,
+        "sentence": explained["sentence"],
+        "t2": _finite(np.sum(t2_parts)),
+        "spe": _finite(np.sum(spe_parts)),
+        "t2_limit": _finite(model.t2_limit(confidence, new=excluded)),
+        "spe_limit": _finite(model.spe_limit(confidence)),
+        "variables": [
+            {
+                "variable": name,
+                "value": _finite(value) if not np.isnan(value) else None,
+                "spe_contribution": _finite(spe),
+                "t2_contribution": _finite(t2),
+            }
+            for name, value, spe, t2 in zip(model.variable_names_, x, spe_parts, t2_parts)
+        ],
+        "ranked": explained["variables"],
+    }
