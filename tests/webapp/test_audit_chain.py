@@ -152,3 +152,110 @@ def test_entry_added_behind_the_heads_back_is_caught():
     head = _head(entries[:3])
     ok, broken, reason = audit.verify_entries(entries, head)
     assert (ok, broken) == (False, 4), reason
+
+
+# --- the stored chain, on SQLite and PostgreSQL -------------------------------------------
+
+from sqlalchemy.exc import DBAPIError  # noqa: E402
+
+from webapp.store import accounts, get_engine, session_scope  # noqa: E402
+
+
+@pytest.fixture
+def stored_chain(app_factory, database_url):
+    """An app on the parametrized database with five log entries written by the app."""
+    app = app_factory(DATABASE_URL=database_url)
+    with app.app_context():
+        with session_scope() as s:
+            user = accounts.add_user(s, "ana", "analyst", "x", "Ana Analyst")
+            user_id = user.id
+        for i in range(5):
+            with session_scope() as s:
+                audit.append(
+                    s, actor_id=user_id, actor_name="Ana Analyst", action="propose",
+                    payload={"n": i, "reason": "Grün = green", "x": 0.1 * i},
+                )
+    return app
+
+
+def _verify(app):
+    with app.app_context(), session_scope() as s:
+        return audit.verify_chain(s)
+
+
+def _as_superuser(app, sql: str) -> None:
+    """Change the log behind the app's back: switch the guards off, then run ``sql``."""
+    engine = get_engine(app)
+    with engine.begin() as conn:
+        if conn.dialect.name == "sqlite":
+            for name in ("review_log_no_update", "review_log_no_delete",
+                         "review_log_head_forward", "review_log_head_no_delete"):
+                conn.exec_driver_sql(f"DROP TRIGGER IF EXISTS {name}")
+        else:
+            conn.exec_driver_sql("SET LOCAL session_replication_role = replica")
+        conn.exec_driver_sql(sql)
+
+
+def test_stored_chain_verifies(stored_chain):
+    assert _verify(stored_chain) == (True, None, "intact: 5 entries")
+
+
+@pytest.mark.parametrize("statement", ["UPDATE review_log SET action = 'x' WHERE seq = 2",
+                                       "DELETE FROM review_log WHERE seq = 5",
+                                       "UPDATE review_log_head SET seq = 1",
+                                       "DELETE FROM review_log_head"])
+def test_database_refuses_changes_to_the_log(stored_chain, statement):
+    with pytest.raises(DBAPIError):
+        with get_engine(stored_chain).begin() as conn:
+            conn.exec_driver_sql(statement)
+    assert _verify(stored_chain)[0]
+
+
+@pytest.mark.parametrize(
+    "statement,broken",
+    [
+        ("UPDATE review_log SET action = 'approve' WHERE seq = 1", 1),
+        ("UPDATE review_log SET actor_name = 'Someone Else' WHERE seq = 3", 3),
+        ("UPDATE review_log SET payload = '{\"n\": 9}' WHERE seq = 4", 4),
+        ("UPDATE review_log SET at = '2020-01-01 00:00:00' WHERE seq = 2", 2),
+        ("DELETE FROM review_log WHERE seq = 3", 3),
+        ("DELETE FROM review_log WHERE seq = 1", 1),
+        ("DELETE FROM review_log WHERE seq = 5", 5),
+    ],
+)
+def test_tampering_with_a_stored_entry_is_caught(stored_chain, statement, broken):
+    _as_superuser(stored_chain, statement)
+    ok, first_broken, reason = _verify(stored_chain)
+    assert not ok and first_broken == broken, reason
+
+
+def test_deleting_the_tail_and_the_head_together_is_caught(stored_chain):
+    _as_superuser(stored_chain, "DELETE FROM review_log WHERE seq = 5")
+    _as_superuser(stored_chain, "DELETE FROM review_log_head")
+    ok, _, reason = _verify(stored_chain)
+    assert not ok and "head" in reason
+
+
+def test_concurrent_appends_in_threads_never_fork_the_chain(stored_chain):
+    import threading
+
+    errors = []
+
+    def write(k):
+        try:
+            with stored_chain.app_context():
+                from webapp.services.review import run_write
+
+                for i in range(5):
+                    run_write(lambda s: audit.append(s, actor_id=None, actor_name=f"w{k}",
+                                                     action="note", payload={"i": i}))
+        except Exception as exc:  # noqa: BLE001 - collected and reported below
+            errors.append(exc)
+
+    threads = [threading.Thread(target=write, args=(k,)) for k in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert not errors, errors
+    assert _verify(stored_chain) == (True, None, "intact: 25 entries")

@@ -1,0 +1,245 @@
+"""Review API (``/api/v1``): exclusion proposals, sign-offs, the review log, saved views.
+
+Same shapes as ``webapp.api`` (``json_ok`` / ``json_error``); routes call
+``webapp.services.review``, ``audit`` and ``views`` only.  Also serves the
+printable sign-off report (HTML) under the app's reserved ``/-/`` prefix.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+from typing import Any
+
+from flask import Blueprint, Response, request
+
+from analysis.errors import InputError
+from webapp.api import _json_body, json_error, json_ok, requires
+from webapp.services import ingest, review, views
+from webapp.services.context import session_scope
+from webapp.services.exports import to_csv_bytes
+from webapp.services.review_rules import ReviewRefused
+
+bp = Blueprint("api_review", __name__)
+API = "/api/v1"
+LOG_FILTERS = ("action", "actor", "since", "until")
+
+
+@bp.errorhandler(ReviewRefused)
+def _refused(exc: ReviewRefused):
+    return json_error(exc.code, str(exc), exc.status)
+
+
+@bp.errorhandler(InputError)
+def _bad_input(exc: InputError):
+    return json_error("bad_input", str(exc), 400)
+
+
+@bp.errorhandler(review.ProposalNotFound)
+def _no_proposal(exc):
+    return json_error("not_found", f"no exclusion proposal with id {exc.args[0]}", 404)
+
+
+@bp.errorhandler(views.ViewNotFound)
+def _no_view(exc):
+    return json_error("not_found", f"no saved view with id {exc.args[0]!r}", 404)
+
+
+@bp.errorhandler(ingest.DatasetNotFound)
+def _no_dataset(exc):
+    return json_error("not_found", f"no dataset with id {exc.args[0]}", 404)
+
+
+def _user():
+    from webapp.auth import api_user
+
+    return api_user()
+
+
+# --- proposals and decisions --------------------------------------------------------------
+
+
+@bp.post(f"{API}/datasets/<int:dataset_id>/exclusions")
+@requires("analyst")
+def propose(dataset_id: int):
+    body = _json_body()
+    unknown = sorted(set(body) - {"samples", "reason_category", "reason", "action", "settings"})
+    if unknown:
+        raise InputError(f"unknown field(s): {', '.join(unknown)}")
+    ingest.dataset_info(dataset_id)
+    proposal = review.propose(
+        dataset_id,
+        _user(),
+        samples=body.get("samples"),
+        reason_category=body.get("reason_category"),
+        reason=body.get("reason"),
+        action=body.get("action", "exclude"),
+        settings=body.get("settings"),
+    )
+    return json_ok(status=201, proposal=proposal)
+
+
+@bp.get(f"{API}/datasets/<int:dataset_id>/exclusions")
+@requires("viewer")
+def list_proposals(dataset_id: int):
+    ingest.dataset_info(dataset_id)
+    states = [s for s in request.args.getlist("state") if s]
+    return json_ok(
+        proposals=review.list_proposals(dataset_id, states or None),
+        approved_exclusions=review.approved_exclusions(dataset_id),
+    )
+
+
+@bp.get(f"{API}/exclusions/<int:proposal_id>")
+@requires("viewer")
+def get_proposal(proposal_id: int):
+    return json_ok(proposal=review.get_proposal(proposal_id))
+
+
+def _sign(proposal_id: int, decision: str):
+    body = _json_body()
+    proposal = review.sign(
+        proposal_id,
+        _user(),
+        decision=decision,
+        password=body.get("password"),
+        comment=body.get("comment", ""),
+    )
+    return json_ok(proposal=proposal)
+
+
+@bp.post(f"{API}/exclusions/<int:proposal_id>/approve")
+@requires("reviewer")
+def approve(proposal_id: int):
+    return _sign(proposal_id, "approve")
+
+
+@bp.post(f"{API}/exclusions/<int:proposal_id>/reject")
+@requires("reviewer")
+def reject(proposal_id: int):
+    return _sign(proposal_id, "reject")
+
+
+@bp.post(f"{API}/exclusions/<int:proposal_id>/withdraw")
+@requires("analyst")
+def withdraw(proposal_id: int):
+    body = _json_body()
+    return json_ok(proposal=review.withdraw(proposal_id, _user(), comment=body.get("comment", "")))
+
+
+# --- the review log -----------------------------------------------------------------------
+
+
+def _when(name: str) -> datetime | None:
+    text = request.args.get(name)
+    if not text:
+        return None
+    try:
+        moment = datetime.fromisoformat(text.replace("Z", "+00:00"))
+    except ValueError:
+        raise InputError(f"'{name}' must be an ISO date or time such as 2026-12-01, got {text!r}") from None
+    return moment if moment.tzinfo else moment.replace(tzinfo=timezone.utc)
+
+
+def _log_entries(dataset_id: int) -> list[dict[str, Any]]:
+    ingest.dataset_info(dataset_id)
+    actor = request.args.get("actor")
+    if actor is not None and not actor.strip().isdigit():
+        raise InputError(f"'actor' must be a user id (a whole number), got {actor!r}")
+    return review.log_for_dataset(
+        dataset_id,
+        actions=[a for a in request.args.getlist("action") if a] or None,
+        actor_id=int(actor) if actor else None,
+        since=_when("since"),
+        until=_when("until"),
+    )
+
+
+@bp.get(f"{API}/datasets/<int:dataset_id>/review-log")
+@requires("viewer")
+def review_log(dataset_id: int):
+    return json_ok(dataset_id=dataset_id, entries=_log_entries(dataset_id))
+
+
+@bp.get(f"{API}/datasets/<int:dataset_id>/review-log.csv")
+@requires("viewer")
+def review_log_csv(dataset_id: int):
+    frame = review.log_frame(_log_entries(dataset_id))
+    return Response(
+        to_csv_bytes(frame),
+        mimetype="text/csv",
+        headers={
+            "Content-Disposition": f'attachment; filename="dataset-{dataset_id}-review-log.csv"',
+            "Cache-Control": "no-store",
+        },
+    )
+
+
+@bp.get(f"{API}/review-log/verify")
+@requires("viewer")
+def verify_log():
+    from webapp.services import audit
+
+    with session_scope() as session:
+        intact, broken, reason = audit.verify_chain(session)
+        head = audit.chain_head_summary(session)
+    return json_ok(intact=intact, first_broken_seq=broken, reason=reason, head=head)
+
+
+# --- saved views --------------------------------------------------------------------------
+
+
+@bp.post(f"{API}/views")
+@requires("analyst")
+def save_view():
+    body = _json_body()
+    unknown = sorted(set(body) - {"dataset_id", "query", "title", "note", "selection", "page"})
+    if unknown:
+        raise InputError(f"unknown field(s): {', '.join(unknown)}")
+    dataset_id = body.get("dataset_id")
+    if isinstance(dataset_id, bool) or not isinstance(dataset_id, int):
+        raise InputError(f"dataset_id must be a whole number, got {dataset_id!r}")
+    query = body.get("query", "")
+    if not isinstance(query, (str, dict)):
+        raise InputError("query must be the page's query string (text) or an object of its keys")
+    view = views.save_view(
+        _user(),
+        dataset_id,
+        query=query,
+        title=body.get("title"),
+        note=body.get("note", ""),
+        selection=body.get("selection"),
+        page=body.get("page", "dataset"),
+    )
+    return json_ok(status=201, view=view)
+
+
+@bp.get(f"{API}/views/<view_id>")
+@requires("viewer")
+def get_view(view_id: str):
+    opened = views.open_view(view_id, user_id=_user().id)
+    return json_ok(**opened)
+
+
+@bp.get(f"{API}/datasets/<int:dataset_id>/views")
+@requires("viewer")
+def list_views(dataset_id: int):
+    ingest.dataset_info(dataset_id)
+    return json_ok(views=views.list_views(dataset_id))
+
+
+# --- the printable sign-off report --------------------------------------------------------
+
+
+@bp.get("/-/review/datasets/<int:dataset_id>/report")
+@requires("viewer")
+def signoff_report(dataset_id: int):
+    from webapp.services.signoff_report import report_html
+
+    proposal = request.args.get("proposal")
+    if proposal is not None and not proposal.isdigit():
+        return Response("proposal must be a whole number", status=400, mimetype="text/plain")
+    try:
+        html = report_html(dataset_id, int(proposal) if proposal else None)
+    except (ingest.DatasetNotFound, review.ProposalNotFound):
+        return Response("not found", status=404, mimetype="text/plain")
+    return Response(html, mimetype="text/html", headers={"Cache-Control": "no-store"})
