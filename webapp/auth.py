@@ -177,26 +177,36 @@ BAD_CREDENTIALS = "Unknown user name or wrong password."
 
 
 def attempt_login(name: str, password: str, address: str) -> CurrentUser:
-    """Check a sign-in against the password and both lockouts; records the attempt."""
+    """Check a sign-in against the password and both lockouts; records the attempt.
+
+    The attempt is committed before a refusal is raised, so failures count.
+    """
+    refusal = _try_login(name, password, address)
+    if isinstance(refusal, str):
+        raise LoginRefused(refusal)
+    return refusal
+
+
+def _try_login(name: str, password: str, address: str) -> CurrentUser | str:
     cfg = current_app.config
     window = timedelta(minutes=cfg["LOCKOUT_MINUTES"])
+    locked = LOCKED_MESSAGE.format(minutes=cfg["LOCKOUT_MINUTES"])
     now = utcnow()
     with session_scope() as s:
         if accounts.failed_attempts_from(s, address, now - window) >= cfg["ADDRESS_LOCKOUT_ATTEMPTS"]:
             accounts.record_login_attempt(s, name, address, ok=False)
-            raise LoginRefused(LOCKED_MESSAGE.format(minutes=cfg["LOCKOUT_MINUTES"]))
+            return locked
         row = accounts.get_user_by_name(s, name)
         # Hash even for unknown names so timing does not reveal which names exist.
         ok = verify_password(row.password_hash if row else _DUMMY_HASH, password)
         if row is not None and row.locked_until is not None and row.locked_until > now:
             accounts.record_login_attempt(s, name, address, ok=False)
-            raise LoginRefused(LOCKED_MESSAGE.format(minutes=cfg["LOCKOUT_MINUTES"]))
+            return locked
         if row is None or not row.active or not ok:
             accounts.record_login_attempt(s, name, address, ok=False)
-            if row is not None:
-                if accounts.count_failed_login(s, row.id) >= cfg["LOCKOUT_ATTEMPTS"]:
-                    accounts.lock_user(s, row.id, now + window)
-            raise LoginRefused(BAD_CREDENTIALS)
+            if row is not None and accounts.count_failed_login(s, row.id) >= cfg["LOCKOUT_ATTEMPTS"]:
+                accounts.lock_user(s, row.id, now + window)
+            return BAD_CREDENTIALS
         accounts.record_login_attempt(s, name, address, ok=True)
         accounts.clear_failed_logins(s, row.id)
         return _from_row(row)

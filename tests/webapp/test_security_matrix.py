@@ -1,0 +1,306 @@
+"""Every route x every role: who gets in, who is sent away, and how.
+
+The route list is read from the running app (Flask's URL map plus the Dash
+pages), so routes added later are covered without editing this file. A view
+declares its role with ``webapp.auth.role_required`` (kept as ``min_role``);
+a Dash page with ``register_page(..., min_role=...)``.
+
+Expected answers follow DESIGN.md section 5 (401 unauthenticated, 403 wrong
+role) and the OWASP Authentication Cheat Sheet (lockout, redirect checks;
+common practice).
+"""
+
+from __future__ import annotations
+
+import re
+import tempfile
+from dataclasses import dataclass
+from datetime import timedelta
+from urllib.parse import parse_qs, urlsplit
+
+import dash
+import pytest
+from werkzeug.routing import Rule
+
+from tests.webapp.conftest import add_user, csrf_from, login
+from webapp import auth, create_app
+from webapp.store import accounts, session_scope, utcnow
+from webapp.store.tables import ROLES
+
+PUBLIC = {"/-/login", "/health", "/assets/<path:filename>"}
+METHODS = ("GET", "POST", "PUT", "PATCH", "DELETE")
+
+
+@dataclass(frozen=True)
+class Route:
+    method: str
+    rule: str
+    path: str
+    min_role: str | None
+
+    @property
+    def json(self) -> bool:
+        return self.path.startswith(auth.JSON_PREFIXES)
+
+    def __str__(self) -> str:
+        return f"{self.method} {self.rule}"
+
+
+def _fill(rule: Rule) -> str:
+    """A concrete path for a rule: numbers for ints, a harmless word otherwise."""
+    def value(match: re.Match) -> str:
+        converter = match.group(1) or "default"
+        return {"int": "1", "float": "1.0", "path": "x/y"}.get(converter, "x1")
+
+    return re.sub(r"<(?:(\w+)(?:\([^)]*\))?:)?\w+>", value, rule.rule)
+
+
+def _page_path(page: dict) -> str:
+    template = page.get("path_template")
+    return re.sub(r"<\w+>", "1", template) if template else page["path"]
+
+
+def _routes() -> list[Route]:
+    with tempfile.TemporaryDirectory() as home:
+        app = create_app({"TESTING": True, "SECRET_KEY": "matrix", "HOME": home})
+        found = []
+        for rule in app.url_map.iter_rules():
+            view = app.view_functions[rule.endpoint]
+            for method in sorted(rule.methods & set(METHODS)):
+                found.append(Route(method, rule.rule, _fill(rule), getattr(view, "min_role", None)))
+        for page in dash.page_registry.values():
+            found.append(Route("GET", f"page:{page['module']}", _page_path(page), page.get("min_role")))
+        app.extensions["latentdesk.engine"].dispose()
+    return sorted(found, key=str)
+
+
+ROUTES = _routes()
+PROTECTED = [r for r in ROUTES if r.rule not in PUBLIC]
+ROLE_GUARDED = [(r, role) for r in PROTECTED if r.min_role for role in ROLES
+                if not auth.has_role(role, r.min_role)]
+
+
+def _call(client, route: Route, **kwargs):
+    return client.open(route.path, method=route.method, **kwargs)
+
+
+@pytest.fixture(scope="module")
+def matrix_app(tmp_path_factory):
+    app = create_app({"TESTING": True, "SECRET_KEY": "matrix", "HOME": str(tmp_path_factory.mktemp("home"))})
+    yield app
+    app.extensions["latentdesk.engine"].dispose()
+
+
+@pytest.fixture(scope="module")
+def role_clients(matrix_app):
+    """One signed-in test client per role."""
+    clients = {}
+    for role in ROLES:
+        name, password = add_user(matrix_app, role)
+        client = matrix_app.test_client()
+        assert login(client, name, password).status_code == 302
+        clients[role] = client
+    return clients
+
+
+def test_the_matrix_sees_the_api_and_dash_routes():
+    rules = {r.rule for r in ROUTES}
+    assert "/_dash-update-component" in rules and "/_dash-layout" in rules
+    assert any(rule.startswith("/api/v1/") for rule in rules)
+    assert any(r.min_role == "analyst" for r in ROUTES), "no role-guarded route found"
+
+
+@pytest.mark.parametrize("route", PROTECTED, ids=str)
+def test_unauthenticated_is_refused(matrix_app, route):
+    response = _call(matrix_app.test_client(), route)
+    if route.json:
+        assert response.status_code == 401
+        body = response.get_json()
+        assert body["ok"] is False and body["error"]["code"] == "unauthenticated"
+    else:
+        assert response.status_code == 302
+        target = urlsplit(response.headers["Location"])
+        assert target.path == auth.LOGIN_PATH
+        if route.method == "GET":
+            assert parse_qs(target.query)["next"] == [route.path]
+
+
+@pytest.mark.parametrize("route", [r for r in ROUTES if r.rule in PUBLIC and r.method == "GET"], ids=str)
+def test_public_routes_need_no_sign_in(matrix_app, route):
+    path = "/assets/latentdesk.css" if route.rule.startswith("/assets/") else route.path
+    assert matrix_app.test_client().get(path).status_code == 200
+
+
+@pytest.mark.parametrize(("route", "role"), ROLE_GUARDED, ids=lambda v: str(v))
+def test_wrong_role_is_forbidden(role_clients, route, role):
+    response = _call(role_clients[role], route)
+    assert response.status_code == 403
+    if route.json:
+        assert response.get_json()["error"]["code"] == "forbidden"
+
+
+@pytest.mark.parametrize("route", [r for r in PROTECTED if r.min_role], ids=str)
+def test_the_needed_role_passes_the_role_check(role_clients, route):
+    response = _call(role_clients[route.min_role], route)
+    assert response.status_code != 401
+    if response.status_code == 403 and route.json:
+        assert response.get_json()["error"]["message"] != "Your role does not allow this."
+
+
+@pytest.fixture(scope="module")
+def revoked_token(matrix_app):
+    name, _ = add_user(matrix_app, "admin")
+    with matrix_app.app_context(), session_scope() as s:
+        user = accounts.get_user_by_name(s, name)
+        token = auth.create_token(s, user.id, "to revoke")
+        assert accounts.revoke_tokens(s, user.id) == 1
+    return token
+
+
+@pytest.mark.parametrize("route", PROTECTED, ids=str)
+def test_revoked_token_is_refused(matrix_app, revoked_token, route):
+    response = _call(matrix_app.test_client(), route, headers={"Authorization": f"Bearer {revoked_token}"})
+    assert response.status_code == 401
+    assert response.get_json()["error"]["code"] == "unauthenticated"
+
+
+def test_live_token_works_and_revoking_it_ends_access(matrix_app):
+    name, _ = add_user(matrix_app, "viewer")
+    with matrix_app.app_context(), session_scope() as s:
+        user_id = accounts.get_user_by_name(s, name).id
+        token = auth.create_token(s, user_id)
+    headers = {"Authorization": f"Bearer {token}"}
+    client = matrix_app.test_client()
+    assert client.get("/api/v1/datasets", headers=headers).status_code == 200
+    with matrix_app.app_context(), session_scope() as s:
+        accounts.revoke_tokens(s, user_id)
+    assert client.get("/api/v1/datasets", headers=headers).status_code == 401
+
+
+def test_token_of_a_disabled_user_is_refused(matrix_app):
+    name, _ = add_user(matrix_app, "analyst")
+    with matrix_app.app_context(), session_scope() as s:
+        user = accounts.get_user_by_name(s, name)
+        token = auth.create_token(s, user.id)
+        accounts.set_active(s, user, False)
+    response = matrix_app.test_client().get("/api/v1/datasets", headers={"Authorization": f"Bearer {token}"})
+    assert response.status_code == 401
+
+
+def test_made_up_token_is_refused(matrix_app):
+    response = matrix_app.test_client().get(
+        "/_dash-layout", headers={"Authorization": "Bearer ldt_" + "A" * 43}
+    )
+    assert response.status_code == 401
+
+
+def test_cross_site_post_with_a_session_is_refused(role_clients):
+    response = role_clients["analyst"].post(
+        "/_dash-update-component", json={}, headers={"Origin": "https://evil.example"}
+    )
+    assert response.status_code == 403
+
+
+# -- open redirect through ``next`` -------------------------------------------------
+
+EVIL_NEXT = [
+    "https://evil.example/",
+    "//evil.example/",
+    "///evil.example/",
+    "/\\evil.example/",
+    "\\\\evil.example",
+    "/\t/evil.example",
+    "javascript:alert(1)",
+    "http:evil.example",
+    " //evil.example",
+    "evil.example",
+]
+
+
+@pytest.mark.parametrize("evil", EVIL_NEXT)
+def test_open_redirect_through_next_is_refused(app, client, make_user, evil):
+    form = client.get("/-/login", query_string={"next": evil}).get_data(as_text=True)
+    assert "evil.example" not in form
+    name, password = make_user("viewer")
+    response = login(client, name, password, next_path=evil)
+    assert response.status_code == 302
+    assert response.headers["Location"] == "/"
+
+
+def test_same_site_next_is_kept(client, make_user):
+    name, password = make_user("viewer")
+    response = login(client, name, password, next_path="/datasets/3?tab=scores")
+    assert response.headers["Location"] == "/datasets/3?tab=scores"
+
+
+# -- lockout ---------------------------------------------------------------------
+
+def _later(monkeypatch, minutes: int):
+    shifted = utcnow() + timedelta(minutes=minutes)
+    monkeypatch.setattr(auth, "utcnow", lambda: shifted)
+
+
+def test_account_lockout_works_and_ends(app_factory, monkeypatch):
+    app = app_factory(LOCKOUT_ATTEMPTS=3, LOCKOUT_MINUTES=15)
+    name, password = add_user(app, "analyst")
+    client = app.test_client()
+    for _ in range(3):
+        assert login(client, name, "wrong-password").status_code == 401
+    locked = login(client, name, password)
+    assert locked.status_code == 401 and "Too many failed sign-ins" in locked.get_data(as_text=True)
+    # A second worker (another app on the same database) sees the same lock.
+    twin = app_factory(LOCKOUT_ATTEMPTS=3, LOCKOUT_MINUTES=15)
+    assert login(twin.test_client(), name, password).status_code == 401
+    _later(monkeypatch, 16)
+    assert login(client, name, password).status_code == 302
+
+
+def test_success_resets_the_failure_count(app_factory):
+    app = app_factory(LOCKOUT_ATTEMPTS=3)
+    name, password = add_user(app, "analyst")
+    client = app.test_client()
+    for _ in range(2):
+        login(client, name, "wrong-password")
+    assert login(client, name, password).status_code == 302
+    other = app.test_client()
+    for _ in range(2):
+        login(other, name, "wrong-password")
+    assert login(other, name, password).status_code == 302
+
+
+def test_address_lockout_works_and_ends(app_factory, monkeypatch):
+    app = app_factory(ADDRESS_LOCKOUT_ATTEMPTS=4, LOCKOUT_ATTEMPTS=100, LOCKOUT_MINUTES=15)
+    name, password = add_user(app, "viewer")
+    attacker = {"REMOTE_ADDR": "192.0.2.7"}
+    client = app.test_client()
+    for i in range(4):  # spread over names so no single account locks
+        assert login(client, f"guess-{i}", "nope", **attacker).status_code == 401
+    assert login(client, name, password, **attacker).status_code == 401
+    assert login(app.test_client(), name, password, REMOTE_ADDR="192.0.2.8").status_code == 302
+    _later(monkeypatch, 16)
+    assert login(app.test_client(), name, password, **attacker).status_code == 302
+
+
+def test_login_form_refuses_a_missing_csrf_token(client, make_user):
+    name, password = make_user("viewer")
+    client.get("/-/login")
+    response = client.post("/-/login", data={"name": name, "password": password})
+    assert response.status_code == 400
+    assert client.get("/_dash-layout").status_code == 401
+
+
+def test_logout_needs_post_and_a_token(client, auth):
+    auth.login("viewer")
+    client.get("/-/logout")  # a GET (e.g. an <img> on another site) must not sign out
+    assert client.get("/_dash-layout").status_code == 200
+    assert client.post("/-/logout", data={"csrf_token": "forged"}).status_code == 400
+    assert client.get("/_dash-layout").status_code == 200
+    assert auth.logout().status_code == 302
+    assert client.get("/_dash-layout").status_code == 401
+
+
+def test_csrf_token_is_per_session(app, make_user):
+    one, two = app.test_client(), app.test_client()
+    assert csrf_from(one.get("/-/login").get_data(as_text=True)) != csrf_from(
+        two.get("/-/login").get_data(as_text=True)
+    )
