@@ -269,3 +269,11 @@ def views_url(dataset_id=None) -> str:
 def view_url(view_id) -> str:
     """A saved view's shareable link."""
     return f"/views/{_path_part(view_id)}"
+
+
+def save_view_url(dataset_id, state: ViewState | None = None, selection=()) -> str:
+    """The form that saves a dataset page's state (and selection) as a named view."""
+    pairs = [("save", "1"), ("dataset", str(dataset_id))] + [("sel", str(s)) for s in selection]
+    query = urlencode(pairs, quote_via=quote)
+    settings = to_query(state) if state is not None else ""
+    return f"/views?{query}&{settings}" if settings else f"/views?{query}"
