@@ -277,3 +277,8 @@ def save_view_url(dataset_id, state: ViewState | None = None, selection=()) -> s
     query = urlencode(pairs, quote_via=quote)
     settings = to_query(state) if state is not None else ""
     return f"/views?{query}&{settings}" if settings else f"/views?{query}"
+
+
+def proposal_url(proposal_id) -> str:
+    """One proposal in the reviewer queue (details, comparison, signing form)."""
+    return f"/review?{urlencode({'proposal': proposal_id})}"
