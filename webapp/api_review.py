@@ -239,7 +239,7 @@ def signoff_report(dataset_id: int):
     if proposal is not None and not proposal.isdigit():
         return Response("proposal must be a whole number", status=400, mimetype="text/plain")
     try:
-        html = report_html(dataset_id, int(proposal) if proposal else None)
+        html = report_html(dataset_id, int(proposal) if proposal else None, printed_by=_user().display_name)
     except (ingest.DatasetNotFound, review.ProposalNotFound):
         return Response("not found", status=404, mimetype="text/plain")
     return Response(html, mimetype="text/html", headers={"Cache-Control": "no-store"})

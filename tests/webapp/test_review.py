@@ -110,3 +110,260 @@ def test_exclusions_fold_in_decision_order():
     assert rules.fold_exclusions(decided) == ["S1", "S2", "S5"]
     assert rules.fold_exclusions(decided[:3]) == ["S1", "S5"]
     assert rules.after_exclusions("reinstate", ["S1"], ["S1", "S5"]) == ["S5"]
+
+
+# --- the workflow over the API ------------------------------------------------------------
+
+from types import SimpleNamespace  # noqa: E402
+
+from webapp import auth as webauth  # noqa: E402
+from webapp.store import accounts, session_scope  # noqa: E402
+
+from conftest import add_user  # noqa: E402
+from wine_data import wine_csv, wine_frame  # noqa: E402
+
+ROLES = ("viewer", "analyst", "reviewer", "admin")
+
+
+def actor(app, role, display_name=None):
+    """A user of ``role`` with a known password and an API token."""
+    name, password = add_user(app, role, display_name=display_name)
+    with app.app_context(), session_scope() as s:
+        user = accounts.get_user_by_name(s, name)
+        token = webauth.create_token(s, user.id, "test")
+        user_id = user.id
+    return SimpleNamespace(
+        id=user_id, name=name, password=password, display_name=display_name or name, role=role,
+        headers={"Authorization": f"Bearer {token}"},
+    )
+
+
+@pytest.fixture
+def team(app):
+    return {role: actor(app, role, f"{role.title()} Person") for role in ROLES} | {
+        "analyst2": actor(app, "analyst", "Second Analyst"),
+        "reviewer2": actor(app, "reviewer", "Second Reviewer"),
+    }
+
+
+@pytest.fixture
+def dataset_id(client, team):
+    # Wine recognition data (Aeberhard, Coomans & de Vel 1992) as shipped by scikit-learn;
+    # the first 40 samples keep the fits quick.
+    raw = wine_csv(wine_frame().head(40))
+    response = client.post(
+        "/api/v1/datasets", data={"file": (__import__("io").BytesIO(raw), "wine40.csv"), "id_column": "sample"},
+        headers=team["analyst"].headers, content_type="multipart/form-data",
+    )
+    assert response.status_code == 201, response.get_json()
+    return response.get_json()["dataset"]["id"]
+
+
+def propose(client, who, dataset_id, samples=("W-003",), action="exclude", **extra):
+    body = {"samples": list(samples), "reason_category": "measurement error",
+            "reason": "balance drift noted in the bench log", "action": action, **extra}
+    return client.post(f"/api/v1/datasets/{dataset_id}/exclusions", json=body, headers=who.headers)
+
+
+def sign(client, who, proposal_id, decision="approve", password=None, comment="checked the raw record"):
+    return client.post(
+        f"/api/v1/exclusions/{proposal_id}/{decision}",
+        json={"password": who.password if password is None else password, "comment": comment},
+        headers=who.headers,
+    )
+
+
+def log_of(client, who, dataset_id):
+    response = client.get(f"/api/v1/datasets/{dataset_id}/review-log", headers=who.headers)
+    assert response.status_code == 200
+    return response.get_json()["entries"]
+
+
+@pytest.mark.parametrize("role,status", [("viewer", 403), ("analyst", 201), ("reviewer", 201), ("admin", 201)])
+def test_role_matrix_propose(client, team, dataset_id, role, status):
+    response = propose(client, team[role], dataset_id)
+    assert response.status_code == status, response.get_json()
+    if status == 201:
+        proposal = response.get_json()["proposal"]
+        assert proposal["state"] == "proposed" and proposal["samples"] == ["W-003"]
+        comparison = proposal["comparison"]
+        assert comparison["before"]["excluded"] == [] and comparison["after"]["excluded"] == ["W-003"]
+        assert comparison["before"]["fingerprint"] != comparison["after"]["fingerprint"]
+        assert len(comparison["compare"]["principal_angles"]) == comparison["before"]["n_components"]
+
+
+@pytest.mark.parametrize("decision", ["approve", "reject"])
+@pytest.mark.parametrize("role,status", [("viewer", 403), ("analyst", 403), ("reviewer", 200), ("admin", 200)])
+def test_role_matrix_sign(client, team, dataset_id, decision, role, status):
+    proposal_id = propose(client, team["analyst2"], dataset_id).get_json()["proposal"]["id"]
+    response = sign(client, team[role], proposal_id, decision)
+    assert response.status_code == status, response.get_json()
+    if status == 200:
+        signed = response.get_json()["proposal"]
+        meaning = {"approve": "approved", "reject": "rejected"}[decision]
+        assert signed["state"] == meaning
+        # 21 CFR 11.50: printed name, date and time, meaning.
+        assert signed["sign_off"]["printed_name"] == team[role].display_name
+        assert signed["sign_off"]["meaning"] == meaning
+        assert signed["sign_off"]["signed_at"].endswith("Z")
+
+
+@pytest.mark.parametrize("role,status", [("viewer", 403), ("analyst", 403), ("reviewer", 403), ("admin", 403)])
+def test_role_matrix_withdraw_by_someone_else(client, team, dataset_id, role, status):
+    proposal_id = propose(client, team["analyst2"], dataset_id).get_json()["proposal"]["id"]
+    response = client.post(f"/api/v1/exclusions/{proposal_id}/withdraw", json={}, headers=team[role].headers)
+    assert response.status_code == status
+
+
+@pytest.mark.parametrize("role", ROLES)
+def test_role_matrix_reading(client, team, dataset_id, role):
+    who = team[role]
+    assert client.get(f"/api/v1/datasets/{dataset_id}/review-log", headers=who.headers).status_code == 200
+    assert client.get(f"/api/v1/datasets/{dataset_id}/review-log.csv", headers=who.headers).status_code == 200
+    assert client.get(f"/api/v1/datasets/{dataset_id}/exclusions", headers=who.headers).status_code == 200
+    assert client.get("/api/v1/review-log/verify", headers=who.headers).status_code == 200
+
+
+@pytest.mark.parametrize(
+    "method,path",
+    [
+        ("post", "/api/v1/datasets/1/exclusions"),
+        ("post", "/api/v1/exclusions/1/approve"),
+        ("post", "/api/v1/exclusions/1/reject"),
+        ("post", "/api/v1/exclusions/1/withdraw"),
+        ("get", "/api/v1/datasets/1/review-log"),
+        ("get", "/api/v1/review-log/verify"),
+        ("post", "/api/v1/views"),
+        ("get", "/api/v1/views/abc"),
+    ],
+)
+def test_every_review_route_needs_a_user(client, method, path):
+    response = getattr(client, method)(path, json={})
+    assert response.status_code == 401
+    assert response.get_json()["ok"] is False
+
+
+def test_proposer_cannot_sign_own_proposal(client, team, dataset_id):
+    proposal_id = propose(client, team["reviewer"], dataset_id).get_json()["proposal"]["id"]
+    response = sign(client, team["reviewer"], proposal_id)
+    assert response.status_code == 403
+    assert "own proposal" in response.get_json()["error"]["message"]
+    assert client.get(f"/api/v1/exclusions/{proposal_id}", headers=team["viewer"].headers).get_json()[
+        "proposal"]["state"] == "proposed"
+
+
+def test_wrong_password_is_refused_and_logged(client, team, dataset_id):
+    proposal_id = propose(client, team["analyst"], dataset_id).get_json()["proposal"]["id"]
+    response = sign(client, team["reviewer"], proposal_id, password="not-my-password")
+    assert response.status_code == 403
+    assert response.get_json()["error"]["code"] == "wrong_password"
+    proposal = client.get(f"/api/v1/exclusions/{proposal_id}", headers=team["viewer"].headers).get_json()["proposal"]
+    assert proposal["state"] == "proposed" and proposal["sign_off"] is None
+    failed = [e for e in log_of(client, team["viewer"], dataset_id) if e["action"] == "sign_failed"]
+    assert len(failed) == 1
+    assert failed[0]["actor_name"] == team["reviewer"].display_name
+    assert failed[0]["payload"]["proposal_id"] == proposal_id
+    # The right password afterwards still signs.
+    assert sign(client, team["reviewer"], proposal_id).status_code == 200
+
+
+def test_missing_password_is_refused(client, team, dataset_id):
+    proposal_id = propose(client, team["analyst"], dataset_id).get_json()["proposal"]["id"]
+    response = client.post(f"/api/v1/exclusions/{proposal_id}/approve", json={"comment": "x"},
+                           headers=team["reviewer"].headers)
+    assert response.status_code == 403 and response.get_json()["error"]["code"] == "wrong_password"
+
+
+def test_withdraw_by_proposer_then_nothing_changes_it(client, team, dataset_id):
+    proposal_id = propose(client, team["analyst"], dataset_id).get_json()["proposal"]["id"]
+    response = client.post(f"/api/v1/exclusions/{proposal_id}/withdraw", json={"comment": "wrong sample"},
+                           headers=team["analyst"].headers)
+    assert response.status_code == 200 and response.get_json()["proposal"]["state"] == "withdrawn"
+    assert sign(client, team["reviewer"], proposal_id).status_code == 409
+    again = client.post(f"/api/v1/exclusions/{proposal_id}/withdraw", json={}, headers=team["analyst"].headers)
+    assert again.status_code == 409
+    assert [e["action"] for e in log_of(client, team["viewer"], dataset_id)] == ["propose", "withdraw"]
+
+
+def test_decided_proposal_cannot_be_signed_twice(client, team, dataset_id):
+    proposal_id = propose(client, team["analyst"], dataset_id).get_json()["proposal"]["id"]
+    assert sign(client, team["reviewer"], proposal_id).status_code == 200
+    second = sign(client, team["reviewer2"], proposal_id, "reject")
+    assert second.status_code == 409
+    assert client.post(f"/api/v1/exclusions/{proposal_id}/withdraw", json={},
+                       headers=team["analyst"].headers).status_code == 409
+
+
+def test_bad_proposals_get_a_400_and_store_nothing(client, team, dataset_id):
+    assert propose(client, team["analyst"], dataset_id, samples=["W-999"]).status_code == 400
+    response = propose(client, team["analyst"], dataset_id, reason=" ")
+    assert response.status_code == 400 and "reason is required" in response.get_json()["error"]["message"]
+    response = propose(client, team["analyst"], dataset_id, reason_category="felt like it")
+    assert response.status_code == 400
+    assert client.post("/api/v1/datasets/999/exclusions", json={}, headers=team["analyst"].headers).status_code == 404
+    assert log_of(client, team["viewer"], dataset_id) == []
+
+
+def _fit(client, who, dataset_id, **body):
+    response = client.post(f"/api/v1/datasets/{dataset_id}/models", json={"components": 2, **body},
+                           headers=who.headers)
+    assert response.status_code == 200, response.get_json()
+    return response.get_json()["model"]
+
+
+def test_approved_exclusions_apply_by_default_and_explicit_lists_are_what_if(client, team, dataset_id):
+    proposal_id = propose(client, team["analyst"], dataset_id, samples=["W-007", "W-003"]).get_json()["proposal"]["id"]
+    assert _fit(client, team["analyst"], dataset_id)["excluded"] == []  # nothing approved yet
+    assert sign(client, team["reviewer"], proposal_id).status_code == 200
+
+    current = _fit(client, team["analyst"], dataset_id)
+    assert current["excluded"] == ["W-003", "W-007"] and current["what_if"] is False
+    assert current["n_samples"] == 38
+
+    preview = _fit(client, team["analyst"], dataset_id, exclude=[])
+    assert preview["excluded"] == [] and preview["what_if"] is True and preview["n_samples"] == 40
+    assert preview["fingerprint"] != current["fingerprint"]
+
+
+def test_reinstate_needs_its_own_signed_proposal(client, team, dataset_id):
+    first = propose(client, team["analyst"], dataset_id, samples=["W-003", "W-010"]).get_json()["proposal"]["id"]
+    assert sign(client, team["reviewer"], first).status_code == 200
+    # Reinstating a sample that is not excluded is refused.
+    assert propose(client, team["analyst"], dataset_id, samples=["W-011"], action="reinstate").status_code == 400
+    back = propose(client, team["analyst"], dataset_id, samples=["W-010"], action="reinstate",
+                   reason_category="extreme but valid")
+    assert back.status_code == 201
+    back_id = back.get_json()["proposal"]["id"]
+    # Until it is signed, the exclusion stands.
+    assert _fit(client, team["analyst"], dataset_id)["excluded"] == ["W-003", "W-010"]
+    assert sign(client, team["reviewer2"], back_id).status_code == 200
+    assert _fit(client, team["analyst"], dataset_id)["excluded"] == ["W-003"]
+    listing = client.get(f"/api/v1/datasets/{dataset_id}/exclusions", headers=team["viewer"].headers).get_json()
+    assert listing["approved_exclusions"] == ["W-003"]
+
+
+def test_log_records_who_did_what_and_verifies(client, team, dataset_id):
+    proposal_id = propose(client, team["analyst"], dataset_id).get_json()["proposal"]["id"]
+    sign(client, team["reviewer"], proposal_id, "reject", comment="=HYPERLINK(\"x\")")
+    entries = log_of(client, team["viewer"], dataset_id)
+    assert [(e["action"], e["actor_name"]) for e in entries] == [
+        ("propose", team["analyst"].display_name), ("reject", team["reviewer"].display_name)]
+    assert entries[1]["payload"]["meaning"] == "rejected"
+    verified = client.get("/api/v1/review-log/verify", headers=team["viewer"].headers).get_json()
+    assert verified["intact"] is True and verified["head"]["hash"] == entries[-1]["hash"]
+    # OWASP CSV Injection: a text cell starting with '=' is prefixed with a single quote.
+    csv_text = client.get(f"/api/v1/datasets/{dataset_id}/review-log.csv",
+                          headers=team["viewer"].headers).get_data(as_text=True)
+    assert "'=HYPERLINK" in csv_text and ",=HYPERLINK" not in csv_text
+
+
+def test_log_filters(client, team, dataset_id):
+    proposal_id = propose(client, team["analyst"], dataset_id).get_json()["proposal"]["id"]
+    sign(client, team["reviewer"], proposal_id)
+    url = f"/api/v1/datasets/{dataset_id}/review-log"
+    only = client.get(f"{url}?action=approve", headers=team["viewer"].headers).get_json()["entries"]
+    assert [e["action"] for e in only] == ["approve"]
+    mine = client.get(f"{url}?actor={team['analyst'].id}", headers=team["viewer"].headers).get_json()["entries"]
+    assert [e["action"] for e in mine] == ["propose"]
+    bad = client.get(f"{url}?since=yesterday", headers=team["viewer"].headers)
+    assert bad.status_code == 400 and "since" in bad.get_json()["error"]["message"]
