@@ -51,6 +51,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from scipy.sparse.linalg import eigsh
 
 from analysis.errors import InputError
 from analysis.preprocessing import Preprocessor, as_matrix, scale_block
@@ -63,6 +64,7 @@ PA_QUANTILE = 95.0
 PA_MIN_SIMULATIONS, PA_MAX_SIMULATIONS = 20, 100
 PA_WORK_BUDGET = 2e10  # floating-point operations spent on random eigenvalues, at most
 NIPALS_TOL, NIPALS_MAX_ITER = 1e-10, 500
+LANCZOS_MIN_SIZE = 400  # below this a full LAPACK eigendecomposition is as fast
 _CHUNK_ROWS = 8192
 
 TABLE_COLUMNS = [
@@ -187,8 +189,10 @@ def rank_table(Z, scaling, max_components=MAX_COMPONENTS, random_state=0) -> Ran
     Z = np.asarray(Z, dtype=np.float64)
     n, p = Z.shape
     notes: list[str] = []
-    eigenvalues = data_eigenvalues(mean_imputed(Z))
-    total = float(eigenvalues.sum())
+    imputed = mean_imputed(Z)
+    eigenvalues = data_eigenvalues(imputed, max_components)
+    total = float(np.einsum("ij,ij->", imputed, imputed)) / max(n - 1, 1)
+    del imputed
     rank = _numerical_rank(eigenvalues, Z.shape, centred=scaling != "none")
     n_rows = min(max_components, rank)
     if n_rows < 1:
@@ -287,16 +291,36 @@ def mean_imputed(Z) -> np.ndarray:
     return Z
 
 
-def data_eigenvalues(Z) -> np.ndarray:
-    """Eigenvalues lambda = t't/(n-1) of complete preprocessed data, all min(n, p), descending."""
+def data_eigenvalues(Z, k=None) -> np.ndarray:
+    """Largest k (default all min(n, p)) eigenvalues lambda = t't/(n-1) of complete data, descending."""
     Z = np.asarray(Z, dtype=np.float64)
     n = Z.shape[0]
-    return _gram_eigenvalues(Z.T @ Z if n >= Z.shape[1] else Z @ Z.T, n)
+    return _gram_eigenvalues(Z.T @ Z if n >= Z.shape[1] else Z @ Z.T, n, k)
 
 
-def _gram_eigenvalues(gram: np.ndarray, n: int) -> np.ndarray:
-    values = np.linalg.eigvalsh(gram)[::-1] / max(n - 1, 1)
+def _gram_eigenvalues(gram: np.ndarray, n: int, k=None) -> np.ndarray:
+    values = _top_eigh(gram, gram.shape[0] if k is None else k)[0] / max(n - 1, 1)
     return np.clip(values, 0.0, None)
+
+
+def _top_eigh(gram: np.ndarray, k: int, vectors: bool = False):
+    """Largest k eigenvalues (descending) of a symmetric matrix, and their vectors when asked.
+
+    Small matrices, or many eigenvalues: LAPACK. Otherwise Lanczos iteration
+    (ARPACK) to full precision, started from a fixed seeded vector so the
+    result is deterministic; it costs O(N^2 k) per sweep instead of O(N^3).
+    """
+    size = gram.shape[0]
+    k = min(int(k), size)
+    if size <= LANCZOS_MIN_SIZE or 3 * k >= size:
+        if not vectors:
+            return np.linalg.eigvalsh(gram)[::-1][:k], None
+        values, vecs = np.linalg.eigh(gram)
+        return values[::-1][:k], vecs[:, ::-1][:, :k]
+    start = np.random.default_rng(0).standard_normal(size)
+    values, vecs = eigsh(gram, k=k, which="LA", v0=start, tol=0.0, return_eigenvectors=True)
+    order = np.argsort(values)[::-1]
+    return values[order], (vecs[:, order] if vectors else None)
 
 
 def _numerical_rank(eigenvalues: np.ndarray, shape=None, centred=True) -> int:
@@ -346,12 +370,12 @@ def parallel_analysis(
     rng = np.random.default_rng(random_state)
     simulated = np.empty((n_simulations, n_components))
     for s in range(n_simulations):
-        simulated[s] = _random_eigenvalues(rng, n, p, means, spreads, scaling)[:n_components]
+        simulated[s] = _random_eigenvalues(rng, n, p, means, spreads, scaling, n_components)
     return np.percentile(simulated, quantile, axis=0)
 
 
-def _random_eigenvalues(rng, n, p, means, spreads, scaling) -> np.ndarray:
-    """Eigenvalues of one preprocessed random normal matrix (see parallel_analysis)."""
+def _random_eigenvalues(rng, n, p, means, spreads, scaling, k) -> np.ndarray:
+    """Largest k eigenvalues of one preprocessed random normal matrix (see parallel_analysis)."""
     if n < p:
         N = rng.standard_normal((n, p))
         if scaling == "none":
@@ -359,7 +383,7 @@ def _random_eigenvalues(rng, n, p, means, spreads, scaling) -> np.ndarray:
         else:
             centred = N - N.mean(axis=0)
             R = centred * _column_factors(centred.std(axis=0, ddof=1), spreads, scaling)
-        return _gram_eigenvalues(R @ R.T, n)
+        return _gram_eigenvalues(R @ R.T, n, k)
     # Tall data: accumulate N'N and the column sums chunk by chunk, so memory stays O(p^2).
     gram = np.zeros((p, p))
     sums = np.zeros(p)
@@ -371,10 +395,10 @@ def _random_eigenvalues(rng, n, p, means, spreads, scaling) -> np.ndarray:
         # R = m + s N, so R'R = S N'N S + S u m' + m u' S + n m m' with u = N'1.
         scaled = spreads[:, None] * gram * spreads[None, :]
         cross = np.outer(spreads * sums, means)
-        return _gram_eigenvalues(scaled + cross + cross.T + n * np.outer(means, means), n)
+        return _gram_eigenvalues(scaled + cross + cross.T + n * np.outer(means, means), n, k)
     centred = gram - np.outer(sums, sums) / n
     factors = _column_factors(np.sqrt(np.clip(np.diag(centred), 0.0, None) / (n - 1)), spreads, scaling)
-    return _gram_eigenvalues(factors[:, None] * centred * factors[None, :], n)
+    return _gram_eigenvalues(factors[:, None] * centred * factors[None, :], n, k)
 
 
 def _column_factors(random_sd, spreads, scaling) -> np.ndarray:
@@ -470,11 +494,9 @@ def _fold_loadings(centred: np.ndarray, n_components: int) -> np.ndarray:
         return _incomplete_loadings(centred, n_components)
     n, p = centred.shape
     if n >= p:
-        values, vectors = np.linalg.eigh(centred.T @ centred)
-        values, vectors = values[::-1], vectors[:, ::-1]
+        values, vectors = _top_eigh(centred.T @ centred, n_components, vectors=True)
     else:
-        values, left = np.linalg.eigh(centred @ centred.T)
-        values, left = values[::-1], left[:, ::-1]
+        values, left = _top_eigh(centred @ centred.T, n_components, vectors=True)
         keep = values > 0
         vectors = np.zeros((p, values.size))
         vectors[:, keep] = (centred.T @ left[:, keep]) / np.sqrt(values[keep])

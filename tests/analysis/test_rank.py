@@ -261,3 +261,16 @@ def test_choose_components_preprocesses_like_the_model():
     )
     with pytest.raises(InputError, match="log10"):
         choose_components(frame, log10=["zz"])
+
+
+def test_large_matrices_use_lanczos_and_agree_with_lapack_svd():
+    # Above LANCZOS_MIN_SIZE only the leading eigenvalues are computed (ARPACK); reference: numpy's LAPACK SVD.
+    rng = np.random.default_rng(12)
+    Z = _autoscale(_planted(rng, 450, 520, 3, noise=0.1))
+    np.testing.assert_allclose(
+        data_eigenvalues(Z, 6), (np.linalg.svd(Z, compute_uv=False) ** 2 / 449)[:6], rtol=1e-9
+    )
+    ours = parallel_analysis(Z, "autoscale", 3, n_simulations=3, random_state=2)
+    np.testing.assert_allclose(ours, _direct_parallel_thresholds(Z, "autoscale", 3, 3, 2), rtol=1e-8)
+    cv, _ = ekf_cross_validation(Z, 4, n_folds=3, random_state=0)
+    assert np.argmax(np.diff(np.concatenate([[0.0], cv])) < 0.01) == 3  # planted rank 3 (theory check)
