@@ -111,6 +111,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_platform_commands(commands)  # serve, demo, users, tokens
 
+    from webapp.cli_review import add_review_commands
+
+    add_review_commands(commands)  # log verify
+
     return parser
 
 

@@ -259,3 +259,43 @@ def test_concurrent_appends_in_threads_never_fork_the_chain(stored_chain):
         t.join()
     assert not errors, errors
     assert _verify(stored_chain) == (True, None, "intact: 25 entries")
+
+
+# --- latentdesk log verify ----------------------------------------------------------------
+
+
+@pytest.fixture
+def sqlite_chain(app_factory, tmp_path, monkeypatch):
+    home = tmp_path / "cli-home"
+    app = app_factory(HOME=str(home))
+    with app.app_context():
+        for i in range(3):
+            with session_scope() as s:
+                audit.append(s, actor_id=None, actor_name="System Test", action="note", payload={"i": i})
+    monkeypatch.setenv("LATENTDESK_HOME", str(home))
+    monkeypatch.delenv("LATENTDESK_DATABASE_URL", raising=False)
+    return app
+
+
+def test_cli_log_verify_exits_0_when_intact(sqlite_chain, capsys):
+    from webapp.cli import main
+
+    assert main(["log", "verify"]) == 0
+    assert "intact: 3 entries" in capsys.readouterr().out
+
+
+def test_cli_log_verify_exits_1_naming_the_broken_entry(sqlite_chain, capsys):
+    from webapp.cli import main
+
+    _as_superuser(sqlite_chain, "UPDATE review_log SET actor_name = 'Nobody' WHERE seq = 2")
+    assert main(["log", "verify"]) == 1
+    assert "BROKEN at entry 2" in capsys.readouterr().out
+
+
+def test_cli_log_verify_without_a_database_is_bad_input(tmp_path, monkeypatch, capsys):
+    from webapp.cli import main
+
+    monkeypatch.setenv("LATENTDESK_HOME", str(tmp_path / "nothing-here"))
+    monkeypatch.delenv("LATENTDESK_DATABASE_URL", raising=False)
+    assert main(["log", "verify"]) == 2
+    assert "no database" in capsys.readouterr().err
