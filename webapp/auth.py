@@ -21,6 +21,7 @@ from __future__ import annotations
 import hashlib
 import hmac
 import secrets
+import time
 from dataclasses import dataclass
 from datetime import timedelta
 from functools import wraps
@@ -28,7 +29,7 @@ from typing import Callable
 from urllib.parse import urlsplit
 
 from flask import Flask, abort, current_app, g, jsonify, make_response, redirect, request, session, url_for
-from flask_login import LoginManager, UserMixin, current_user
+from flask_login import LoginManager, UserMixin, current_user, logout_user
 from werkzeug.exceptions import HTTPException
 from werkzeug.security import check_password_hash, generate_password_hash
 
@@ -46,6 +47,7 @@ PUBLIC_PREFIXES = ("/assets/",)
 # Requests answered with JSON (401/403 bodies) instead of a redirect or page.
 JSON_PREFIXES = ("/api/", "/_dash-", "/_reload-hash", "/_alive_")
 CSRF_SESSION_KEY = "csrf_token"
+SIGNED_IN_AT_KEY = "signed_in_at"
 _DUMMY_HASH = generate_password_hash("not-a-real-password-" + "x" * 8, method="scrypt")
 
 login_manager = LoginManager()
@@ -372,6 +374,9 @@ def guard_request():
         return None
     if _bearer_token() is not None and not current_user.is_authenticated:
         return denial(401, "The API token is unknown, revoked or belongs to a disabled user.")
+    if _session_expired():
+        logout_user()
+        session.clear()
     if _is_public(request.path):
         return None
     if not current_user.is_authenticated:
@@ -382,6 +387,14 @@ def guard_request():
     if role is not None and not has_role(current_user.role, role):
         return denial(403)
     return None
+
+
+def _session_expired() -> bool:
+    """A browser sign-in older than ``SESSION_HOURS`` (token requests have none)."""
+    signed_in_at = session.get(SIGNED_IN_AT_KEY)
+    if signed_in_at is None:
+        return False
+    return time.time() - signed_in_at > current_app.config["SESSION_HOURS"] * 3600
 
 
 def _same_origin() -> bool:
@@ -409,7 +422,6 @@ def init_app(app: Flask) -> None:
         REMEMBER_COOKIE_HTTPONLY=True,
         REMEMBER_COOKIE_SAMESITE="Lax",
         REMEMBER_COOKIE_SECURE=bool(cfg["SECURE_COOKIES"]),
-        PERMANENT_SESSION_LIFETIME=timedelta(hours=cfg["SESSION_HOURS"]),
     )
     login_manager.init_app(app)
     app.before_request(guard_request)

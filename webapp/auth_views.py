@@ -5,6 +5,8 @@ Both live under the reserved ``/-/`` prefix, which user-named things never use.
 
 from __future__ import annotations
 
+import time
+
 from flask import Blueprint, make_response, redirect, render_template_string, request, session, url_for
 from flask_login import current_user, login_user, logout_user
 
@@ -86,7 +88,9 @@ def login():
     except auth.LoginRefused as refused:
         return _login_form(str(refused), name, next_path, 401)
     session.clear()  # a fresh session on sign-in (no fixation)
-    session.permanent = True
+    # Not a "permanent" session: flask-login's strong protection only acts on
+    # browser-session cookies. Its lifetime is enforced by auth.guard_request.
+    session[auth.SIGNED_IN_AT_KEY] = int(time.time())
     login_user(user, fresh=True)
     auth.csrf_token()
     return redirect(next_path)
