@@ -41,6 +41,8 @@ _ID_NAME = re.compile(
     r"(?:id|no\.?|nr\.?|number|code|name|sample|specimen)$",
     re.IGNORECASE,
 )
+_MARKER_SPELLINGS = sorted({v for m in MISSING_MARKERS for v in (m, m.upper(), m.capitalize(), m.title())})
+_BLANKS = (" ", "\t", "\r", "\n", "\u00a0", "\u202f", "\u3000")
 _POLICY_TEXT = {"half": "LOD/2", "sqrt2": "LOD/sqrt(2)", "missing": "missing"}
 _SIGNATURES = (
     (b"\x89PNG\r\n\x1a\n", "a PNG image"),
@@ -173,7 +175,7 @@ def read_table(
     raw = bytes(raw)
     if len(raw) > max_bytes:
         raise IntakeError(_too_big(filename, len(raw), max_bytes))
-    if not raw.strip():
+    if not raw or raw.isspace():
         raise IntakeError(f"{filename}: the file is empty.")
     roles = dict(roles or {})
     if id_column is not None:
@@ -268,6 +270,12 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
             numbers[col] = values
     # Fully blank rows and columns (trailing separators, blank lines) vanish silently.
     blank_row = frame.isna().all(axis=1).to_numpy()
+    texts: dict[str, np.ndarray] = {}  # metadata and id columns as clean text, None where missing
+
+    def text_of(col: str) -> np.ndarray:
+        if col not in texts:
+            texts[col] = _text(frame[col])
+        return texts[col]
     for col in list(decided):
         if decided[col] == "variable" and np.isnan(numbers[col][~blank_row]).all() and col not in roles:
             empty_text = parses[col] is None or not (parses[col].bare_limit or parses[col].bad)
@@ -276,7 +284,7 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
                 del numbers[col]
                 if not col.startswith("column "):
                     report.warnings.append(f"{where(col)} has no values and was left out.")
-        elif decided[col] == "metadata" and _missing_mask(frame[col])[~blank_row].all() and col not in roles:
+        elif decided[col] == "metadata" and pd.isna(text_of(col)[~blank_row]).all() and col not in roles:
             decided[col] = "ignore"
             if not col.startswith("column "):
                 report.warnings.append(f"{where(col)} has no values and was left out.")
@@ -286,11 +294,11 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
     # Sample ids.
     id_col = next((c for c, r in decided.items() if r == "id"), None)
     if id_col is None:
-        id_col = _detect_id(frame, decided, keep, roles)
+        id_col = _detect_id(frame, text_of, decided, keep, roles)
         if id_col is not None:
             decided[id_col] = "id"
     if id_col is not None:
-        ids = _text(frame[id_col])[keep]
+        ids = text_of(id_col)[keep]
         _check_ids(ids, rows, id_col, where(id_col), filename)
     else:
         ids = np.array([f"row {r}" for r in rows], dtype=object)
@@ -340,7 +348,9 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
     data = pd.DataFrame(numbers, columns=variables, copy=False)
     data.index = pd.Index(ids, dtype=object, name=id_col or "sample")
     metadata_cols = [c for c, r in decided.items() if r == "metadata"]
-    metadata = pd.DataFrame({c: _text(frame[c])[keep] for c in metadata_cols}, index=data.index, columns=metadata_cols)
+    metadata = pd.DataFrame(
+        {c: text_of(c)[keep] for c in metadata_cols}, index=data.index, columns=metadata_cols
+    )
 
     # Rows where every variable is missing are left out, with a warning.
     data_missing = data.isna()
@@ -372,12 +382,6 @@ def _is_numeric(series: pd.Series) -> bool:
     return pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(series.dtype)
 
 
-def _missing_mask(series: pd.Series) -> np.ndarray:
-    """True where a cell is blank, NaN or a missing-value marker."""
-    marker = series.astype(str).str.strip().str.lower().isin(MISSING_MARKERS)
-    return (series.isna() | marker).to_numpy(dtype=bool)
-
-
 def _looks_like_numbers(series: pd.Series, decimal: str) -> bool:
     """Classify a text column from a sample of its filled cells: numbers if half or more read as numbers."""
     cells = series.dropna()
@@ -390,25 +394,33 @@ def _looks_like_numbers(series: pd.Series, decimal: str) -> bool:
 
 
 def _text(series: pd.Series) -> np.ndarray:
-    """Cells as stripped strings (None for missing); whole numbers lose their '.0'."""
-    if pd.api.types.is_string_dtype(series.dtype):
-        stripped = series.str.strip()
-        out = stripped.to_numpy(dtype=object, na_value=None)
-        out[_missing_mask(stripped)] = None
-        return out
-    out = np.empty(len(series), dtype=object)
-    for i, c in enumerate(series.astype(object).to_numpy()):
-        if c is None or (isinstance(c, float) and math.isnan(c)):
-            out[i] = None
-        elif isinstance(c, float) and c.is_integer():
-            out[i] = str(int(c))
-        else:
-            text = str(c).strip()
-            out[i] = None if text.lower() in MISSING_MARKERS else text
-    return out
+    """Cells as stripped strings, None where blank or a missing marker; whole numbers lose their '.0'."""
+    cells = series.to_numpy(dtype=object, na_value=None) if not _is_numeric(series) else series.to_numpy(dtype=object)
+    plain = all(isinstance(c, str) or c is None for c in cells[:1000]) and pd.api.types.is_string_dtype(series.dtype)
+    if not plain or _has_padding(cells):
+        cells = np.array([_cell_text(c) for c in cells] or [], dtype=object)
+    missing = pd.Series(cells, dtype=object).isin(_MARKER_SPELLINGS).to_numpy() | np.equal(cells, None)
+    if missing.any():
+        cells = cells.copy()
+        cells[missing] = None
+    return cells
 
 
-def _detect_id(frame: pd.DataFrame, decided: dict, keep: np.ndarray, roles: dict) -> str | None:
+def _cell_text(c):
+    if c is None or (isinstance(c, float) and math.isnan(c)):
+        return None
+    if isinstance(c, float) and c.is_integer():
+        return str(int(c))
+    return str(c).strip()
+
+
+def _has_padding(cells: np.ndarray) -> bool:
+    """True when some text cell starts or ends with blanks (checked on one joined string, not cell by cell)."""
+    joined = "\x00" + "\x00".join(pd.Series(cells, dtype=object).fillna("").tolist()) + "\x00"
+    return any(f"\x00{b}" in joined or f"{b}\x00" in joined for b in _BLANKS)
+
+
+def _detect_id(frame: pd.DataFrame, text_of, decided: dict, keep: np.ndarray, roles: dict) -> str | None:
     """First metadata column (not named by the user) whose values are all present and unique.
 
     A first column named like an id ("Sample ID", "Code", ...) or holding
@@ -418,11 +430,11 @@ def _detect_id(frame: pd.DataFrame, decided: dict, keep: np.ndarray, roles: dict
     for j, col in enumerate(frame.columns):
         if decided[col] != "metadata" or col in roles:
             continue
-        series = frame[col][keep]
-        stripped = series.astype(str).str.strip()
-        if series.isna().any() or stripped.str.lower().isin(MISSING_MARKERS).any():
+        cells = text_of(col)[keep]
+        if pd.isna(cells).any():
             continue
-        if stripped.is_unique or (j == 0 and (_ID_NAME.match(col) or stripped.nunique() >= 0.8 * len(stripped))):
+        index = pd.Index(cells, dtype=object)
+        if index.is_unique or (j == 0 and (_ID_NAME.match(col) or index.nunique() >= 0.8 * len(index))):
             return col
     return None
 

@@ -157,13 +157,15 @@ _EURO_GROUPED = re.compile(r"^[+-]?\d{1,3}(\.\d{3})+,\d+$")
 _ANGLO_GROUPED = re.compile(r"^[+-]?\d{1,3}(,\d{3})+\.\d+$")
 
 
-def guess_decimal(cells) -> str:
+def guess_decimal(cells, delimiter: str | None = None) -> str:
     """',' when the sample's numbers mostly use a decimal comma, else '.'.
 
-    "1,234" alone is ambiguous (decimal or thousands) and is not counted.
-    Common practice: lab exports from European sites write "0,05".
+    "1,234" alone is ambiguous (decimal or thousands) and is not counted;
+    when nothing else decides, a ';'-separated file with such cells is read
+    with a decimal comma, because ';' is chosen where ',' is the decimal mark.
+    Common practice: lab exports from European sites write "0,05" and ';'.
     """
-    comma = point = 0
+    comma = point = ambiguous = 0
     for cell in cells:
         if not isinstance(cell, str):
             continue
@@ -173,8 +175,12 @@ def guess_decimal(cells) -> str:
             if m and (len(m.group(2)) != 3 or m.group(1).startswith("0") or len(m.group(1)) > 3):
                 comma += is_comma
                 point += not is_comma
+            elif m and is_comma:
+                ambiguous += 1
         if _EURO_GROUPED.match(text):
             comma += 1
         elif _ANGLO_GROUPED.match(text):
             point += 1
+    if comma == point == 0 and ambiguous and delimiter == ";":
+        return ","
     return "," if comma > point else "."

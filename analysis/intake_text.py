@@ -33,6 +33,7 @@ SAMPLE_BYTES = 64 * 1024
 SAMPLE_LINES = 200
 DELIMITERS = (",", ";", "\t", "|")
 _DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
+_CONTROL = re.compile("[\x00-\x08\x0b\x0e-\x1f\x7f-\x9f\ufffd]")
 _LINE_BREAK = re.compile(r"\r\n|\n|\r")
 # A line starting with '#' is a comment unless it starts with a spreadsheet error marker.
 _COMMENT_LINE = re.compile(
@@ -95,7 +96,7 @@ def refuse_binary(sample: str, filename: str) -> None:
     """Control characters in more than 1% of the sample mean it is not text."""
     if not sample:
         return
-    bad = sum(1 for ch in sample if (ord(ch) < 32 and ch not in "\t\n\r\f") or 0x7F <= ord(ch) <= 0x9F or ch == "\ufffd")
+    bad = len(_CONTROL.findall(sample))
     if bad > 0.01 * len(sample):
         raise IntakeError(
             f"{filename}: does not look like a text table ({bad} control characters in the first "
@@ -134,11 +135,14 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
     if len(sample) >= SAMPLE_BYTES // 2 and len(lines) > 1:
         lines = lines[:-1]  # the last line of a sample may be cut short
     lines = lines[:SAMPLE_LINES]
-    delimiter = detect_delimiter(lines, filename)
-    rows = [next(csv.reader([ln], delimiter=delimiter), []) for ln in lines]
+    try:
+        delimiter = detect_delimiter(lines, filename)
+        rows = [next(csv.reader([ln], delimiter=delimiter), []) for ln in lines]
+    except csv.Error as exc:
+        raise IntakeError(f"{filename}: the first lines cannot be split into fields ({exc}).") from None
     header = find_header(rows, filename)
     body = [c for r in rows[header + 1 :] if not is_comment_row(r) for c in r]
-    decimal = guess_decimal(body)
+    decimal = guess_decimal(body, delimiter)
     units_at = find_units_row(rows, header, decimal)
     width = max(len(r) for r in rows[header:])
     if width > max_columns:
@@ -168,7 +172,7 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
             engine="c",
             index_col=False,
         )
-    except (pd.errors.ParserError, ValueError, OverflowError) as exc:
+    except Exception as exc:  # pandas raises several types on malformed text; all mean "cannot be read"
         raise _parser_error(exc, filename, delimiter, header + 1, width) from None
     _refuse_unnamed_values(frame, names[len(rows[header]):], skip, filename, header + 1, len(rows[header]))
     return Grid(

@@ -50,7 +50,7 @@ def check_zip(raw: bytes, filename: str, max_bytes: int) -> None:
             "Save it as .xlsx or .csv."
         )
     total = sum(i.file_size for i in infos)
-    limit = max(5 * max_bytes, 50 * 1024 * 1024)
+    limit = 5 * max_bytes
     if total > limit:
         raise IntakeError(
             f"{filename}: unpacks to {total} bytes, more than the limit of {limit} bytes; refused "
