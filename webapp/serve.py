@@ -18,10 +18,10 @@ from webapp.store.engine import database_url
 
 # Invented demo accounts: (name, role, printed name).
 DEMO_USERS = (
-    ("ana", "analyst", "Ana Demo (analyst)"),
-    ("rowan", "reviewer", "Rowan Demo (reviewer)"),
-    ("sage", "reviewer", "Sage Demo (reviewer)"),
-    ("vic", "viewer", "Vic Demo (viewer)"),
+    ("ana", "analyst", "Ana Demo"),
+    ("rowan", "reviewer", "Rowan Demo"),
+    ("sage", "reviewer", "Sage Demo"),
+    ("vic", "viewer", "Vic Demo"),
     ("admin", "admin", "Admin Demo"),
 )
 

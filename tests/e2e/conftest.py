@@ -1,0 +1,107 @@
+"""Browser tests: a real server on a free loopback port and Debian's Chromium.
+
+- ``demo_server``: the demo prepared exactly as ``latentdesk demo`` does
+  (``webapp.serve.prepare_demo``) and served by werkzeug's threaded server;
+  gives ``.url`` and ``.users`` (name -> (role, password)).
+- ``browser``: headless Chromium through the Playwright sync API. A missing
+  browser skips locally and fails when ``CI=true``.
+- ``new_page``: a fresh browser context (own cookies) per call.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import socket
+import threading
+from dataclasses import dataclass
+from pathlib import Path
+
+import pytest
+from werkzeug.serving import make_server
+
+CHROMIUM = "/usr/bin/chromium"
+CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking",
+                 "--disable-component-update", "--disable-sync", "--no-first-run"]
+IN_CI = os.environ.get("CI", "").lower() == "true"
+SCREENSHOTS = Path(__file__).resolve().parents[2] / "docs" / "images"
+
+
+def pytest_collection_modifyitems(items):
+    for item in items:
+        if "tests/e2e/" in str(item.fspath).replace(os.sep, "/"):
+            item.add_marker(pytest.mark.e2e)
+
+
+def _free_port() -> int:
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        return sock.getsockname()[1]
+
+
+@dataclass
+class LiveServer:
+    url: str
+    users: dict[str, tuple[str, str]]
+    home: Path
+
+
+@pytest.fixture(scope="session")
+def demo_server(tmp_path_factory):
+    from webapp import create_app
+    from webapp.serve import prepare_demo
+
+    home = tmp_path_factory.mktemp("demo-home")
+    overrides = {"HOME": str(home), "DEMO": True}
+    users = {name: (role, password) for name, role, password in prepare_demo(overrides)}
+    app = create_app(overrides)
+    port = _free_port()
+    server = make_server("127.0.0.1", port, app, threaded=True)
+    thread = threading.Thread(target=server.serve_forever, daemon=True)
+    thread.start()
+    try:
+        yield LiveServer(f"http://127.0.0.1:{port}", users, home)
+    finally:
+        server.shutdown()
+        thread.join(timeout=10)
+        app.extensions["latentdesk.engine"].dispose()
+
+
+@pytest.fixture(scope="session")
+def browser():
+    try:
+        from playwright.sync_api import sync_playwright
+    except ImportError:
+        message = "playwright is not installed"
+        pytest.fail(message) if IN_CI else pytest.skip(message)
+    if not (os.path.exists(CHROMIUM) or shutil.which("chromium")):
+        message = f"no Chromium at {CHROMIUM} (apt-get install chromium)"
+        pytest.fail(message) if IN_CI else pytest.skip(message)
+    with sync_playwright() as playwright:
+        browser = playwright.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS, headless=True)
+        yield browser
+        browser.close()
+
+
+@pytest.fixture
+def new_page(browser):
+    contexts = []
+
+    def make(width: int = 1280, height: int = 860):
+        context = browser.new_context(viewport={"width": width, "height": height})
+        context.set_default_timeout(30_000)
+        contexts.append(context)
+        return context.new_page()
+
+    yield make
+    for context in contexts:
+        context.close()
+
+
+def sign_in(page, server: LiveServer, name: str, path: str = "/"):
+    """Open ``path``, get sent to the sign-in form, sign in as ``name``."""
+    page.goto(server.url + path)
+    page.wait_for_url("**/-/login**")
+    page.fill("#name", name)
+    page.fill("#password", server.users[name][1])
+    page.click("button[type=submit]")
