@@ -69,3 +69,22 @@ def test_viewer_sees_no_upload(demo_server, new_page):
     page.wait_for_url(demo_server.url + "/")
     expect(page.locator("#home-dataset-list")).to_contain_text(LAB_FILENAME)
     expect(page.locator("#home-upload")).to_have_count(0)
+
+
+def test_user_text_is_shown_as_text_never_as_html(demo_server, new_page):
+    """A file name and column names carrying markup appear literally (OWASP XSS
+    Prevention Cheat Sheet: output encoding; common practice)."""
+    page = new_page()
+    dialogs = []
+    page.on("dialog", lambda dialog: (dialogs.append(dialog.message), dialog.dismiss()))
+    sign_in(page, demo_server, "ana")
+    page.wait_for_url(demo_server.url + "/")
+    payload = '<img src=x onerror="alert(1)">'
+    page.locator("#home-upload input[type=file]").set_input_files(
+        files=[{"name": f"{payload}.csv", "mimeType": "text/csv",
+                "buffer": SMALL_CSV.replace(b"gamma", b"<i>gamma</i>")}]
+    )
+    expect(page.locator("#home-upload-message .ld-success")).to_contain_text(payload)
+    expect(page.locator("#home-dataset-list")).to_contain_text(payload)
+    assert page.locator("img[src=x]").count() == 0
+    assert dialogs == []
