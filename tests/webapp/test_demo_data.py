@@ -15,6 +15,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
+from analysis.intake import read_table
 from analysis.pca import PCAModel
 from webapp import demo_data
 from webapp.demo_data import (
@@ -139,6 +140,21 @@ def test_survey_file_shape_and_roles():
     answers = frame[SURVEY_VARIABLES].to_numpy()
     assert set(np.unique(answers)) == {"", "1", "2", "3", "4", "5"}
     assert int((answers == "").sum()) == 90
+
+
+def test_intake_reads_both_files_without_options():
+    filename, raw = lab_scenario()
+    lab, report = read_table(raw, filename)
+    assert lab.id_column == "Batch" and lab.variables == LAB_VARIABLES
+    assert lab.metadata_columns == LAB_METADATA
+    assert report.below_limit_counts == {"Impurity B (%)": raw.count(b",<0.05,")}
+    assert sum(report.missing_counts.values()) == 15
+
+    filename, raw = survey_scenario()
+    survey, report = read_table(raw, filename)
+    assert survey.id_column == "Respondent" and survey.variables == SURVEY_VARIABLES
+    assert survey.metadata_columns == SURVEY_METADATA
+    assert sum(report.missing_counts.values()) == 90
 
 
 def test_no_planted_sample_has_a_blank_cell():
