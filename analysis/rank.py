@@ -133,7 +133,7 @@ def _finite_or_none(value):
 
 
 def choose_components(
-    X, scaling="autoscale", log10=(), max_components=None, random_state=0
+    X, scaling="autoscale", log10=(), max_components=None, random_state=0, drop_constant=False
 ) -> RankResult:
     """Table of component-count rules and a recommended number of components.
 
@@ -141,7 +141,7 @@ def choose_components(
     ----------
     X : ndarray or DataFrame of shape (n_samples, n_variables)
         Raw data, NaN allowed; preprocessed exactly as ``PCAModel`` would.
-    scaling, log10 :
+    scaling, log10, drop_constant :
         As for ``analysis.pca.PCAModel``.
     max_components : int or None
         Largest component count in the table; default and upper cap 20,
@@ -159,7 +159,7 @@ def choose_components(
     predicts or counts a missing cell.
     """
     limit = _check_max_components(max_components)
-    Z = _preprocess(X, scaling, log10)
+    Z = _preprocess(X, scaling, log10, drop_constant)
     return rank_table(Z, scaling, limit, random_state)
 
 
@@ -173,10 +173,10 @@ def _check_max_components(max_components) -> int:
     return int(min(max_components, MAX_COMPONENTS))
 
 
-def _preprocess(X, scaling, log10) -> np.ndarray:
+def _preprocess(X, scaling, log10, drop_constant=False) -> np.ndarray:
     """The data as PCAModel preprocesses them before fitting (log10, centring, scaling; NaN kept)."""
     values, ids, names = as_matrix(X)
-    prep = Preprocessor(scaling, log10).fit(values, ids, names)
+    prep = Preprocessor(scaling, log10, drop_constant).fit(values, ids, names)
     return scale_block(values[:, prep.keep_], prep.log_mask_, prep.mean_, prep.scale_)
 
 

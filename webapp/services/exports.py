@@ -49,7 +49,7 @@ def to_csv_bytes(df: pd.DataFrame) -> bytes:
 
 def write_csv(df: pd.DataFrame, path) -> None:
     """Write ``df`` as CSV to ``path``; the file appears complete or not at all."""
-    _write_atomic(Path(path), to_csv_bytes(df))
+    write_atomic(Path(path), to_csv_bytes(df))
 
 
 def to_xlsx_bytes(df: pd.DataFrame, sheet_name: str = "data") -> bytes:
@@ -60,7 +60,8 @@ def to_xlsx_bytes(df: pd.DataFrame, sheet_name: str = "data") -> bytes:
     return buffer.getvalue()
 
 
-def _write_atomic(path: Path, payload: bytes) -> None:
+def write_atomic(path: Path, payload: bytes) -> None:
+    """Write ``payload`` to a temporary file beside ``path`` and rename it into place."""
     handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     try:
         with os.fdopen(handle, "wb") as stream:
