@@ -15,6 +15,13 @@ from analysis.errors import InputError
 EXIT_OK, EXIT_INTERNAL, EXIT_BAD_INPUT = 0, 1, 2
 
 
+class _OneLineParser(argparse.ArgumentParser):
+    """Argument errors as one line on stderr and exit code 2 (no usage block)."""
+
+    def error(self, message: str):
+        self.exit(EXIT_BAD_INPUT, f"latentdesk: error: {self.prog}: {message}\n")
+
+
 def _comma_list(text: str) -> list[str]:
     return [part.strip() for part in text.split(",") if part.strip()]
 
@@ -36,6 +43,11 @@ def _add_intake_options(parser: argparse.ArgumentParser) -> None:
     )
 
 
+def _print_warnings(warnings: list[str]) -> None:
+    for warning in warnings:
+        print(f"latentdesk: warning: {warning}", file=sys.stderr)
+
+
 def _cmd_fit(args: argparse.Namespace) -> int:
     from webapp.services.headless import fit_to_folder
 
@@ -52,7 +64,9 @@ def _cmd_fit(args: argparse.Namespace) -> int:
         confidence=args.confidence,
         below_limit=args.below_limit,
         bad_cells=args.bad_cells,
+        drop_constant=args.drop_constant,
     )
+    _print_warnings(summary["warnings"])
     print(
         f"fitted {summary['n_components']} component(s) on {summary['n_samples']} samples x "
         f"{summary['n_variables']} variables; wrote {args.out}"
@@ -72,12 +86,13 @@ def _cmd_apply(args: argparse.Namespace) -> int:
         below_limit=args.below_limit,
         bad_cells=args.bad_cells,
     )
+    _print_warnings(result["warnings"])
     print(f"scored {result['n_samples']} new sample(s); wrote {args.out}")
     return EXIT_OK
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _OneLineParser(
         prog="latentdesk", description="Review multivariate data with PCA."
     )
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
@@ -97,6 +112,11 @@ def build_parser() -> argparse.ArgumentParser:
     fit.add_argument("--components", default="auto", help="number of components, or 'auto'")
     fit.add_argument("--exclude", help="comma-separated sample ids to leave out of the fit")
     fit.add_argument("--confidence", type=float, default=0.95, help="limit confidence level")
+    fit.add_argument(
+        "--drop-constant",
+        action="store_true",
+        help="leave out variables that cannot be scaled (constant) with a warning instead of refusing",
+    )
     fit.add_argument("--out", required=True, help="output folder")
     fit.set_defaults(handler=_cmd_fit)
 
