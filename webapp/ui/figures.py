@@ -322,7 +322,12 @@ def score_figure(
         col_labels, groups = _group_labels(colour_values)
         colours = group_colours(groups)
         for g in groups:
-            add(col_labels == g, plain(g), dict(color=colours[g], size=size, opacity=0.85))
+            # With shapes in use, the legend shows each colour as a plain circle (a stand-in trace).
+            add(col_labels == g, plain(g), dict(color=colours[g], size=size, opacity=0.85), legend=symbols is None)
+            if symbols is not None:
+                fig.data[-1].legendgroup = plain(g)
+                fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=plain(g), legendgroup=plain(g),
+                                         marker=dict(color=colours[g], size=8, symbol="circle"), hoverinfo="skip"))
         fig.update_layout(legend_title_text=plain(colour_name or ""))
 
     if symbols is not None and len(symbol_groups) > 1:

@@ -110,3 +110,8 @@ VIEW_SAVE_BUTTON = "view-save-button"
 VIEW_SAVE_MESSAGE = "view-save-message"
 VIEW_OPEN = "view-open"
 LOG_EXPORT = "log-export-csv"
+
+
+def image_button(graph_id, image_format) -> dict:
+    """Pattern id of a 'save picture' button (PNG or SVG) under a dataset-page plot."""
+    return {"type": "image-button", "graph": graph_id, "format": image_format}

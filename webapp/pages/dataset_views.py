@@ -1,0 +1,466 @@
+"""The dataset page's tabs: variance, scores, loadings/biplot, diagnostics, outliers.
+
+Not a page of its own (no page is registered here). Dash's page loader runs
+every module in pages/ whose text mentions register_page, once per app, which
+is how the callbacks below reach each app exactly once; ``dataset.py`` imports
+this module only inside functions, after the loader has run.
+
+Each callback hands its inputs to a plain function (``*_view``) that gets the
+model from ``webapp.services.modelling`` (a cache hit once the fit has run:
+changing colours, axes or labels never refits) and draws with
+``webapp.ui.figures``.
+"""
+
+from __future__ import annotations
+
+import html as html_text
+from typing import Any
+
+import dash_ag_grid as dag
+import numpy as np
+import pandas as pd
+from dash import ALL, Input, Output, State, callback, clientside_callback, dcc, html, no_update
+
+from analysis import diagnostics
+from webapp.ui import figures, ids
+
+LIMIT_LEVELS = (0.95, 0.99)
+OUTLIER_ROWS = 500  # the most extreme flagged samples listed with their top variables
+GRAPH_CONFIG = {
+    "displaylogo": False,
+    "responsive": True,
+    "toImageButtonOptions": {"format": "png", "scale": 2},
+    "modeBarButtonsToRemove": ["autoScale2d"],
+}
+CAUTION = (
+    "Flags support, and never replace, QA judgement and site procedures. "
+    "An extreme sample is not necessarily a wrong one: check the record before acting on a flag."
+)
+
+
+# ----------------------------------------------------------------- layout
+def _graph(graph_id: str) -> html.Div:
+    return html.Div(
+        [
+            dcc.Loading(dcc.Graph(id=graph_id, config=GRAPH_CONFIG, figure=figures.empty_figure("Fitting…")),
+                        delay_show=400, type="dot"),
+            html.Div(
+                [html.Span("Save picture:", className="ld-muted"),
+                 html.Button("PNG", id=ids.image_button(graph_id, "png"), n_clicks=0, className="ld-link-button"),
+                 html.Button("SVG", id=ids.image_button(graph_id, "svg"), n_clicks=0, className="ld-link-button")],
+                className="ld-picture-links",
+            ),
+        ],
+        className="ld-graph",
+    )
+
+
+def _regions_text() -> html.Ul:
+    return html.Ul([html.Li(text) for text in figures.REGION_TEXT.values()], className="ld-regions")
+
+
+def tab_content(tab: str) -> list:
+    """Components of one tab (only the open tab is in the page: at most three WebGL plots)."""
+    if tab == "variance":
+        return [
+            _graph(ids.GRAPH_VARIANCE),
+            html.Div(id=ids.RANK_TABLE, className="ld-rank"),
+            _graph(ids.GRAPH_VARIABLE_EXPLAINED),
+        ]
+    if tab == "loadings":
+        return [_graph(ids.GRAPH_LOADINGS)]
+    if tab == "diagnostics":
+        return [
+            html.P(CAUTION, className="ld-caution"),
+            _graph(ids.GRAPH_T2_SPE),
+            html.Div([html.Strong("Reading the four regions"), _regions_text()], className="ld-region-note"),
+            _graph(ids.GRAPH_T2_CHART),
+            _graph(ids.GRAPH_SPE_CHART),
+        ]
+    if tab == "outliers":
+        return [
+            html.P(CAUTION, className="ld-caution"),
+            html.P(id=ids.OUTLIER_NOTE, className="ld-muted"),
+            dag.AgGrid(
+                id=ids.OUTLIER_GRID,
+                rowData=[],
+                columnDefs=[],
+                defaultColDef={"sortable": True, "filter": True, "resizable": True, "minWidth": 90},
+                dashGridOptions={"rowSelection": {"mode": "singleRow", "checkboxes": False,
+                                                  "enableClickSelection": True},
+                                 "animateRows": False},
+                getRowId="params.data.sample_id",
+                columnSize="autoSize",
+                className="ag-theme-quartz ld-grid",
+                style={"height": "520px"},
+            ),
+        ]
+    return [_graph(ids.GRAPH_SCORES)]
+
+
+# ------------------------------------------------------------ plain parts
+def _model(result: dict):
+    from webapp.services import modelling
+
+    return modelling.get_model(int(result["dataset_id"]), result["settings"])
+
+
+def _training_frame(dataset_id: int, model) -> pd.DataFrame:
+    """Metadata of the model's training samples, in the model's order."""
+    from webapp.services import ingest
+
+    table = ingest.load_table(int(dataset_id))
+    meta = table.metadata
+    if list(meta.index) != list(model.sample_ids_):
+        meta = meta.reindex(model.sample_ids_)
+    return meta
+
+
+def _column(meta: pd.DataFrame, name: str | None):
+    if not name or name not in meta.columns:
+        return None
+    return meta[name].to_numpy(dtype=object)
+
+
+def _picked(model, sample_id: str | None) -> list[int]:
+    if not sample_id:
+        return []
+    try:
+        return [list(model.sample_ids_).index(sample_id)]
+    except ValueError:
+        return []
+
+
+def ellipse_limits(n_samples: int) -> dict[float, float]:
+    """Training T2 limits with two components, for the ellipses of a score plot
+    (Tracy, Young & Mason 1992): the ellipse holds the samples whose T2 on the
+    two plotted components is within the limit."""
+    return {c: diagnostics.t2_limit(n_samples, 2, c) for c in LIMIT_LEVELS}
+
+
+def score_view(result: dict | None, *, pcx: int, pcy: int, colour: str | None, shape: str | None,
+               labels: bool, sample: str | None = None):
+    """The score plot for a fit result and view settings; (figure, cache_hit)."""
+    if not result or not result.get("ok"):
+        return figures.empty_figure("No model yet: choose settings and press Fit model."), None
+    model, info = _model(result)
+    n_comp = model.scores_.shape[1]
+    x, y = int(pcx or 1) - 1, int(pcy or 2) - 1
+    if n_comp < 2:
+        return figures.empty_figure("The model has one component: see the control charts under Diagnostics."), \
+            info["cache_hit"]
+    if max(x, y) >= n_comp:
+        return figures.empty_figure(f"The model has {n_comp} components: choose axes up to PC{n_comp}."), \
+            info["cache_hit"]
+    meta = _training_frame(result["dataset_id"], model)
+    fig = figures.score_figure(
+        model.scores_, model.explained_variance_ratio_, x=x, y=y, sample_ids=model.sample_ids_,
+        colour_values=_column(meta, colour), colour_name=colour, symbol_values=_column(meta, shape),
+        symbol_name=shape, labels=bool(labels), eigenvalues=model.eigenvalues_,
+        t2_limits=ellipse_limits(model.n_samples_), metadata=meta, highlight=_picked(model, sample),
+    )
+    return fig, info["cache_hit"]
+
+
+def loading_view(result: dict | None, *, pcx: int, pcy: int, mode: str, colour: str | None = None):
+    """Loading plot, biplot or bars of the x-axis component; a figure."""
+    if not result or not result.get("ok"):
+        return figures.empty_figure("No model yet.")
+    model, _ = _model(result)
+    n_comp = model.scores_.shape[1]
+    x, y = int(pcx or 1) - 1, int(pcy or 2) - 1
+    if mode == "bars" and x < n_comp:
+        return figures.loading_bars_figure(model.loadings_, model.variable_names_, x, model.explained_variance_ratio_)
+    if n_comp < 2 or max(x, y) >= n_comp:
+        return figures.empty_figure(f"The model has {n_comp} component(s): choose axes up to PC{n_comp}.")
+    if mode == "biplot":
+        meta = _training_frame(result["dataset_id"], model)
+        return figures.biplot_figure(model.scores_, model.loadings_, model.eigenvalues_,
+                                     model.explained_variance_ratio_, model.variable_names_, x=x, y=y,
+                                     sample_ids=model.sample_ids_, colour_values=_column(meta, colour),
+                                     colour_name=colour)
+    return figures.loading_figure(model.loadings_, model.variable_names_, model.explained_variance_ratio_, x=x, y=y)
+
+
+def limits_of(model) -> tuple[dict[float, float], dict[float, float]]:
+    """T2 (training, beta) and SPE (Jackson & Mudholkar) limits at 95% and 99%."""
+    return ({c: model.t2_limit(c) for c in LIMIT_LEVELS}, {c: model.spe_limit(c) for c in LIMIT_LEVELS})
+
+
+def diagnostics_view(result: dict | None, *, order: str | None, sample: str | None = None):
+    """(T2-vs-SPE figure, T2 chart, SPE chart) for a fit result."""
+    if not result or not result.get("ok"):
+        empty = figures.empty_figure("No model yet.")
+        return empty, empty, empty
+    model, _ = _model(result)
+    t2_limits, spe_limits = limits_of(model)
+    confidence = float(result.get("confidence") or 0.95)
+    if confidence not in t2_limits:
+        t2_limits[confidence] = model.t2_limit(confidence)
+        spe_limits[confidence] = model.spe_limit(confidence)
+    picked = _picked(model, sample)
+    ids_ = model.sample_ids_
+    meta = _training_frame(result["dataset_id"], model) if order else None
+    order_values = _column(meta, order) if meta is not None else None
+    both = figures.t2_spe_figure(model.t2_, model.spe_, t2_limits, spe_limits, sample_ids=ids_,
+                                 confidence=confidence, highlight=picked)
+    t2_chart = figures.control_chart_figure(model.t2_, t2_limits, name="Hotelling's T²", order=order_values,
+                                            order_name=order, sample_ids=ids_, highlight=picked)
+    spe_chart = figures.control_chart_figure(model.spe_, spe_limits, name="SPE", order=order_values,
+                                             order_name=order, sample_ids=ids_, highlight=picked)
+    return both, t2_chart, spe_chart
+
+
+def variance_view(result: dict | None):
+    """(scree figure, component-choice table, per-variable explained figure)."""
+    if not result or not result.get("ok"):
+        empty = figures.empty_figure("No model yet.")
+        return empty, None, empty
+    model, _ = _model(result)
+    rank = result.get("rank")
+    n_comp = model.scores_.shape[1]
+    if rank and rank.get("table"):
+        rows = rank["table"]
+        ratio = [r["explained"] for r in rows]
+        cv = [r["cv_explained"] for r in rows]
+        cv = None if all(v is None for v in cv) else [np.nan if v is None else v for v in cv]
+        scree = figures.variance_figure(ratio, cv_cumulative=cv, recommended=rank.get("recommended"), chosen=n_comp)
+        table = rank_table(rank)
+    else:
+        scree = figures.variance_figure(model.explained_variance_ratio_, chosen=n_comp)
+        table = html.P("The component-choice table is computed when the number of components is "
+                       "left at Recommended.", className="ld-muted")
+    per_variable = figures.variable_explained_figure(model.variable_names_, model.variable_explained_)
+    return scree, table, per_variable
+
+
+def _pct(value) -> str:
+    return "–" if value is None else f"{100 * value:.1f}%"
+
+
+def _num(value) -> str:
+    return "–" if value is None else f"{value:.3g}"
+
+
+def rank_table(rank: dict) -> html.Div:
+    """The component-choice table (``analysis.rank``) as a plain HTML table of text."""
+    rec = rank.get("recommended")
+    head = html.Tr([html.Th(h) for h in ("Components", "Eigenvalue", "Explained", "Cumulative",
+                                         "Cumulative, cross-validated", "Parallel analysis threshold",
+                                         "Broken stick share")])
+    body = []
+    for row in rank["table"]:
+        cells = [row["components"], _num(row["eigenvalue"]), _pct(row["explained"]), _pct(row["cumulative"]),
+                 _pct(row["cv_explained"]), _num(row["parallel_threshold"]), _pct(row["broken_stick"])]
+        body.append(html.Tr([html.Td(str(c), className="ld-num") for c in cells],
+                            className="ld-row-recommended" if row["components"] == rec else None))
+    notes = [html.P(n, className="ld-muted") for n in rank.get("notes") or []]
+    return html.Div([
+        html.P(f"Recommended: {rec}. {rank.get('rule', '')}"),
+        html.Div(html.Table([html.Thead(head), html.Tbody(body)], className="ld-table"), className="ld-scroll"),
+        *notes,
+    ])
+
+
+REGION_WORDS = {"t2": "high T² only", "spe": "high SPE only", "both": "high T² and SPE"}
+
+
+def outlier_rows(result: dict | None) -> tuple[list[dict], list[dict], str]:
+    """Rows, column definitions and a note for the outlier table."""
+    if not result or not result.get("ok"):
+        return [], [], "No model yet."
+    model, _ = _model(result)
+    confidence = float(result.get("confidence") or 0.95)
+    t2_lim, spe_lim = model.t2_limit(confidence), model.spe_limit(confidence)
+    regions = figures.classify_regions(model.t2_, model.spe_, t2_lim, spe_lim)
+    flagged = np.flatnonzero(regions != "inside")
+    severity = np.maximum(model.t2_[flagged] / t2_lim, model.spe_[flagged] / spe_lim)
+    flagged = flagged[np.argsort(-severity, kind="stable")]
+    shown = flagged[:OUTLIER_ROWS]
+    from webapp.services import ingest
+
+    table = ingest.load_table(int(result["dataset_id"]))
+    meta = _training_frame(result["dataset_id"], model)
+    values = table.data.loc[[model.sample_ids_[i] for i in shown], list(model.variable_names_)]
+    rows = []
+    for i, (_, x) in zip(shown, values.iterrows()):
+        sid = model.sample_ids_[i]
+        explained = diagnostics.explain_sample(model, x.to_numpy(dtype=np.float64), sample_id=sid, top=3)
+        top = [v["variable"] for v in explained["variables"][:3]]
+        row = {"sample_id": sid, "region": REGION_WORDS[regions[i]], "T2": float(model.t2_[i]),
+               "T2 / limit": float(model.t2_[i] / t2_lim), "SPE": float(model.spe_[i]),
+               "SPE / limit": float(model.spe_[i] / spe_lim), "top variables": ", ".join(top)}
+        for col in meta.columns:
+            value = meta.iloc[i][col]
+            row[f"meta: {col}"] = None if pd.isna(value) else str(value)
+        rows.append(row)
+    number = {"type": "numericColumn", "valueFormatter": {"function": "d3.format('.3~g')(params.value)"}}
+    columns = [{"field": "sample_id", "headerName": "Sample", "pinned": "left"},
+               {"field": "region", "headerName": "Beyond"},
+               {"field": "T2", **number}, {"field": "T2 / limit", **number},
+               {"field": "SPE", **number}, {"field": "SPE / limit", **number},
+               {"field": "top variables", "headerName": "Mainly because of", "minWidth": 220}]
+    columns += [{"field": f"meta: {c}", "headerName": str(c)} for c in meta.columns]
+    level = f"{100 * confidence:g}%"
+    note = (f"{flagged.size} of {model.n_samples_} samples are beyond the {level} T² or SPE limit "
+            f"(T² limit {t2_lim:.3g}, SPE limit {spe_lim:.3g}).")
+    if flagged.size > shown.size:
+        note += f" The {shown.size} most extreme are listed."
+    if flagged.size:
+        note += " Click a row to see why."
+    return rows, columns, note
+
+
+def clicked_sample(event: dict | None) -> str | None:
+    """The sample id of a clicked point (points carry the id as escaped text)."""
+    points = (event or {}).get("points") or []
+    for point in points:
+        text = point.get("text")
+        if text is not None:
+            return html_text.unescape(str(text))
+    return None
+
+
+def selected_samples(event: dict | None) -> list[str]:
+    """Sample ids of a box or lasso selection (unique, in the order received)."""
+    seen: dict[str, None] = {}
+    for point in (event or {}).get("points") or []:
+        text = point.get("text")
+        if text is not None:
+            seen.setdefault(html_text.unescape(str(text)), None)
+    return list(seen)
+
+
+# --------------------------------------------------------------- callbacks
+@callback(
+    Output(ids.GRAPH_SCORES, "figure"),
+    Input(ids.FIT_RESULT, "data"),
+    Input(ids.VIEW_PCX, "value"),
+    Input(ids.VIEW_PCY, "value"),
+    Input(ids.VIEW_COLOUR, "value"),
+    Input(ids.VIEW_SHAPE, "value"),
+    Input(ids.VIEW_LABELS, "value"),
+    State(ids.VIEW_SAMPLE, "data"),
+)
+def _scores(result, pcx, pcy, colour, shape, labels, sample):
+    fig, _ = score_view(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=bool(labels), sample=sample)
+    return fig
+
+
+@callback(
+    Output(ids.GRAPH_LOADINGS, "figure"),
+    Input(ids.FIT_RESULT, "data"),
+    Input(ids.VIEW_PCX, "value"),
+    Input(ids.VIEW_PCY, "value"),
+    Input(ids.VIEW_LOADINGS, "value"),
+    Input(ids.VIEW_COLOUR, "value"),
+)
+def _loadings(result, pcx, pcy, mode, colour):
+    return loading_view(result, pcx=pcx, pcy=pcy, mode=mode or "plot", colour=colour)
+
+
+@callback(
+    Output(ids.GRAPH_T2_SPE, "figure"),
+    Output(ids.GRAPH_T2_CHART, "figure"),
+    Output(ids.GRAPH_SPE_CHART, "figure"),
+    Input(ids.FIT_RESULT, "data"),
+    Input(ids.VIEW_ORDER, "value"),
+    State(ids.VIEW_SAMPLE, "data"),
+)
+def _diagnostics(result, order, sample):
+    return diagnostics_view(result, order=order, sample=sample)
+
+
+@callback(
+    Output(ids.GRAPH_VARIANCE, "figure"),
+    Output(ids.RANK_TABLE, "children"),
+    Output(ids.GRAPH_VARIABLE_EXPLAINED, "figure"),
+    Input(ids.FIT_RESULT, "data"),
+)
+def _variance(result):
+    return variance_view(result)
+
+
+@callback(
+    Output(ids.OUTLIER_GRID, "rowData"),
+    Output(ids.OUTLIER_GRID, "columnDefs"),
+    Output(ids.OUTLIER_NOTE, "children"),
+    Input(ids.FIT_RESULT, "data"),
+)
+def _outliers(result):
+    return outlier_rows(result)
+
+
+@callback(
+    Output(ids.VIEW_PCX, "options"),
+    Output(ids.VIEW_PCY, "options"),
+    Input(ids.FIT_RESULT, "data"),
+)
+def _axis_options(result):
+    n_comp = (result or {}).get("n_components") or 2
+    options = [{"label": f"PC{a}", "value": a} for a in range(1, int(n_comp) + 1)]
+    return options, options
+
+
+def _click_callback(graph_id: str) -> None:
+    @callback(
+        Output(ids.VIEW_SAMPLE, "data", allow_duplicate=True),
+        Input(graph_id, "clickData"),
+        prevent_initial_call=True,
+    )
+    def _clicked(event):
+        sample = clicked_sample(event)
+        return sample if sample is not None else no_update
+
+    @callback(
+        Output(ids.SELECTION_STORE, "data", allow_duplicate=True),
+        Input(graph_id, "selectedData"),
+        State(ids.SELECTION_STORE, "data"),
+        State(ids.FIT_RESULT, "data"),
+        prevent_initial_call=True,
+    )
+    def _selected(event, current, result):
+        if event is None:
+            return no_update
+        return selection_data(event, current, result)
+
+
+def selection_data(event: dict | None, current: dict | None, result: dict | None) -> dict:
+    """The selection store after a box or lasso selection on a plot."""
+    return {
+        "dataset_id": (current or {}).get("dataset_id") or (result or {}).get("dataset_id"),
+        "fingerprint": (result or {}).get("fingerprint"),
+        "sample_ids": selected_samples(event),
+    }
+
+
+for _graph_id in (ids.GRAPH_SCORES, ids.GRAPH_T2_SPE, ids.GRAPH_T2_CHART, ids.GRAPH_SPE_CHART):
+    _click_callback(_graph_id)
+
+
+@callback(
+    Output(ids.VIEW_SAMPLE, "data", allow_duplicate=True),
+    Input(ids.OUTLIER_GRID, "cellClicked"),
+    prevent_initial_call=True,
+)
+def _row_clicked(cell):
+    sample = (cell or {}).get("rowId")
+    return sample if sample else no_update
+
+
+# Pictures: PNG or SVG of any plot, drawn by plotly.js in the browser.
+clientside_callback(
+    """
+    function (clicks) {
+        const trigger = dash_clientside.callback_context.triggered_id;
+        if (!trigger || !clicks || clicks.every(c => !c)) { return dash_clientside.no_update; }
+        const holder = document.getElementById(trigger.graph);
+        const plot = holder && holder.querySelector('.js-plotly-plot');
+        if (plot) { Plotly.downloadImage(plot, {format: trigger.format, filename: trigger.graph, scale: 2}); }
+        return dash_clientside.no_update;
+    }
+    """,
+    Output(ids.image_button(ALL, ALL), "title"),
+    Input(ids.image_button(ALL, ALL), "n_clicks"),
+    prevent_initial_call=True,
+)
