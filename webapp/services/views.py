@@ -156,6 +156,15 @@ def get_view(view_id: str) -> dict[str, Any]:
         return _view_dict(row, store.display_names(session, [row.created_by]))
 
 
+def _as_saved_link(view: Mapping[str, Any], as_saved: url_state.ViewState, current: list[str]) -> str:
+    """The dataset page as saved; when that would need "no exclusions" while some are
+    approved now (a link without ``exclude`` means the approved ones), the view's own page,
+    which shows the numbers as saved."""
+    if not view["excluded"] and current:
+        return url_state.view_url(view["id"])
+    return url_state.dataset_url(view["dataset_id"], as_saved)
+
+
 def open_view(view_id: str, *, user_id: int | None = None) -> dict[str, Any]:
     """Reopen a view: the model as saved, whether it reproduces, and today's alternative.
 
@@ -188,7 +197,7 @@ def open_view(view_id: str, *, user_id: int | None = None) -> dict[str, Any]:
         "excluded_as_saved": saved,
         "excluded_current": current,
         "links": {
-            "as_saved": url_state.dataset_url(view["dataset_id"], as_saved),
+            "as_saved": _as_saved_link(view, as_saved, current),
             "current": url_state.dataset_url(view["dataset_id"], current_state),
         },
     }
