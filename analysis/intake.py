@@ -170,7 +170,7 @@ def read_table(
         The message names the file, the spreadsheet row (header = its row in
         the file), the column and the value.
     """
-    filename = str(filename) or "upload"
+    filename = re.sub(r"[\x00-\x1f\x7f]", "?", str(filename)) or "upload"  # messages stay one line
     _check_options(filename, below_limit, bad_cells, roles, mostly_missing)
     raw = bytes(raw)
     if len(raw) > max_bytes:

@@ -139,7 +139,7 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
         delimiter = detect_delimiter(lines, filename)
         rows = [next(csv.reader([ln], delimiter=delimiter), []) for ln in lines]
     except csv.Error as exc:
-        raise IntakeError(f"{filename}: the first lines cannot be split into fields ({exc}).") from None
+        raise IntakeError(f"{filename}: the first lines cannot be split into fields ({' '.join(str(exc).split())}).") from None
     header = find_header(rows, filename)
     body = [c for r in rows[header + 1 :] if not is_comment_row(r) for c in r]
     decimal = guess_decimal(body, delimiter)
@@ -199,7 +199,7 @@ def _parser_error(exc: Exception, filename: str, delimiter: str, header_row: int
     m = re.search(r"EOF inside string starting (?:at|on) (?:row|line) (\d+)", text)
     if m:
         return IntakeError(f"{filename}: a quote opened near row {int(m.group(1)) + 1} is never closed.")
-    first = text.strip().splitlines()[0] if text.strip() else type(exc).__name__
+    first = " ".join(text.split())[:160] or type(exc).__name__
     return IntakeError(f"{filename}: could not be read as a {_DELIMITER_NAMES[delimiter]}-separated table ({first}).")
 
 

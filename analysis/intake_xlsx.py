@@ -72,13 +72,13 @@ def read_xlsx(raw: bytes, filename: str, *, sheet: str | None, max_bytes: int, m
     try:
         book = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=True, keep_links=False)
     except Exception as exc:  # openpyxl raises many types on damaged files; all mean the same to the user
-        raise IntakeError(f"{filename}: is a damaged XLSX file ({type(exc).__name__}: {str(exc)[:120]}).") from None
+        raise IntakeError(f"{filename}: is a damaged XLSX file ({_one_line(exc)}).") from None
     try:
         return _read_sheet(book, filename, sheet, max_columns)
     except IntakeError:
         raise
     except Exception as exc:  # damaged sheet XML surfaces only while rows are read
-        raise IntakeError(f"{filename}: a sheet of this XLSX file is damaged ({type(exc).__name__}: {str(exc)[:120]}).") from None
+        raise IntakeError(f"{filename}: a sheet of this XLSX file is damaged ({_one_line(exc)}).") from None
     finally:
         book.close()
 
@@ -148,3 +148,8 @@ def _as_column(cells: list) -> np.ndarray:
     if all(c is None or (isinstance(c, (int, float)) and not isinstance(c, bool)) for c in cells):
         return np.array([np.nan if c is None else float(c) for c in cells], dtype=np.float64)
     return np.array(cells, dtype=object)
+
+
+def _one_line(exc: Exception) -> str:
+    text = " ".join(str(exc).split())[:120]
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__

@@ -15,6 +15,7 @@ from __future__ import annotations
 import codecs
 import io
 import math
+import re
 
 import numpy as np
 import openpyxl
@@ -352,3 +353,127 @@ def test_warnings_constant_and_mostly_missing():
 def test_bad_options(options, pattern):
     with pytest.raises(IntakeError, match=pattern):
         read_table(b"id,a,b\nx,1,2\ny,2,3\nz,4,6\n", "o.csv", **options)
+
+
+# --- more of the corpus ---------------------------------------------------------------------
+
+
+def _zip(members: dict[str, bytes], compression=None) -> bytes:
+    import zipfile
+
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w", compression=compression or zipfile.ZIP_DEFLATED) as zf:
+        for name, data in members.items():
+            zf.writestr(name, data)
+    return buf.getvalue()
+
+
+def test_zip_bomb_refused_from_ratio_before_parsing():
+    # Deflate reaches about 1000:1 on zeros; real sheet XML compresses far less (common practice).
+    members = {"[Content_Types].xml": b"<Types/>", "xl/workbook.xml": b"<workbook/>", "xl/worksheets/sheet1.xml": bytes(4 * 1024**2)}
+    raw = _zip(members)
+    assert len(raw) < 64 * 1024
+    with pytest.raises(IntakeError, match=r"bomb\.xlsx: part xl/worksheets/sheet1\.xml is compressed \d+:1, more than the plausible 200:1"):
+        read_table(raw, "bomb.xlsx")
+
+
+def test_zip_with_implausible_total_size_refused():
+    # Many parts, each under the ratio check, together unpacking to more than 5x the size limit.
+    members = {"[Content_Types].xml": b"<Types/>", "xl/workbook.xml": b"<workbook/>"}
+    members.update({f"xl/worksheets/sheet{k}.xml": bytes(900_000) for k in range(8)})
+    raw = _zip(members)
+    with pytest.raises(IntakeError, match=r"huge\.xlsx: unpacks to \d+ bytes, more than the limit of 5000000 bytes"):
+        read_table(raw, "huge.xlsx", max_bytes=1_000_000)
+
+
+@pytest.mark.parametrize(
+    "members, pattern",
+    [
+        ({"mimetype": b"application/vnd.oasis.opendocument.spreadsheet", "content.xml": b"<x/>"}, "is an OpenDocument file, not an Excel workbook"),
+        ({"[Content_Types].xml": b"<Types/>", "word/document.xml": b"<w/>"}, "is a zip archive, not an Excel workbook"),
+        ({"[Content_Types].xml": b"<Types/>", "xl/workbook.xml": b"not xml at all"}, "is a damaged XLSX file"),
+    ],
+)
+def test_zip_that_is_not_a_workbook(members, pattern):
+    with pytest.raises(IntakeError, match=pattern):
+        read_table(_zip(members), "book.xlsx")
+
+
+@pytest.mark.parametrize(
+    "raw, name, pattern",
+    [
+        (b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + bytes(504), "old.xls", "old-style .xls workbook"),
+        (b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + bytes(504), "locked.xlsx", "not a valid XLSX file.*old-style .xls"),
+        (b"%PDF-1.7\n%...", "report.csv", "is a PDF document, not a table"),
+        (b"<!DOCTYPE html>\n<html><body>Login</body></html>\n", "page.csv", "looks like a web page"),
+        (b"   \r\n\t\n", "blank.csv", "the file is empty"),
+        (b"id;a;b\n;mg/L;mg/L\n", "units_only.csv", "no numeric variables found"),
+        (b"# only a comment\n# and another\n", "comments.csv", "no table found|no columns found"),
+    ],
+)
+def test_more_refusals(raw, name, pattern):
+    with pytest.raises(IntakeError, match=rf"^{re.escape(name)}: .*({pattern})"):
+        read_table(raw, name)
+
+
+def test_random_bytes_named_csv_are_refused_as_binary():
+    raw = np.random.default_rng(3).bytes(5000)
+    with pytest.raises(IntakeError, match=r"rand\.csv: (contains binary data|does not look like a text table)"):
+        read_table(raw, "rand.csv")
+
+
+def test_three_decimal_comma_values_are_not_read_as_thousands():
+    # "%.3f" with a decimal comma: "12,345" alone is ambiguous; ';' settles it (common practice).
+    raw = "id;x;y\na;12,345;1,500\nb;10,125;2,250\nc;11,875;3,125\n".encode()
+    table, report = read_table(raw, "three.csv")
+    assert report.decimal == ","
+    np.testing.assert_allclose(table.values, [[12.345, 1.5], [10.125, 2.25], [11.875, 3.125]])
+
+
+def test_comment_line_inside_data_and_quoted_delimiters():
+    raw = b'id,label,a,b\nx,"north, upper",1.5,2\n# re-calibrated here\ny,"south",2.5,3\nz,"east ""new""",4,6\n'
+    table, report = read_table(raw, "comments.csv")
+    assert table.sample_ids == ["x", "y", "z"]
+    assert table.metadata["label"].tolist() == ["north, upper", "south", 'east "new"']
+    np.testing.assert_allclose(table.values, [[1.5, 2], [2.5, 3], [4, 6]])
+    with pytest.raises(IntakeError, match=r"row 5, column 'a' \(C\): 'four'"):
+        read_table(raw.replace(b",4,6", b",four,6"), "comments.csv")
+
+
+def test_trailing_separators_and_blank_header_cells_vanish():
+    raw = b"id;a;b;;\nx;1;2;;\ny;2;3;;\nz;4;7;;\n"
+    table, report = read_table(raw, "trailing.csv")
+    assert table.variables == ["a", "b"]
+    assert not report.warnings
+
+
+def test_missing_sample_id_is_refused_with_row():
+    with pytest.raises(IntakeError, match=r"1 sample id\(s\) missing in column 'code' \(A\): rows 3"):
+        read_table(b"code,a,b\nA1,1,2\n,2,3\nA3,4,6\n", "ids.csv", id_column="code")
+
+
+def test_xlsx_dates_and_text_numbers_and_column_limit():
+    import datetime as dt
+
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.append(["Sample", "Taken", "pH", "Conductivity"])
+    ws.append(["W1", dt.datetime(2026, 3, 1, 9, 30), "7,2", 512])
+    ws.append(["W2", dt.datetime(2026, 3, 2, 9, 30), "6,9", "1.024,5"])
+    ws.append(["W3", dt.datetime(2026, 3, 3, 9, 30), "7,05", 498])
+    buf = io.BytesIO()
+    wb.save(buf)
+    table, report = read_table(buf.getvalue(), "water.xlsx")
+    assert report.roles["Taken"] == "metadata"
+    assert table.metadata["Taken"].tolist()[0].startswith("2026-03-01")
+    np.testing.assert_allclose(table.values, [[7.2, 512], [6.9, 1024.5], [7.05, 498]])
+    with pytest.raises(IntakeError, match=r"row 1 of sheet 'Sheet' has 4 columns, more than the limit of 3"):
+        read_table(buf.getvalue(), "water.xlsx", max_columns=3)
+
+
+def test_numeric_group_column_stays_metadata():
+    raw = b"id,line,a,b\nx,1,1.5,2\ny,2,2.5,3\nz,2,4,6\n"
+    table, report = read_table(raw, "g.csv", group_columns=("line",))
+    assert table.variables == ["a", "b"] and table.metadata["line"].tolist() == ["1", "2", "2"]
+    table, report = read_table(raw, "g.csv")
+    assert table.variables == ["line", "a", "b"]
