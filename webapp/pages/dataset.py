@@ -334,6 +334,7 @@ def _not_found(dataset_id) -> html.Div:
 
 def layout(dataset_id=None, **query) -> html.Div:
     from webapp.pages import dataset_samples, dataset_views
+    from webapp.pages.review_links import review_links
 
     dataset = dataset_or_none(dataset_id)
     if dataset is None:
@@ -356,6 +357,7 @@ def layout(dataset_id=None, **query) -> html.Div:
                                   f" · SHA-256 {dataset['sha256'][:12]}", className="ld-muted")],
                     ),
                     dataset_samples.downloads(),
+                    review_links(dataset["id"]),
                 ],
                 className="ld-dataset-head",
             ),

@@ -115,3 +115,6 @@ LOG_EXPORT = "log-export-csv"
 def image_button(graph_id, image_format) -> dict:
     """Pattern id of a 'save picture' button (PNG or SVG) under a dataset-page plot."""
     return {"type": "image-button", "graph": graph_id, "format": image_format}
+REVIEW_LINKS = "review-links"  # on the dataset page: propose / save view / log / views
+REVIEW_PROPOSE_LINK = "review-propose-link"
+VIEW_SAVE_LINK = "view-save-link"
