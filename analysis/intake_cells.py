@@ -122,11 +122,6 @@ def looks_numeric(value, decimal: str) -> bool:
     return parse_cell(value, decimal)[0] in (NUMBER, OTHER_MARK, AMBIGUOUS, BELOW, ABOVE, BARE_LIMIT, INFINITE)
 
 
-def is_missing(value) -> bool:
-    """True for None, NaN and the missing-value markers."""
-    return parse_cell(value, ".")[0] == MISSING
-
-
 @dataclass
 class ColumnParse:
     """Result of reading one text column as numbers."""
