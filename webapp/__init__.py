@@ -60,6 +60,7 @@ def _mount_dash(server: Flask) -> None:
         update_title=None,
     )
     app.layout = shell.layout
+    shell.guard_page_layouts()
     # Dash copies callbacks declared with ``dash.callback`` into the first app
     # that serves a request. Doing that now keeps each app built by
     # ``create_app`` complete even when a process builds several (tests).

@@ -304,3 +304,36 @@ def test_csrf_token_is_per_session(app, make_user):
     assert csrf_from(one.get("/-/login").get_data(as_text=True)) != csrf_from(
         two.get("/-/login").get_data(as_text=True)
     )
+
+
+ROLE_PAGES = [(page_route, role) for page_route, role in ROLE_GUARDED if page_route.rule.startswith("page:")]
+
+
+def _router_request(client, path: str) -> dict:
+    """Ask Dash's page router (a callback) for the content of ``path``."""
+    deps = client.get("/_dash-dependencies").get_json()
+    router = next(d for d in deps if "_pages_content.children" in d["output"])
+    body = {
+        "output": router["output"],
+        "outputs": [{"id": "_pages_content", "property": "children"}, {"id": "_pages_store", "property": "data"}],
+        "inputs": [{"id": "_pages_location", "property": "pathname", "value": path},
+                   {"id": "_pages_location", "property": "search", "value": ""}],
+        "changedPropIds": ["_pages_location.pathname"],
+        "state": [],
+    }
+    response = client.post("/_dash-update-component", json=body)
+    assert response.status_code == 200
+    return response.get_json()
+
+
+@pytest.mark.parametrize(("route", "role"), ROLE_PAGES, ids=lambda v: str(v))
+def test_page_content_through_the_dash_router_respects_the_role(role_clients, route, role):
+    content = _router_request(role_clients[role], route.path)
+    assert "needs the" in str(content) and route.min_role in str(content)
+
+
+def test_the_router_gives_the_page_to_the_needed_role(role_clients):
+    pages = [r for r in ROUTES if r.rule.startswith("page:") and r.min_role]
+    assert pages, "no Dash page declares min_role"
+    route = pages[0]
+    assert "needs the" not in str(_router_request(role_clients[route.min_role], route.path))

@@ -73,3 +73,31 @@ def layout() -> html.Div:
         ],
         className="ld-app",
     )
+
+
+def _refusal(role: str) -> html.Div:
+    return html.Div(
+        [html.H1("Not allowed"), html.P(f"This page needs the {role} role.", className="ld-alert")],
+        className="ld-refusal",
+    )
+
+
+def guard_page_layouts() -> None:
+    """Make every page that declares ``min_role`` check it when Dash builds it.
+
+    The request guard already answers 403 when such a page is opened by URL;
+    this covers the page content Dash fetches through its callback route.
+    """
+    for page in dash.page_registry.values():
+        role, layout_fn = page.get("min_role"), page.get("layout")
+        if role is None or not callable(layout_fn) or getattr(layout_fn, "min_role", None):
+            continue
+
+        def guarded(*args, _layout=layout_fn, _role=role, **kwargs):
+            if not (has_request_context() and current_user.is_authenticated
+                    and auth.has_role(current_user.role, _role)):
+                return _refusal(_role)
+            return _layout(*args, **kwargs)
+
+        guarded.min_role = role
+        page["layout"] = guarded
