@@ -22,7 +22,7 @@ from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
 
 import analysis
 from analysis.errors import InputError
-from webapp.services import ingest, modelling, review
+from webapp.services import ingest, modelling
 from webapp.services.context import max_upload_bytes, session_scope
 from webapp.services.exports import to_csv_bytes
 
@@ -169,8 +169,8 @@ def health():
 
 
 def _form_text(name: str) -> str | None:
-    value = request.form.get(name)
-    return value.strip() or None if value is not None else None
+    """A form field with blanks trimmed; None when absent or empty."""
+    return (request.form.get(name) or "").strip() or None
 
 
 @bp.post(f"{API_PREFIX}/datasets")
@@ -219,11 +219,9 @@ def _json_body() -> dict[str, Any]:
 @bp.post(f"{API_PREFIX}/datasets/<int:dataset_id>/models")
 @requires("analyst")
 def fit_model(dataset_id: int):
-    ingest.dataset_info(dataset_id)  # 404 before anything else
     # Without "exclude" the approved exclusions apply; an explicit list is a what-if preview.
-    settings, note = review.exclusion_settings(dataset_id, _json_body())
-    _, info = modelling.get_model(dataset_id, settings, user_id=_user_id())
-    return json_ok(model={**info, **note})
+    _, info = modelling.get_model(dataset_id, _json_body(), user_id=_user_id())
+    return json_ok(model=info)
 
 
 def _confidence_arg() -> float | None:

@@ -261,3 +261,18 @@ def test_models_are_recorded_once_per_fingerprint(app, wine_id, user_id):
             assert rows[0].settings["components"] == 3 and rows[0].created_by == user_id
     with app.app_context(), pytest.raises(modelling.ModelNotFound):
         modelling.model_by_id(9999)
+
+
+def test_command_line_and_web_app_agree_on_the_fingerprint(app, wine_id, user_id, tmp_path):
+    from webapp.services.headless import fit_to_folder
+
+    (tmp_path / "wine.csv").write_bytes(wine_csv())
+    settings = {"components": 2, "log10": ["proline"], "exclude": ["W-007"]}
+    summary = fit_to_folder(
+        tmp_path / "wine.csv", tmp_path / "out", id_column=None, group_columns=[], sheet=None,
+        scaling="autoscale", log10=["proline"], components=2, exclude=["W-007"], confidence=0.95,
+        below_limit="half", bad_cells="error",
+    )
+    with app.app_context():
+        _, info = modelling.get_model(wine_id, settings, user_id=user_id)
+    assert summary["fingerprint"] == info["fingerprint"]

@@ -23,10 +23,12 @@ import pandas as pd
 
 from analysis.diagnostics import explain_sample
 from analysis.errors import InputError
+from analysis.modelfile import model_fingerprint
 from analysis.pca import PCAModel
 from analysis.table import Table
 from webapp.services import ingest
 from webapp.services.context import cache_folder, session_scope
+from webapp.services.review import exclusion_settings
 from webapp.store import datasets as store
 
 SCALINGS = ("none", "center", "autoscale", "pareto")
@@ -113,8 +115,6 @@ def _intake(dataset: Mapping[str, Any]) -> dict[str, Any] | None:
 
 def fingerprint_for(dataset: Mapping[str, Any], settings: Mapping[str, Any], n_components) -> str:
     """The model fingerprint of normalised ``settings`` (``n_components`` may be "auto")."""
-    from analysis.modelfile import model_fingerprint
-
     return model_fingerprint(
         dataset["sha256"],
         settings["scaling"],
@@ -189,14 +189,13 @@ def describe(model: PCAModel, confidence: float) -> dict[str, Any]:
 def _record(dataset: Mapping[str, Any], fingerprint: str, settings: dict, summary: dict, user_id) -> int:
     from sqlalchemy.exc import IntegrityError
 
-    stored = {**settings, "confidence": settings["confidence"]}
     try:
         with session_scope() as session:
             row = store.record_model(
                 session,
                 dataset_id=dataset["id"],
                 fingerprint=fingerprint,
-                settings=stored,
+                settings=settings,
                 summary=summary,
                 created_by=user_id if user_id is not None else dataset["uploaded_by"],
             )
@@ -217,7 +216,8 @@ def get_model(
     settings : mapping
         ``scaling`` (none|center|autoscale|pareto, default autoscale),
         ``components`` (int or "auto", default "auto"), ``variables`` (list, default
-        all), ``log10`` (list), ``exclude`` (sample ids), ``confidence`` (default 0.95).
+        all), ``log10`` (list), ``exclude`` (sample ids; absent means the dataset's
+        approved exclusions), ``confidence`` (default 0.95).
     user_id : int, optional
         Recorded as the model's creator when the fit is new.
 
@@ -225,12 +225,11 @@ def get_model(
     -------
     (PCAModel, info) where info holds ``id`` (models row), ``dataset_id``,
     ``fingerprint``, ``cache_hit``, ``settings`` (normalised), ``excluded``,
-    ``rank`` (the component-choice table when "auto" was asked) and the
-    fields of :func:`describe`.
+    ``rank`` (the component-choice table when "auto" was asked),
+    ``approved_exclusions``, ``what_if`` (an explicit ``exclude`` differing
+    from the approved exclusions) and the fields of :func:`describe`.
     """
     dataset = ingest.dataset_info(dataset_id)
-    from webapp.services.review import exclusion_settings  # no exclude: the approved exclusions apply
-
     settings, exclusion_note = exclusion_settings(dataset_id, settings)
     settings = normalise_settings(settings, dataset["variables"])
     cache = _cache()
@@ -397,7 +396,7 @@ def contributions(model_id: int, sample_id: str, *, confidence: float | None = N
         "variables": [
             {
                 "variable": name,
-                "value": _finite(value) if not np.isnan(value) else None,
+                "value": _finite(value),
                 "spe_contribution": _finite(spe),
                 "t2_contribution": _finite(t2),
             }

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 from typing import Any
 
-from sqlalchemy import func, select
+from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from webapp.store.tables import Dataset, Model, User
+from webapp.store.tables import Dataset, Model
 
 
 def insert_dataset(session: Session, **fields: Any) -> Dataset:
@@ -36,8 +36,6 @@ def list_datasets(session: Session) -> list[Dataset]:
     return list(session.scalars(select(Dataset).order_by(Dataset.id.desc())))
 
 
-def count_datasets(session: Session) -> int:
-    return session.scalar(select(func.count()).select_from(Dataset))
 
 
 def sha256_in_use(session: Session, sha256: str) -> bool:
@@ -49,14 +47,9 @@ def all_sha256(session: Session) -> set[str]:
     return set(session.scalars(select(Dataset.sha256).distinct()))
 
 
-def user_names(session: Session, user_ids) -> dict[int, str]:
-    ids = {i for i in user_ids if i is not None}
-    if not ids:
-        return {}
-    return dict(session.execute(select(User.id, User.name).where(User.id.in_(ids))).all())
 
 
-def dataset_dict(row: Dataset, *, full: bool = False, uploader: str | None = None) -> dict[str, Any]:
+def dataset_dict(row: Dataset, *, full: bool = False) -> dict[str, Any]:
     """The dataset as the API shows it; ``full`` adds the intake report and options."""
     out = {
         "id": row.id,
@@ -73,8 +66,6 @@ def dataset_dict(row: Dataset, *, full: bool = False, uploader: str | None = Non
         "uploaded_by": row.uploaded_by,
         "created_at": row.created_at.isoformat() if row.created_at else None,
     }
-    if uploader is not None:
-        out["uploaded_by_name"] = uploader
     if full:
         out["intake_options"] = dict(row.intake_options)
         out["stored_path"] = row.stored_path
@@ -125,7 +116,3 @@ def record_model(
     session.add(row)
     session.flush()
     return row
-
-
-def count_models(session: Session) -> int:
-    return session.scalar(select(func.count()).select_from(Model))
