@@ -37,6 +37,8 @@ def _gunicorn(overrides: Mapping[str, Any], host: str, port: int, workers: int, 
             self.cfg.set("threads", threads)
             self.cfg.set("timeout", 300)
             self.cfg.set("accesslog", "-")
+            if "control_socket_disable" in self.cfg.settings:  # gunicorn >= 24: unused here,
+                self.cfg.set("control_socket_disable", True)  # and shared by every server of a user
 
         def load(self):
             from webapp import create_app
