@@ -150,6 +150,8 @@ def compare_fits(before, after, X=None, sample_ids=None) -> dict:
     angles = principal_angles(before.loadings_[index_before], after.loadings_[index_after])
 
     if X is None:
+        if not (hasattr(before, "t2_") and hasattr(after, "t2_")):
+            raise InputError("a model read from a file has no training statistics; pass the data X to compare")
         in_after = set(after.sample_ids_)
         ids = [s for s in before.sample_ids_ if s in in_after]
         stats_before = _training_statistics(before, ids)

@@ -202,7 +202,7 @@ def rank_table(Z, scaling, max_components=MAX_COMPONENTS, random_state=0) -> Ran
 
     explained = eigenvalues[:n_rows] / total
     cv = np.full(n_rows, np.nan)
-    cv_values, cv_notes = ekf_cross_validation(Z, n_rows, random_state=random_state)
+    cv_values, cv_notes = ekf_cross_validation(Z, n_rows, random_state=random_state, centre=scaling != "none")
     cv[: cv_values.size] = cv_values
     notes.extend(cv_notes)
     thresholds = parallel_analysis(Z, scaling, n_rows, random_state=random_state)
@@ -410,18 +410,19 @@ def _column_factors(random_sd, spreads, scaling) -> np.ndarray:
 
 
 def ekf_cross_validation(
-    Z, max_components, n_folds=MAX_FOLDS, random_state=0, max_rows=CV_MAX_ROWS
+    Z, max_components, n_folds=MAX_FOLDS, random_state=0, max_rows=CV_MAX_ROWS, centre=True
 ) -> tuple[np.ndarray, list[str]]:
     """Cumulative cross-validated explained variance for 1..A components (element-wise k-fold).
 
     Rows go to ``min(n_folds, n)`` folds by a seeded permutation. For each
-    fold the remaining rows are centred (by their own column means) and a PCA
-    is fitted to them; every observed cell x_ij of a left-out row is then
+    fold the remaining rows are centred (by their own column means; not with
+    ``centre=False``, for data scaled without centring) and a PCA is fitted
+    to them; every observed cell x_ij of a left-out row is then
     predicted from the other observed cells of row i (least-squares scores
     on the loadings without variable j), which gives the residual
     e_ij / (1 - h_ij) (see the module docstring). With PRESS_a the sum of
     squared prediction errors over all predicted cells and PRESS_0 that of
-    predicting each cell by its fold's training mean, the result for a
+    predicting each cell by its fold's training mean (by 0 without centring), the result for a
     components is 1 - PRESS_a / PRESS_0 (Eastment & Krzanowski 1982;
     Bro et al. 2008, "ekf").
 
@@ -456,9 +457,9 @@ def ekf_cross_validation(
     fitted = []
     for fold in range(n_folds):
         train = Z[folds != fold]
-        centre = _nanmean_or_zero(train)
-        loadings = _fold_loadings(train - centre, min(limit, train.shape[0] - 1))
-        fitted.append((fold, centre, loadings))
+        offset = _nanmean_or_zero(train) if centre else np.zeros(p)
+        loadings = _fold_loadings(train - offset, min(limit, train.shape[0] - 1))
+        fitted.append((fold, offset, loadings))
         limit = min(limit, loadings.shape[1])
     if limit < 1:
         return np.empty(0), notes + ["cross-validation found no component it could fit"]
@@ -467,8 +468,8 @@ def ekf_cross_validation(
 
     press = np.zeros(limit + 1)
     skipped = 0
-    for fold, centre, loadings in fitted:
-        part, n_skipped = ekf_press(Z[folds == fold] - centre, loadings[:, :limit])
+    for fold, offset, loadings in fitted:
+        part, n_skipped = ekf_press(Z[folds == fold] - offset, loadings[:, :limit])
         press += part
         skipped += n_skipped
     if skipped:

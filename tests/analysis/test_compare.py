@@ -152,3 +152,13 @@ def test_ndarray_with_sample_ids_and_bad_input(wine):
     other = PCAModel(n_components=1).fit(pd.DataFrame({"x": [1.0, 2, 4], "y": [3.0, 1, 2]}))
     with pytest.raises(InputError, match="share no variable"):
         compare_fits(before, other)
+
+
+def test_loaded_models_need_the_data(tmp_path, wine):
+    from analysis.modelfile import load_model, save_model
+
+    save_model(PCAModel(n_components=2).fit(wine), tmp_path / "m.json")
+    loaded = load_model(tmp_path / "m.json")
+    with pytest.raises(InputError, match="pass the data X"):
+        compare_fits(loaded, loaded)
+    assert compare_fits(loaded, loaded, X=wine)["crossings"] == []

@@ -274,3 +274,22 @@ def test_large_matrices_use_lanczos_and_agree_with_lapack_svd():
     np.testing.assert_allclose(ours, _direct_parallel_thresholds(Z, "autoscale", 3, 3, 2), rtol=1e-8)
     cv, _ = ekf_cross_validation(Z, 4, n_folds=3, random_state=0)
     assert np.argmax(np.diff(np.concatenate([[0.0], cv])) < 0.01) == 3  # planted rank 3 (theory check)
+
+
+def test_uncentred_scaling_cross_validates_without_centring():
+    # With scaling "none" the model is not centred, so neither are the folds: PRESS_0 is the plain sum of squares
+    # (definition of ekf with a zero offset; reference computed here with numpy lstsq, as above).
+    rng = np.random.default_rng(21)
+    Z = _planted(rng, 12, 4, 1) + 5.0
+    folds = np.random.default_rng(0).permutation(12) % 7
+    press = np.zeros(2)
+    for fold in range(7):
+        vt = np.linalg.svd(Z[folds != fold], full_matrices=False)[2]
+        for x in Z[folds == fold]:
+            for j in range(4):
+                others = np.arange(4) != j
+                press[0] += x[j] ** 2
+                t = np.linalg.lstsq(vt[:1].T[others], x[others], rcond=None)[0]
+                press[1] += (x[j] - vt[0, j] * t[0]) ** 2
+    cv, _ = ekf_cross_validation(Z, 1, random_state=0, centre=False)
+    np.testing.assert_allclose(cv, 1 - press[1:] / press[0], rtol=1e-9)
