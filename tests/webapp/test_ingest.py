@@ -154,3 +154,22 @@ def test_orphan_files_are_swept(app, uploader):
         removed = ingest.remove_orphan_files(min_age_seconds=0)
     assert removed == [orphan.sha256]
     assert _stored_files(app) == [f"{kept['sha256'][:2]}/{kept['sha256']}"]
+
+
+def test_upload_dedup_and_fit_on_both_engines(app_factory, database_url, tmp_path):
+    """The same unit of work on SQLite and PostgreSQL (JSON options compared in Python)."""
+    from webapp.services import modelling
+
+    app = app_factory(DATABASE_URL=database_url, HOME=str(tmp_path / "engine-home"))
+    with app.app_context():
+        with session_scope() as s:
+            from werkzeug.security import generate_password_hash
+
+            uid = accounts.add_user(s, "engine", "analyst", generate_password_hash("x" * 12, method="scrypt:1024:8:1")).id
+        first = ingest.ingest_upload(wine_csv(), "wine.csv", uid, roles={"ash": "ignore"})
+        again = ingest.ingest_upload(wine_csv(), "wine.csv", uid, roles={"ash": "ignore"})
+        _, fitted = modelling.get_model(first["id"], {"components": 2}, user_id=uid)
+        _, hit = modelling.get_model(first["id"], {"components": 2}, user_id=uid)
+    assert again["id"] == first["id"] and again["created"] is False
+    assert fitted["id"] == hit["id"] and hit["cache_hit"] is True
+    assert "ash" not in fitted["variables"]

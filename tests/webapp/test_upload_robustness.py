@@ -77,13 +77,20 @@ def test_missing_file_field_is_400(app, client, auth):
     _nothing_stored(app)
 
 
-def test_too_large_is_413_and_stores_nothing(app_factory):
+@pytest.mark.parametrize(
+    "n_rows",
+    [
+        pytest.param(80_000, id="file-over-limit"),  # ~1.6 MB: body within the request cap, file over 1 MB
+        pytest.param(200_000, id="body-over-request-cap"),  # ~4 MB: refused while the body is read
+    ],
+)
+def test_too_large_is_413_and_stores_nothing(app_factory, n_rows):
     from conftest import AuthActions
 
     app = app_factory(MAX_UPLOAD_MB=1)
     client = app.test_client()
     headers = AuthActions(app, client).token("analyst")
-    rows = b"".join(b"S%07d,%d,%d\n" % (i, i, i * 2) for i in range(80_000))  # ~1.6 MB
+    rows = b"".join(b"S%07d,%d,%d\n" % (i, i, i * 2) for i in range(n_rows))
     response = _upload(client, headers, b"sample,a,b\n" + rows, "big.csv")
     body = response.get_json()
     assert response.status_code == 413 and body["error"]["code"] == "too_large"
