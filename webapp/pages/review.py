@@ -28,6 +28,11 @@ CAUTION = (
 RECENT_DECIDED = 20
 
 
+def when(iso: str | None) -> str:
+    """``2026-12-01T22:17:53.295960Z`` as ``2026-12-01 22:17:53 UTC`` (seconds are enough on screen)."""
+    return f"{iso[:19].replace('T', ' ')} UTC" if iso else ""
+
+
 def _pct(value) -> str:
     return "–" if value is None else f"{100 * float(value):.2f}%"
 
@@ -114,7 +119,7 @@ def _proposal_rows(proposals: list[dict], names: Mapping[int, str]) -> html.Tabl
                 html.Td(f"{p['action']} {samples}"),
                 html.Td([html.Strong(p["reason_category"]), html.Br(), p["reason"]]),
                 html.Td([p["proposed_by_name"] or "", html.Br(),
-                         html.Span(p["created_at"][:16].replace("T", " ") + " UTC", className="ld-muted")]),
+                         html.Span(when(p["created_at"]), className="ld-muted")]),
                 html.Td(p["state"] if not p["sign_off"] else
                         f"{p['state']} by {p['sign_off']['printed_name']}"),
             ])
@@ -172,7 +177,7 @@ def proposal_detail(proposal: dict) -> html.Div:
         html.Div(
             [html.Strong(f"Signed: {sig['meaning']}"), html.Br(),
              f"Printed name: {sig['printed_name']}", html.Br(),
-             f"Date and time (UTC): {sig['signed_at']}", html.Br(),
+             f"Date and time: {when(sig['signed_at'])}", html.Br(),
              f"Comment: {sig['comment'] or '—'}"],
             className="ld-signature",
         )
@@ -185,7 +190,7 @@ def proposal_detail(proposal: dict) -> html.Div:
             html.P(", ".join(proposal["samples"]), className="ld-sample-list"),
             html.P([html.Strong(proposal["reason_category"]), ": ", proposal["reason"]]),
             html.P(
-                f"Proposed by {proposal['proposed_by_name']} at {proposal['created_at']} (UTC). "
+                f"Proposed by {proposal['proposed_by_name']} at {when(proposal['created_at'])}. "
                 f"State: {proposal['state']}.",
                 className="ld-muted",
             ),
@@ -224,20 +229,29 @@ def layout(proposal=None, dataset=None, **_query) -> html.Div:
                  html.Div(id=ids.REVIEW_MESSAGE, role="status")],
                 className="ld-panel",
             )
-    open_items = review.list_proposals(dataset_id, ["proposed"])
-    decided = [p for p in review.list_proposals(dataset_id) if p["state"] != "proposed"][-RECENT_DECIDED:]
     return html.Div(
         [
             html.H1("Review"),
             html.P(CAUTION, className="ld-muted"),
             detail,
-            html.Section([html.H2(f"Waiting for a decision ({len(open_items)})"),
-                          html.Div(_proposal_rows(open_items, names), id=ids.REVIEW_QUEUE)],
-                         className="ld-panel"),
-            html.Section([html.H2("Recently decided"), _proposal_rows(list(reversed(decided)), names)],
-                         className="ld-panel"),
+            html.Div(queue_sections(dataset_id, names), id=ids.REVIEW_QUEUE),
         ]
     )
+
+
+def queue_sections(dataset_id: int | None, names: Mapping[int, str]) -> list:
+    """The open proposals and the recently decided ones."""
+    from webapp.services import review
+
+    everything = review.list_proposals(dataset_id)
+    open_items = [p for p in everything if p["state"] == "proposed"]
+    decided = [p for p in everything if p["state"] != "proposed"][-RECENT_DECIDED:]
+    return [
+        html.Section([html.H2(f"Waiting for a decision ({len(open_items)})"), _proposal_rows(open_items, names)],
+                     className="ld-panel"),
+        html.Section([html.H2("Recently decided"), _proposal_rows(list(reversed(decided)), names)],
+                     className="ld-panel"),
+    ]
 
 
 def sign_or_withdraw(which: str, proposal_id: int, comment: str | None, password: str | None):
@@ -255,7 +269,7 @@ def sign_or_withdraw(which: str, proposal_id: int, comment: str | None, password
         return html.P(str(exc), className="ld-alert"), None
     sig = result["sign_off"]
     return (
-        html.P(f"Signed as {sig['printed_name']} at {sig['signed_at']} (UTC): {sig['meaning']}.",
+        html.P(f"Signed as {sig['printed_name']} at {when(sig['signed_at'])}: {sig['meaning']}.",
                className="ld-success"),
         result,
     )
@@ -264,6 +278,7 @@ def sign_or_withdraw(which: str, proposal_id: int, comment: str | None, password
 @callback(
     Output(ids.REVIEW_MESSAGE, "children"),
     Output(ids.REVIEW_DETAIL, "children"),
+    Output(ids.REVIEW_QUEUE, "children"),
     # Reviewers see approve/reject and the password field, the proposer sees withdraw.
     Input(ids.REVIEW_APPROVE, "n_clicks", allow_optional=True),
     Input(ids.REVIEW_REJECT, "n_clicks", allow_optional=True),
@@ -275,8 +290,8 @@ def sign_or_withdraw(which: str, proposal_id: int, comment: str | None, password
 )
 def _on_sign(_approve, _reject, _withdraw, comment, password, context):
     if not ctx.triggered_id or not context:
-        return no_update, no_update
+        return no_update, no_update, no_update
     message, result = sign_or_withdraw(ctx.triggered_id, int(context["proposal_id"]), comment, password)
     if result is None:
-        return message, no_update
-    return message, [proposal_detail(result), _signing_form(result)]
+        return message, no_update, no_update
+    return message, [proposal_detail(result), _signing_form(result)], queue_sections(None, _dataset_names())

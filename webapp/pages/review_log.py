@@ -34,7 +34,7 @@ def log_table(entries: list[dict]) -> html.Table | html.P:
         html.Tr(
             [
                 html.Td(e["seq"], className="ld-num"),
-                html.Td(e["at"][:19].replace("T", " ")),
+                html.Td(e["at"][:19].replace("T", " ")),  # UTC, to the second
                 html.Td(e["actor_name"]),
                 html.Td(e["action"], className=f"ld-log-{e['action']}"),
                 html.Td(e["summary"]),

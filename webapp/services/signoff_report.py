@@ -195,7 +195,7 @@ def report_html(dataset_id: int, proposal_id: int | None = None, *, printed_by: 
         f"<tr><th>dataset SHA-256</th><td class='mono'>{_e(dataset['sha256'])}</td></tr>"
         f"<tr><th>samples × variables</th><td>{dataset['n_samples']} × {dataset['n_variables']}</td></tr>"
         f"<tr><th>approved exclusions now</th><td>{_e(', '.join(review.approved_exclusions(dataset_id)) or 'none')}</td></tr>"
-        f"<tr><th>review log</th><td>{'intact' if intact else 'BROKEN at entry ' + _e(broken)}: {_e(reason)}<br>"
+        f"<tr><th>review log</th><td>{_e(reason) if intact else 'BROKEN at entry ' + _e(broken) + ': ' + _e(reason)}<br>"
         f"chain head: entry {_e(head['seq'])}, <span class='mono'>{_e(head['hash'])}</span></td></tr></table>"
         f"<p class='caution'>{_e(CAUTION)}</p>"
         + body

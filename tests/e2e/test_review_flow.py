@@ -1,0 +1,89 @@
+"""End to end in headless Chromium: an analyst proposes excluding the demo's two
+out-of-model batches, a reviewer signs in another browser context, and the log page
+shows both actions with names and times.  Screenshots go to docs/images/.
+
+The planted anomalies are those of the invented demo data (docs/scenarios.md, step 3).
+"""
+
+from __future__ import annotations
+
+import re
+
+from playwright.sync_api import expect
+
+from tests.e2e.conftest import SCREENSHOTS, sign_in
+from webapp.demo_data import LAB_FILENAME
+from webapp.serve import DEMO_USERS
+from webapp.ui import url_state
+
+PLANTED = ["B26-042", "B26-070"]
+PRINTED = {name: printed for name, _role, printed in DEMO_USERS}
+
+
+def _lab_dataset_id(page, server) -> int:
+    page.goto(server.url + "/")
+    link = page.get_by_role("link", name=LAB_FILENAME)
+    href = link.get_attribute("href")
+    return int(re.search(r"/datasets/(\d+)", href).group(1))
+
+
+def test_analyst_proposes_reviewer_signs_log_shows_both(demo_server, new_page):
+    analyst = new_page()
+    sign_in(analyst, demo_server, "ana")
+    analyst.wait_for_url(demo_server.url + "/")
+    dataset_id = _lab_dataset_id(analyst, demo_server)
+
+    # The link the dataset page's selection panel builds for a selection.
+    state = url_state.ViewState(components=3)
+    analyst.goto(demo_server.url + url_state.propose_url(dataset_id, PLANTED, state=state))
+    preview = analyst.locator("#propose-preview")
+    expect(preview).to_contain_text("Principal angles", timeout=60_000)
+    expect(preview).to_contain_text("Explained, PC1")
+    analyst.locator("#propose-category").click()
+    analyst.get_by_text("measurement error", exact=True).click()
+    analyst.fill("#propose-reason", "Both batches sit far above the SPE limit; lab records show a faulty "
+                                    "assay run and a dissolution bath fault.")
+    analyst.screenshot(path=str(SCREENSHOTS / "review-propose.png"), full_page=True)
+    analyst.click("#propose-submit")
+    message = analyst.locator("#propose-message")
+    expect(message).to_contain_text("is waiting for a reviewer")
+    proposal_id = int(re.search(r"Proposal (\d+)", message.inner_text()).group(1))
+
+    reviewer = new_page()
+    sign_in(reviewer, demo_server, "rowan", path="/review")
+    reviewer.wait_for_url(demo_server.url + "/review")
+    queue = reviewer.locator("#review-queue")
+    expect(queue).to_contain_text("B26-042")
+    expect(queue).to_contain_text(PRINTED["ana"])
+    reviewer.goto(demo_server.url + url_state.proposal_url(proposal_id))
+    expect(reviewer.locator("#review-detail")).to_contain_text("measurement error")
+    reviewer.fill("#review-comment", "Checked the lab records; both runs were faulty.")
+    reviewer.fill("#review-password", "not the password")
+    reviewer.click("#review-approve")
+    expect(reviewer.locator("#review-message")).to_contain_text("password is not correct")
+    reviewer.fill("#review-password", demo_server.users["rowan"][1])
+    reviewer.click("#review-approve")
+    expect(reviewer.locator("#review-message")).to_contain_text(f"Signed as {PRINTED['rowan']}")
+    expect(reviewer.locator("#review-detail")).to_contain_text(f"Printed name: {PRINTED['rowan']}")
+    reviewer.screenshot(path=str(SCREENSHOTS / "review-sign.png"), full_page=True)
+
+    # The analyst's own context: the log shows both people, their actions and UTC times.
+    analyst.goto(demo_server.url + url_state.review_log_url(dataset_id))
+    table = analyst.locator("#log-table")
+    expect(table).to_contain_text(PRINTED["ana"])
+    expect(table).to_contain_text(PRINTED["rowan"])
+    expect(table).to_contain_text("propose")
+    expect(table).to_contain_text("approve")
+    expect(table).to_contain_text("sign_failed")
+    rows = table.locator("tbody tr")
+    expect(rows).to_have_count(3)
+    for i in range(3):
+        assert re.match(r"\d{4}-\d\d-\d\d \d\d:\d\d:\d\d", rows.nth(i).locator("td").nth(1).inner_text())
+    expect(analyst.locator("#log-verify")).to_contain_text("intact")
+    analyst.screenshot(path=str(SCREENSHOTS / "review-log.png"), full_page=True)
+
+    report = new_page()
+    sign_in(report, demo_server, "vic", path=url_state.signoff_report_url(dataset_id, proposal_id))
+    expect(report.locator("body")).to_contain_text(f"Printed name: {PRINTED['rowan']}")
+    expect(report.locator("body")).to_contain_text("Meaning: approved")
+    report.screenshot(path=str(SCREENSHOTS / "signoff-report.png"), full_page=True)
