@@ -1,7 +1,7 @@
 """Two gunicorn workers, many threads: no lost or duplicated records, one shared cache.
 
 The server is started here (``gunicorn -w 2`` on a free loopback port, against
-a temporary home folder with SQLite). Threads upload distinct files, upload the
+a temporary home folder, with SQLite and with PostgreSQL). Threads upload distinct files, upload the
 same file at once, and ask for the same fit at once. Expected (common practice
 for content-addressed stores): every distinct upload is recorded exactly once,
 identical uploads resolve to one dataset, and of many simultaneous requests for
@@ -39,10 +39,10 @@ def _free_port() -> int:
 
 
 @pytest.fixture
-def server(tmp_path):
-    """(base URL, analyst token, home folder) of a two-worker gunicorn server."""
+def server(tmp_path, database_url):
+    """(base URL, analyst token, home folder, database URL) of a two-worker gunicorn server."""
     home = tmp_path / "home"
-    config = {"SECRET_KEY": "concurrency-test", "HOME": str(home)}
+    config = {"SECRET_KEY": "concurrency-test", "HOME": str(home), "DATABASE_URL": database_url}
     app = create_app(config)  # migrate once before the workers start
     with app.app_context(), session_scope() as s:
         from webapp import auth
@@ -56,13 +56,13 @@ def server(tmp_path):
         **os.environ,
         "LATENTDESK_HOME": str(home),
         "LATENTDESK_SECRET_KEY": "concurrency-test",
+        "LATENTDESK_DATABASE_URL": database_url,
         "PYTHONPATH": os.pathsep.join(filter(None, [str(ROOT), os.environ.get("PYTHONPATH")])),
     }
-    env.pop("LATENTDESK_DATABASE_URL", None)
     env.pop("LATENTDESK_REDIS_URL", None)
     process = subprocess.Popen(
         [sys.executable, "-m", "gunicorn", "-w", "2", "--threads", "2", "-b", f"127.0.0.1:{port}",
-         "--timeout", "120", "--log-level", "warning", "webapp:create_app()"],
+         "--timeout", "120", "--graceful-timeout", "5", "--log-level", "warning", "webapp:create_app()"],
         cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
     )
     base = f"http://127.0.0.1:{port}"
@@ -78,7 +78,7 @@ def server(tmp_path):
                 output = process.stdout.read().decode(errors="replace") if process.poll() is not None else ""
                 pytest.fail(f"gunicorn did not start: {output[-2000:]}")
             time.sleep(0.2)
-        yield base, {"Authorization": f"Bearer {token}"}, home
+        yield base, {"Authorization": f"Bearer {token}"}, home, database_url
     finally:
         process.send_signal(signal.SIGTERM)
         try:
@@ -101,7 +101,7 @@ def _fit(base, headers, dataset_id: int, settings: dict) -> dict:
 
 
 def test_two_workers_lose_nothing_and_share_the_cache(server):
-    base, headers, home = server
+    base, headers, home, database_url = server
     frame = wine_frame()
     distinct = [wine_csv(frame.drop(index=[i])) for i in range(8)]  # eight different files
     same = wine_csv(frame)
@@ -130,7 +130,7 @@ def test_two_workers_lose_nothing_and_share_the_cache(server):
     assert all(m["cache_hit"] is False for m in others)
     assert len({m["fingerprint"] for m in others}) == 8
 
-    engine = create_engine(f"sqlite:///{home / 'latentdesk.db'}")
+    engine = create_engine(database_url)
     try:
         with engine.connect() as connection:
             assert connection.scalar(select(func.count()).select_from(Dataset)) == 9
