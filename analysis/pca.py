@@ -49,6 +49,7 @@ from analysis.preprocessing import (
     Preprocessor,
     as_matrix,
     check_log10,
+    has_missing,
     scale_block,
 )
 
@@ -56,6 +57,7 @@ SOLVERS = ("auto", "xtx", "xxt", "svd")
 IMPUTATION_TOL = 1e-20  # squared change of imputed cells per round, relative to the total sum of squares
 IMPUTATION_MAX_ITER = 5000
 SIGN_TIE = 1e-9  # loading magnitudes closer than this are tied for the sign convention
+CANCELLATION_GUARD = 1e-4  # SPE below this share of ||z||^2 is recomputed from the residual
 RANK_RTOL_FACTOR = 10.0  # eigenvalues below lambda_max * 10 * max(n, p) * eps are rounding noise
 
 
@@ -130,11 +132,18 @@ class PCAModel:
         if n < 2:
             raise InputError(f"at least 2 samples are needed, got {n}")
 
-        prep = Preprocessor(self.scaling, self.log10, self.drop_constant).fit(values, ids, names)
+        missing = np.isnan(values) if has_missing(values) else None
+        n_missing = 0 if missing is None else int(missing.sum())
+        n, p = values.shape
+        solver = self.solver if self.solver != "auto" else ("xtx" if n >= p else "xxt")
+        # Tall complete data: the centred cross-product comes out of the moments pass.
+        fused = not n_missing and solver == "xtx" and self.scaling != "none"
+        prep = Preprocessor(self.scaling, self.log10, self.drop_constant).fit(values, ids, names, gram=fused)
         if prep.dropped_variables_:
             values = values[:, prep.keep_]
-        missing = np.isnan(values)
-        n_missing = int(missing.sum())
+            if missing is not None:
+                missing = missing[:, prep.keep_]
+                n_missing = int(missing.sum())
         if n_missing:
             empty = np.flatnonzero(missing.all(axis=1))
             if empty.size:
@@ -149,8 +158,7 @@ class PCAModel:
         self.n_samples_ = n
         self.n_missing_ = n_missing
         self.n_iter_ = 0
-        n, p = values.shape
-        solver = self.solver if self.solver != "auto" else ("xtx" if n >= p else "xxt")
+        p = values.shape[1]
         limit = min(n - 1, p) if self.scaling != "none" else min(n, p)
         if a > limit:
             raise InputError(
@@ -162,6 +170,9 @@ class PCAModel:
             z, mask = self._impute(z, missing, a, solver)
             fit = _decompose_full(z, solver)
             self.solver_ = f"imputation+{solver}"
+        elif fused:
+            fit = _from_gram_features(prep.gram_ / np.outer(self.scale_, self.scale_), n)
+            self.solver_ = solver
         elif solver == "xtx":
             fit = _decompose_xtx_blocks(values, self._log_mask(), self.mean_, self.scale_)
             self.solver_ = solver
@@ -233,7 +244,12 @@ class PCAModel:
         return z, missing
 
     def _scores_and_spe_blocks(self, values: np.ndarray, loadings: np.ndarray):
-        """Scores and SPE of complete training data, block by block (no full copy)."""
+        """Scores and SPE of complete training data, block by block (no full copy).
+
+        SPE = ||z||^2 - ||t||^2 (the loadings are orthonormal), recomputed from
+        the explicit residual for rows where that difference is small enough to
+        lose digits to cancellation.
+        """
         n = values.shape[0]
         scores = np.empty((n, loadings.shape[1]))
         spe = np.empty(n)
@@ -241,9 +257,14 @@ class PCAModel:
         for start in range(0, n, CHUNK_ROWS):
             block = scale_block(values[start : start + CHUNK_ROWS], log_mask, self.mean_, self.scale_)
             t = block @ loadings
+            total = np.einsum("ij,ij->i", block, block)
+            q = total - np.einsum("ia,ia->i", t, t)
+            fragile = q < CANCELLATION_GUARD * total
+            if fragile.any():
+                e = block[fragile] - t[fragile] @ loadings.T
+                q[fragile] = np.einsum("ij,ij->i", e, e)
             scores[start : start + len(block)] = t
-            block -= t @ loadings.T
-            spe[start : start + len(block)] = np.einsum("ij,ij->i", block, block)
+            spe[start : start + len(block)] = q
         return scores, spe
 
     # ------------------------------------------------------------- new data
@@ -260,9 +281,9 @@ class PCAModel:
             absent = [v for v in self.variable_names_ if v not in columns]
             if absent:
                 raise InputError(f"variable(s) missing from the data: {', '.join(absent[:10])}")
-            frame = X.copy()
-            frame.columns = columns
-            values, ids, _ = as_matrix(frame[self.variable_names_])
+            label = dict(zip(columns, X.columns))
+            frame = X[[label[v] for v in self.variable_names_]]
+            values, ids, _ = as_matrix(frame, variable_names=self.variable_names_)
             return values, ids
         values = np.asarray(X, dtype=np.float64) if not isinstance(X, np.ndarray) else X
         if values.ndim == 1:
@@ -317,9 +338,28 @@ class PCAModel:
                 scores[members] = sol.T
         return scores
 
+    def _scores_and_spe(self, X) -> tuple[np.ndarray, np.ndarray]:
+        """Scores (m, A) and SPE (m,) of new samples, computed in row blocks (no full copy)."""
+        values, ids = self._matrix(X)
+        log_mask = self._log_mask()
+        m = values.shape[0]
+        scores = np.empty((m, self.n_components_))
+        spe = np.zeros(m)
+        full_span = self.n_components_ == len(self.variable_names_)
+        for start in range(0, m, CHUNK_ROWS):
+            stop = start + CHUNK_ROWS
+            check_log10(values[start:stop], log_mask, ids[start:stop], self.variable_names_)
+            z = scale_block(values[start:stop], log_mask, self.mean_, self.scale_)
+            t = self._scores_of(z)
+            scores[start:stop] = t
+            if not full_span:  # with every direction in the model the residual is 0
+                z -= t @ self.loadings_.T
+                spe[start:stop] = diagnostics.spe_contributions(z).sum(axis=1)
+        return scores, spe
+
     def transform(self, X) -> np.ndarray:
         """Scores (m, A) of new samples; incomplete rows by projection to the model plane."""
-        return self._scores_of(self.preprocess(X))
+        return self._scores_and_spe(X)[0]
 
     def residuals(self, X) -> np.ndarray:
         """Residuals z - t P' in preprocessed units (m, p); NaN where the input is missing."""
@@ -340,10 +380,18 @@ class PCAModel:
 
     def spe(self, X) -> np.ndarray:
         """SPE (m,): sum of squared residuals over the observed variables."""
-        r = self.residuals(X)
-        if self.n_components_ == len(self.variable_names_):
-            return np.zeros(r.shape[0])  # the loadings span every direction
-        return diagnostics.spe_contributions(r).sum(axis=1)
+        return self._scores_and_spe(X)[1]
+
+    def diagnose(self, X) -> dict:
+        """Scores, T2 and SPE of new samples in one pass, with the new-sample T2 limit and SPE limit."""
+        scores, spe = self._scores_and_spe(X)
+        return {
+            "scores": scores,
+            "t2": diagnostics.hotelling_t2(scores, self.eigenvalues_),
+            "spe": spe,
+            "t2_limit": self.t2_limit(new=True),
+            "spe_limit": self.spe_limit(),
+        }
 
     # --------------------------------------------------------------- limits
     def t2_limit(self, confidence=None, new: bool = False) -> float:

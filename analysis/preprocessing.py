@@ -34,7 +34,7 @@ def default_variable_names(p: int) -> list[str]:
 
 def default_sample_ids(n: int) -> list[str]:
     """Ids used when the data come without sample ids: row numbers counted from 1."""
-    return [str(i + 1) for i in range(n)]
+    return list(map(str, range(1, n + 1)))
 
 
 def as_matrix(X, sample_ids=None, variable_names=None) -> tuple[np.ndarray, list[str], list[str]]:
@@ -71,9 +71,9 @@ def as_matrix(X, sample_ids=None, variable_names=None) -> tuple[np.ndarray, list
     if len(set(variable_names)) != p:
         dup = sorted({v for v in variable_names if variable_names.count(v) > 1})
         raise InputError(f"duplicate variable name(s): {', '.join(dup[:10])}")
-    infinite = np.isinf(values)
-    if infinite.any():
-        i, j = np.argwhere(infinite)[0]
+    # A finite total means every value is finite (fast path: no n x p temporary).
+    if not np.isfinite(values.sum()) and np.isinf(values).any():
+        i, j = np.argwhere(np.isinf(values))[0]
         raise InputError(
             f"infinite value {values[i, j]} in variable {variable_names[j]!r}, sample {sample_ids[i]!r}"
         )
@@ -123,8 +123,15 @@ class Preprocessor:
         self.log10 = log10
         self.drop_constant = drop_constant
 
-    def fit(self, values: np.ndarray, sample_ids: list[str], variable_names: list[str]) -> Preprocessor:
-        """Learn log10 mask, means and scales from ``values`` (n, p); NaN ignored."""
+    def fit(
+        self, values: np.ndarray, sample_ids: list[str], variable_names: list[str], gram: bool = False
+    ) -> Preprocessor:
+        """Learn log10 mask, means and scales from ``values`` (n, p); NaN ignored.
+
+        With ``gram=True`` (complete data only) the same pass also accumulates
+        ``gram_``, the p x p cross-product of the centred, unscaled kept
+        variables, from which a PCA of tall data needs no further pass.
+        """
         if self.scaling not in SCALINGS:
             raise InputError(f"scaling={self.scaling!r} is not one of {', '.join(SCALINGS)}")
         log10 = [self.log10] if isinstance(self.log10, str) else [str(v) for v in self.log10]
@@ -134,7 +141,7 @@ class Preprocessor:
         log_mask = np.isin(np.asarray(variable_names, dtype=object), log10)
         check_log10(values, log_mask, sample_ids, variable_names)
 
-        mean, sd, n_obs = column_moments(values, log_mask)
+        mean, sd, n_obs, cross = column_moments(values, log_mask, gram=gram)
         too_few = n_obs < 2
         constant = ~too_few & (sd <= 64 * np.finfo(float).eps * np.abs(mean))
         # Only scalings that divide by the SD are broken by a constant variable.
@@ -162,6 +169,7 @@ class Preprocessor:
         self.variable_names_ = [str(v) for v in names[keep]]
         self.dropped_variables_ = [str(v) for v in names[bad]]
         self.log_mask_ = log_mask[keep]
+        self.gram_ = cross[np.ix_(keep, keep)] if cross is not None else None
         self.sd_ = sd[keep]
         if self.scaling == "none":
             self.mean_ = np.zeros(keep.sum())
@@ -176,46 +184,57 @@ class Preprocessor:
         return self
 
 
-def column_moments(values: np.ndarray, log_mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Mean, SD (ddof=1) and number of observed values per column after log10.
+def has_missing(values: np.ndarray) -> bool:
+    """True when ``values`` (already checked for infinities) holds a NaN."""
+    return not np.isfinite(values.sum()) and bool(np.isnan(values).any())
 
-    Two-pass (centre, then sum squares) in row chunks: accurate and without a
-    full-size temporary copy.
+
+def column_moments(values: np.ndarray, log_mask: np.ndarray, gram: bool = False):
+    """Mean, SD (ddof=1), number of observed values per column after log10, and
+    (``gram=True``, complete data) the cross-product matrix of the centred columns.
+
+    Two passes (centre, then sum squares) in row blocks: accurate (no
+    sum-of-squares-minus-square-of-sums cancellation) and without a full-size copy.
     """
     n, p = values.shape
-    missing = np.isnan(values).any()
-    if missing:
-        n_obs = np.sum(~np.isnan(values), axis=0)
-    else:
-        n_obs = np.full(p, n)
+    missing = has_missing(values)
+    if missing and gram:
+        raise ValueError("the cross-product is only accumulated for complete data")
+    n_obs = np.sum(~np.isnan(values), axis=0) if missing else np.full(p, n)
     total = np.zeros(p)
     for start in range(0, n, CHUNK_ROWS):
         block = apply_log10(values[start : start + CHUNK_ROWS], log_mask)
         total += np.nansum(block, axis=0) if missing else block.sum(axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = total / n_obs
+    cross = np.zeros((p, p)) if gram else None
     ss = np.zeros(p)
     for start in range(0, n, CHUNK_ROWS):
         block = apply_log10(values[start : start + CHUNK_ROWS], log_mask) - mean
+        if gram:
+            cross += block.T @ block
+            continue
         if missing:
             block = np.where(np.isnan(block), 0.0, block)
         ss += np.einsum("ij,ij->j", block, block)
+    if gram:
+        ss = np.diag(cross).copy()
     with np.errstate(invalid="ignore", divide="ignore"):
         sd = np.sqrt(ss / (n_obs - 1))
-    return mean, sd, n_obs
+    return mean, sd, n_obs, cross
 
 
 def apply_log10(block: np.ndarray, log_mask: np.ndarray) -> np.ndarray:
-    """A copy of ``block`` with log10 applied to the masked columns."""
+    """``block`` with log10 applied to the masked columns (a copy when any column is logged)."""
+    if not log_mask.any():
+        return block
     out = np.array(block, dtype=np.float64, copy=True)
-    if log_mask.any():
-        out[:, log_mask] = np.log10(out[:, log_mask])
+    out[:, log_mask] = np.log10(out[:, log_mask])
     return out
 
 
 def scale_block(block: np.ndarray, log_mask: np.ndarray, mean: np.ndarray, scale: np.ndarray) -> np.ndarray:
     """log10, centre and scale one block of rows (a new array; NaN kept)."""
-    out = apply_log10(block, log_mask)
-    out -= mean
+    out = apply_log10(block, log_mask) - mean
     out /= scale
     return out
