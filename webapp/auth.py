@@ -298,6 +298,8 @@ def denial(status: int, message: str | None = None):
             response.headers["WWW-Authenticate"] = 'Bearer realm="latentdesk"'
         return response
     if status == 401:
+        if request.method != "GET":  # a form post cannot be replayed after signing in
+            return redirect(url_for("auth.login"))
         target = request.full_path if request.query_string else request.path
         return redirect(url_for("auth.login", next=safe_next(target)))
     from webapp.auth_views import error_page
