@@ -22,6 +22,7 @@ from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
 
 import analysis
 from analysis.errors import InputError
+from webapp import auth
 from webapp.services import ingest, modelling
 from webapp.services.context import max_upload_bytes, session_scope
 from webapp.services.exports import to_csv_bytes
@@ -142,14 +143,10 @@ def _no_store(response: Response) -> Response:
 
 def requires(role: str):
     """Route decorator: 401 without a user, 403 below ``role`` (``webapp.auth`` decides)."""
-    from webapp import auth
-
     return auth.role_required(role)
 
 
 def _user_id() -> int:
-    from webapp import auth
-
     return auth.api_user().id
 
 
@@ -183,7 +180,11 @@ def upload_dataset():
     raw = upload.read()
     if len(raw) > max_upload_bytes():
         return json_error("too_large", _too_large_message(), 413)
-    options = {"id_column": _form_text("id_column"), "sheet": _form_text("sheet")}
+    options = {
+        "id_column": _form_text("id_column"),
+        "sheet": _form_text("sheet"),
+        "group_columns": [c.strip() for c in request.form.getlist("group_column") if c.strip()],
+    }
     for name in ("below_limit", "bad_cells"):
         if _form_text(name):
             options[name] = _form_text(name)
@@ -203,6 +204,12 @@ def get_dataset(dataset_id: int):
     dataset = ingest.dataset_info(dataset_id)
     dataset.pop("stored_path", None)  # a server detail, not part of the contract
     return json_ok(dataset=dataset)
+
+
+@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>/models")
+@requires("viewer")
+def list_models(dataset_id: int):
+    return json_ok(dataset_id=dataset_id, models=modelling.recorded_models(dataset_id))
 
 
 def _json_body() -> dict[str, Any]:

@@ -300,3 +300,17 @@ def test_csv_twins_neutralise_formulas(client, analyst):
     # The JSON twin keeps the text as it is.
     body = client.get(f"/api/v1/models/{model_id}/samples", headers=analyst).get_json()
     assert body["samples"][0]["sample_id"].startswith("=HYPERLINK")
+
+
+def test_dataset_models_are_listed_newest_first(client, analyst, viewer, dataset, model):
+    other = client.post(f"/api/v1/datasets/{dataset['id']}/models", json={"components": 3}, headers=analyst)
+    listed = client.get(f"/api/v1/datasets/{dataset['id']}/models", headers=viewer).get_json()["models"]
+    assert [m["id"] for m in listed] == [other.get_json()["model"]["id"], model["id"]]
+    assert listed[1]["fingerprint"] == model["fingerprint"] and listed[1]["settings"]["components"] == 2
+    assert client.get("/api/v1/datasets/999/models", headers=viewer).status_code == 404
+
+
+def test_group_column_keeps_a_numeric_column_as_metadata(client, analyst):
+    response = _upload(client, analyst, group_column="magnesium")
+    body = response.get_json()["dataset"]
+    assert "magnesium" in body["metadata_columns"] and "magnesium" not in body["variables"]

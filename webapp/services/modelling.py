@@ -287,6 +287,27 @@ def model_by_id(model_id: int, *, confidence: float | None = None) -> tuple[PCAM
     return get_model(dataset_id, settings, user_id=created_by)
 
 
+def recorded_models(dataset_id: int) -> list[dict[str, Any]]:
+    """The models fitted so far for a dataset, newest first, as recorded (no refit).
+
+    Each: ``id``, ``fingerprint``, ``settings``, ``created_by``, ``created_at`` and
+    the summary recorded at the first fit (limits at that fit's confidence).
+    """
+    ingest.dataset_info(dataset_id)  # DatasetNotFound for an unknown id
+    with session_scope() as session:
+        return [
+            {
+                "id": row.id,
+                "fingerprint": row.fingerprint,
+                "settings": dict(row.settings),
+                "created_by": row.created_by,
+                "created_at": row.created_at.isoformat(),
+                "summary": dict(row.summary),
+            }
+            for row in store.models_of_dataset(session, dataset_id)
+        ]
+
+
 def _rows_of(table: Table, model: PCAModel) -> pd.DataFrame:
     return table.data[list(model.variable_names_)]
 
