@@ -263,8 +263,8 @@ def test_choose_components_preprocesses_like_the_model():
         choose_components(frame, log10=["zz"])
 
 
-def test_large_matrices_use_lanczos_and_agree_with_lapack_svd():
-    # Above LANCZOS_MIN_SIZE only the leading eigenvalues are computed (ARPACK); reference: numpy's LAPACK SVD.
+def test_leading_eigenvalues_of_larger_matrices_agree_with_lapack_svd():
+    # Only the leading eigenpairs are computed (LAPACK MRRR subset); reference: numpy's LAPACK SVD.
     rng = np.random.default_rng(12)
     Z = _autoscale(_planted(rng, 450, 520, 3, noise=0.1))
     np.testing.assert_allclose(
