@@ -230,3 +230,41 @@ def test_explain_training_sample_uses_training_limit(wine_model):
     assert result["t2"] == pytest.approx(model.t2_[3], rel=1e-12)
     inside = result["t2"] <= result["t2_limit"] and result["spe"] <= result["spe_limit"]
     assert result["sentence"].startswith("Within both limits") == inside
+
+
+def test_explain_sample_spe_driver_and_missing_value():
+    # A sample that breaks the correlation structure (x1 up, x2 unchanged although the wine data
+    # tie them loosely) must be driven by SPE once the break is large; the residual quoted in SD
+    # units is e_j * scale_j / s_j (definitions in docs/methods.md; Westerhuis et al. 2000).
+    from sklearn.datasets import load_wine
+
+    X = load_wine().data
+    model = PCAModel(n_components=4).fit(X)
+    x = X.mean(0).copy()
+    # Move along a direction orthogonal to the model plane: pure residual.
+    direction = np.linalg.qr(np.column_stack([model.loadings_, np.eye(13)[:, 0]]))[0][:, 4]
+    x += 8 * direction * model.scale_
+    result = diagnostics.explain_sample(model, x, top=3)
+    assert result["driver"] == "spe"
+    assert result["sentence"].startswith("Poorly described by the model")
+    top = result["variables"][0]
+    j = model.variable_names_.index(top["variable"])
+    expected_res = model.residuals(x[None, :])[0, j]
+    assert top["residual"] == pytest.approx(expected_res, rel=1e-10)
+    assert f"{abs(expected_res):.1f} SD" in result["sentence"]
+    # A missing variable is reported as such, with no standardised value.
+    x_missing = X[10].copy()
+    x_missing[4] = np.nan
+    missing = diagnostics.explain_sample(model, x_missing)
+    row = next(v for v in missing["variables"] if v["variable"] == "x5")
+    assert row["standardized_value"] is None and row["residual"] is None and row["spe_contribution"] == 0.0
+
+
+def test_diagnose_matches_separate_calls(wine_model):
+    # One pass over the data gives what transform / hotelling_t2 / spe / limits give one by one.
+    model, X = wine_model
+    out = model.diagnose(X[:50])
+    np.testing.assert_allclose(out["scores"], model.transform(X[:50]))
+    np.testing.assert_allclose(out["t2"], model.t2_[:50], rtol=1e-10)
+    np.testing.assert_allclose(out["spe"], model.spe_[:50], rtol=1e-8)
+    assert out["t2_limit"] == model.t2_limit(new=True) and out["spe_limit"] == model.spe_limit()
