@@ -36,6 +36,7 @@ BELOW_LIMIT_POLICIES = ("half", "sqrt2", "missing")
 BAD_CELL_POLICIES = ("error", "missing")
 MAX_LISTED = 10
 CLASSIFY_SAMPLE = 2000
+WIDE = 200
 _ID_NAME = re.compile(
     r"^(?:(?:sample|specimen|subject|respondent|participant|record|lot|batch|patient|unit)[ _.-]*)?"
     r"(?:id|no\.?|nr\.?|number|code|name|sample|specimen)$",
@@ -180,7 +181,7 @@ def read_table(
     roles = dict(roles or {})
     if id_column is not None:
         roles[str(id_column)] = "id"
-    for g in group_columns or ():
+    for g in [group_columns] if isinstance(group_columns, str) else group_columns or ():
         roles.setdefault(str(g), "metadata")
     ids = [c for c, r in roles.items() if r == "id"]
     if len(ids) > 1:
@@ -250,7 +251,15 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
     decided: dict[str, str] = {}
     numbers: dict[str, np.ndarray] = {}
     parses = {}
+    block = {}
+    if len(frame.columns) > WIDE:
+        # Wide tables: take the numeric columns in one go; a pandas Series per column costs more than the parse.
+        typed = [c for c, dt in frame.dtypes.items() if _is_numeric_dtype(dt) and c not in roles]
+        block = dict(zip(typed, frame[typed].to_numpy(dtype=np.float64).T))
     for col in frame.columns:
+        if col in block:
+            decided[col], parses[col], numbers[col] = "variable", None, block[col]
+            continue
         series = frame[col]
         if col in roles:
             decided[col] = roles[col]
@@ -345,7 +354,11 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
             f"{filename}: no numeric variables found; at least 2 are needed. "
             f"Columns read as text: {', '.join(map(repr, list(frame.columns)[:20]))}."
         )
-    data = pd.DataFrame(numbers, columns=variables, copy=False)
+    if len(variables) > WIDE:
+        # One 2-D block: pandas reduces block by block, so thousands of 1-D blocks would crawl.
+        data = pd.DataFrame(np.column_stack([numbers[c] for c in variables]), columns=variables)
+    else:
+        data = pd.DataFrame(numbers, columns=variables, copy=False)  # long tables: no copy of the values
     data.index = pd.Index(ids, dtype=object, name=id_col or "sample")
     metadata_cols = [c for c, r in decided.items() if r == "metadata"]
     metadata = pd.DataFrame(
@@ -354,7 +367,8 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
 
     # Rows where every variable is missing are left out, with a warning.
     data_missing = data.isna()
-    empty = data_missing.all(axis=1).to_numpy()
+    row_missing = data_missing.to_numpy().sum(axis=1)
+    empty = row_missing == data.shape[1]
     if empty.any():
         report.dropped_rows = [int(r) for r in rows[empty]]
         shown = ", ".join(str(r) for r in report.dropped_rows[:MAX_LISTED])
@@ -362,7 +376,7 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
             f"{int(empty.sum())} row(s) with no numeric values were left out (rows {shown}"
             + (", ..." if empty.sum() > MAX_LISTED else "") + ")."
         )
-        data, metadata, data_missing = data[~empty], metadata[~empty], data_missing[~empty]
+        data, metadata, data_missing, row_missing = data[~empty], metadata[~empty], data_missing[~empty], row_missing[~empty]
     if data.shape[0] < 3:
         raise IntakeError(f"{filename}: only {data.shape[0]} sample(s) with numeric values; at least 3 are needed.")
     if data.shape[1] < 2:
@@ -370,7 +384,7 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
             f"{filename}: only {data.shape[1]} numeric variable ({', '.join(map(repr, variables))}); at least 2 "
             f"are needed. Text columns: {', '.join(map(repr, metadata_cols[:20])) or 'none'}."
         )
-    _warn_about_values(report, data, data_missing, where, mostly_missing)
+    _warn_about_values(report, data, data_missing, row_missing, where, mostly_missing)
     report.missing_counts = {c: int(n) for c, n in data_missing.sum().items()}
     report.units = {c: u for c, u in grid.units.items() if c in numbers}
     report.n_samples, report.n_variables = data.shape
@@ -378,15 +392,19 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
     return table, report
 
 
+def _is_numeric_dtype(dtype) -> bool:
+    return pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)
+
+
 def _is_numeric(series: pd.Series) -> bool:
-    return pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(series.dtype)
+    return _is_numeric_dtype(series.dtype)
 
 
 def _looks_like_numbers(series: pd.Series, decimal: str) -> bool:
     """Classify a text column from a sample of its filled cells: numbers if half or more read as numbers."""
+    if len(series) > 2 * CLASSIFY_SAMPLE:  # evenly spaced rows: cheap and deterministic
+        series = series.iloc[np.linspace(0, len(series) - 1, 2 * CLASSIFY_SAMPLE).astype(np.int64)]
     cells = series.dropna()
-    if len(cells) > CLASSIFY_SAMPLE:
-        cells = cells.sample(CLASSIFY_SAMPLE, random_state=0)
     cells = [c for c in cells.astype(object) if not (isinstance(c, str) and c.strip().lower() in MISSING_MARKERS)]
     if not cells:
         return True  # nothing but missing markers: an empty variable
@@ -417,7 +435,7 @@ def _cell_text(c):
 def _has_padding(cells: np.ndarray) -> bool:
     """True when some text cell starts or ends with blanks (checked on one joined string, not cell by cell)."""
     joined = "\x00" + "\x00".join(pd.Series(cells, dtype=object).fillna("").tolist()) + "\x00"
-    return any(f"\x00{b}" in joined or f"{b}\x00" in joined for b in _BLANKS)
+    return any(b in joined and (f"\x00{b}" in joined or f"{b}\x00" in joined) for b in _BLANKS)
 
 
 def _detect_id(frame: pd.DataFrame, text_of, decided: dict, keep: np.ndarray, roles: dict) -> str | None:
@@ -479,7 +497,7 @@ def _count_parse(report: IntakeReport, col: str, where: str, parse, policy: str)
         )
 
 
-def _warn_about_values(report, data: pd.DataFrame, missing: pd.DataFrame, where, mostly_missing: float) -> None:
+def _warn_about_values(report, data: pd.DataFrame, missing: pd.DataFrame, row_missing: np.ndarray, where, mostly_missing: float) -> None:
     lowest, highest = data.min(), data.max()
     for c in data.columns[(lowest == highest).to_numpy()]:
         report.warnings.append(f"{where(c)} is constant; it cannot be autoscaled.")
@@ -487,7 +505,7 @@ def _warn_about_values(report, data: pd.DataFrame, missing: pd.DataFrame, where,
     for c, f in frac_col.items():
         if f > mostly_missing:
             report.warnings.append(f"{where(c)} is {f:.0%} missing.")
-    frac_row = missing.mean(axis=1).to_numpy()
+    frac_row = row_missing / data.shape[1]
     mostly = np.flatnonzero(frac_row > mostly_missing)
     if len(mostly):
         shown = ", ".join(repr(str(s)) for s in data.index[mostly[:MAX_LISTED]])

@@ -55,6 +55,8 @@ def column_letter(index: int) -> str:
 
 
 def _is_blank(cell) -> bool:
+    if cell.__class__ is str:
+        return not cell.strip()
     if cell is None:
         return True
     if isinstance(cell, float) and math.isnan(cell):
@@ -103,10 +105,10 @@ def find_units_row(rows: list[list], header: int, decimal: str) -> int | None:
     below = [i for i in range(header + 1, len(rows)) if filled(rows[i]) and not is_comment_row(rows[i])]
     if len(below) < 2:
         return None
-    cand, data = below[0], below[1:51]
+    cand, data = below[0], below[1 : 1 + max(3, min(50, 20_000 // max(1, len(rows[header]))))]
     width = max(len(rows[i]) for i in [cand, *data])
     numeric_cols = []
-    for j in range(width):
+    for j in range(0, width, max(1, width // 2000)):  # wide tables: about 2000 columns decide
         cells = [rows[i][j] for i in data if j < len(rows[i]) and not _is_blank(rows[i][j])]
         if cells and sum(looks_numeric(c, decimal) for c in cells) >= 0.8 * len(cells):
             numeric_cols.append(j)

@@ -30,6 +30,8 @@ from analysis.intake_layout import (
 )
 
 SAMPLE_BYTES = 64 * 1024
+MAX_SAMPLE = 16 * 1024 * 1024
+SAMPLE_CELLS = 20_000
 SAMPLE_LINES = 200
 DELIMITERS = (",", ";", "\t", "|")
 _DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
@@ -41,33 +43,39 @@ _COMMENT_LINE = re.compile(
 )
 
 
-def decode(raw: bytes, filename: str) -> tuple[str, bytes, str, str]:
-    """Pick the encoding; returns (encoding name, bytes for pandas, pandas encoding, sample text)."""
+def decode(raw: bytes, filename: str) -> tuple[str, bytes, str, str, bool]:
+    """Pick the encoding.
+
+    Returns (encoding name, bytes for pandas, pandas encoding, sample text,
+    whether the sample stops short of the end of the file).
+    """
     if raw.startswith(codecs.BOM_UTF8):
-        name, text = "utf-8-sig", None
+        name = "utf-8-sig"
     elif raw.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)) or _looks_utf16(raw):
         name = "utf-16" if raw.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)) else _utf16_order(raw)
         try:
-            text = raw.decode(name)
+            text = raw.decode(name).lstrip("\ufeff")
         except UnicodeDecodeError as exc:
             raise IntakeError(
                 f"{filename}: looks like UTF-16 text but byte {exc.start} cannot be decoded; "
                 "the file is damaged or not text."
             ) from None
-        return name, text.lstrip("\ufeff").encode("utf-8"), "utf-8", text[: SAMPLE_BYTES // 2]
+        end = _sample_end(text, "\n", "\r")
+        return name, text.encode("utf-8"), "utf-8", text[:end], end < len(text)
     else:
-        name, text = "utf-8", None
+        name = "utf-8"
     nul = raw.find(b"\x00")
     if nul >= 0:
         raise IntakeError(
             f"{filename}: contains binary data (a NUL byte at byte {nul}); it is not a text table. "
             "Upload a CSV, TSV or XLSX file."
         )
+    end = _sample_end(raw, b"\n", b"\r")
     if raw.isascii():
-        return "utf-8", raw, "utf-8", raw[:SAMPLE_BYTES].decode("ascii")
+        return "utf-8", raw, "utf-8", raw[:end].decode("ascii"), end < len(raw)
     try:
         raw.decode("utf-8")
-        return name, raw, name, raw[:SAMPLE_BYTES].decode(name, errors="ignore")
+        return name, raw, name, raw[:end].decode(name, errors="ignore"), end < len(raw)
     except UnicodeDecodeError:
         pass
     try:
@@ -76,7 +84,20 @@ def decode(raw: bytes, filename: str) -> tuple[str, bytes, str, str]:
     except UnicodeDecodeError:
         text = raw.decode("latin-1")
         name = "latin-1"
-    return name, text.encode("utf-8"), "utf-8", text[:SAMPLE_BYTES]
+    end = _sample_end(text, "\n", "\r")
+    return name, text.encode("utf-8"), "utf-8", text[:end], end < len(text)
+
+
+def _sample_end(buf, newline, carriage) -> int:
+    """End of the sample: at least SAMPLE_BYTES and SAMPLE_LINES whole lines (wide files), at most MAX_SAMPLE."""
+    mark = newline if newline in buf[:SAMPLE_BYTES] or carriage not in buf[:SAMPLE_BYTES] else carriage
+    pos = 0
+    for _ in range(SAMPLE_LINES):
+        pos = buf.find(mark, pos, MAX_SAMPLE)
+        if pos < 0:
+            return min(len(buf), MAX_SAMPLE)
+        pos += 1
+    return min(max(pos, SAMPLE_BYTES), len(buf))
 
 
 def _looks_utf16(raw: bytes) -> bool:
@@ -109,7 +130,10 @@ def detect_delimiter(lines: list[str], filename: str) -> str:
     lines = [ln for ln in lines if ln.strip() and not ln.lstrip().startswith("#")]
     best, best_key = None, None
     for d in DELIMITERS:
-        counts = [len(r) for r in csv.reader(lines, delimiter=d)]
+        try:
+            counts = [len(r) for r in csv.reader(lines, delimiter=d)]
+        except csv.Error:  # e.g. a whole wide line as one over-long field: d does not split these lines
+            continue
         if not counts:
             continue
         mode, hits = Counter(counts).most_common(1)[0]
@@ -129,19 +153,23 @@ def detect_delimiter(lines: list[str], filename: str) -> str:
 
 def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns: int) -> Grid:
     """Read delimited text into a Grid (numbers typed by pandas, other cells as text)."""
-    encoding, data, pandas_encoding, sample = decode(raw, filename)
-    refuse_binary(sample, filename)
+    encoding, data, pandas_encoding, sample, truncated = decode(raw, filename)
+    refuse_binary(sample[:SAMPLE_BYTES], filename)
     lines = _LINE_BREAK.split(sample)
-    if len(sample) >= SAMPLE_BYTES // 2 and len(lines) > 1:
+    if truncated and len(lines) > 1:
         lines = lines[:-1]  # the last line of a sample may be cut short
     lines = lines[:SAMPLE_LINES]
     try:
-        delimiter = detect_delimiter(lines, filename)
-        rows = [next(csv.reader([ln], delimiter=delimiter), []) for ln in lines]
+        delimiter = detect_delimiter(lines[:40], filename)
+        rows = [next(csv.reader([ln], delimiter=delimiter), []) for ln in lines[:40]]
+        # Wide files: keep the sample near SAMPLE_CELLS cells, the detection below is cell by cell.
+        keep = max(10, min(SAMPLE_LINES, SAMPLE_CELLS // max(len(r) for r in rows)))
+        rows += [next(csv.reader([ln], delimiter=delimiter), []) for ln in lines[40:keep]]
+        rows = rows[:keep]
     except csv.Error as exc:
         raise IntakeError(f"{filename}: the first lines cannot be split into fields ({' '.join(str(exc).split())}).") from None
     header = find_header(rows, filename)
-    body = [c for r in rows[header + 1 :] if not is_comment_row(r) for c in r]
+    body = [c for r in rows[header + 1 :] if not is_comment_row(r) for c in r][:SAMPLE_CELLS]
     decimal = guess_decimal(body, delimiter)
     units_at = find_units_row(rows, header, decimal)
     width = max(len(r) for r in rows[header:])
@@ -154,7 +182,7 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
     if units_at is not None:
         units = {n: u.strip() for n, u in zip(names, rows[units_at]) if u.strip() and u.strip().lower() not in MISSING_MARKERS}
     skip = (units_at if units_at is not None else header) + 1
-    if b"\n#" in data:
+    if b"#" in data and b"\n#" in data:  # one fast byte scan first; most files have no '#'
         data = _COMMENT_LINE.sub(b"", data)
     try:
         frame = pd.read_csv(

@@ -477,3 +477,19 @@ def test_numeric_group_column_stays_metadata():
     assert table.variables == ["a", "b"] and table.metadata["line"].tolist() == ["1", "2", "2"]
     table, report = read_table(raw, "g.csv")
     assert table.variables == ["line", "a", "b"]
+
+
+def test_wide_file_reads_and_counts_columns_against_the_limit():
+    # More than one 64 KB sample of header: the sample grows to whole lines.
+    p = 12_000
+    rng = np.random.default_rng(11)
+    values = rng.integers(0, 1000, size=(4, p)) / 8.0
+    lines = ["id," + ",".join(f"var_{j:05d}" for j in range(p))]
+    lines += [f"s{i}," + ",".join(repr(float(v)) for v in row) for i, row in enumerate(values)]
+    raw = ("\n".join(lines) + "\n").encode()
+    assert len(lines[0]) > 64 * 1024
+    table, report = read_table(raw, "wide.csv")
+    assert table.data.shape == (4, p)
+    np.testing.assert_array_equal(table.values, values)
+    with pytest.raises(IntakeError, match=rf"row 1 has {p + 1} columns, more than the limit of {p}"):
+        read_table(raw, "wide.csv", max_columns=p)
