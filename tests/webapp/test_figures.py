@@ -179,6 +179,10 @@ def test_variance_figure_marks_cv_curve_and_recommendation():
     marks = [s for s in fig.layout.shapes if s.type == "line"]
     assert [s.x0 for s in marks] == [2]
     assert any("recommended: 2" in a.text for a in fig.layout.annotations)
+    assert tuple(fig.layout.yaxis.range) == (0, 102)  # no negative shares here: full 0-100% scale
+    worse = F.variance_figure(ratio, cv_cumulative=[0.6, 0.2, -4.0, -80.0], recommended=1)
+    assert worse.layout.yaxis.range[0] == F.CV_FLOOR
+    assert any("run off the chart" in a.text for a in worse.layout.annotations)
 
 
 def test_variable_explained_sorted_in_percent():
@@ -261,3 +265,15 @@ def test_hover_metadata_shown_for_moderate_sizes():
     meta = pd.DataFrame({"site": ["n", "s", None]})
     fig = F.score_figure(scores, [0.5, 0.5], metadata=meta)
     assert list(fig.data[0].hovertext) == ["site: n", "site: s", "site: "]
+
+
+def test_colour_and_shape_together_keep_a_plain_colour_legend():
+    scores, _, _, ratio = _iris_pca()
+    species = np.array(load_iris().target_names)[load_iris().target]
+    site = np.where(np.arange(150) % 2 == 0, "north", "south")
+    fig = F.score_figure(scores, ratio, colour_values=species, symbol_values=site, symbol_name="site")
+    points = [t for t in fig.data if t.x is not None and len(t.x) > 1 and t.mode == "markers"]
+    assert sum(len(t.x) for t in points) == 150 and not any(t.showlegend for t in points)
+    legend = [t for t in fig.data if t.showlegend is not False and t.name in set(species)]
+    assert [t.marker.symbol for t in legend] == ["circle"] * 3
+    assert [t.marker.color for t in legend] == OKABE_ITO_PUBLISHED[:3]

@@ -99,8 +99,8 @@ def explain_view(result: dict | None, sample: str | None):
                 className="ld-stats"),
             dcc.Graph(id=ids.GRAPH_SPE_CONTRIB, config=SMALL_GRAPH,
                       figure=_small(figures.contribution_figure(
-                          names, signed_spe, title="SPE contributions (sign of the residual)", top=TOP_VARIABLES,
-                          value_title="squared residual, signed"))),
+                          names, signed_spe, title="SPE contributions", top=TOP_VARIABLES,
+                          value_title="squared residual × its sign"))),
             dcc.Graph(id=ids.GRAPH_T2_CONTRIB, config=SMALL_GRAPH,
                       figure=_small(figures.contribution_figure(
                           names, t2_parts, title="T² contributions", top=TOP_VARIABLES,
@@ -123,7 +123,8 @@ def _value_of(info: dict, variable: str) -> dict:
 
 
 def _small(fig):
-    fig.update_layout(margin=dict(l=8, r=12, t=40, b=40), title_font_size=13)
+    fig.update_layout(margin=dict(l=8, r=16, t=36, b=40), title_font_size=13, font_size=11)
+    fig.update_xaxes(title_font_size=11)
     return fig
 
 

@@ -52,6 +52,7 @@ CONTINUOUS_SCALE = "Cividis"
 # Symbols that both SVG and WebGL scatters draw.
 SYMBOLS = ("circle", "square", "diamond", "cross", "x", "triangle-up", "triangle-down", "star")
 WEBGL_THRESHOLD = 2000
+CV_FLOOR = -20.0  # lowest cross-validated share (%) drawn in the variance figure
 # A metadata column with at most this many distinct numeric values is coloured as groups.
 MAX_NUMERIC_GROUPS = 8
 # Above this many points, hover shows the sample id only (keeps the payload small).
@@ -229,7 +230,14 @@ def variance_figure(
         fig.add_vline(x=chosen, line=dict(color="#5b6570", width=1), annotation_text=f"in use: {chosen}",
                       annotation_position="bottom right")
     fig.update_xaxes(title_text="Number of components", tickmode="array", tickvals=k, range=[0.4, ratio.size + 0.6])
-    fig.update_yaxes(title_text="Variance explained (%)", rangemode="tozero")
+    fig.update_yaxes(title_text="Variance explained (%)", range=[0, 102])
+    if cv_cumulative is not None and np.nanmin(np.append(100.0 * _as_float(cv_cumulative), 0.0)) < 0:
+        # Over-fitted counts can predict far worse than the mean (large negative shares):
+        # keep the useful range readable and say that the curve leaves it.
+        fig.update_yaxes(range=[CV_FLOOR, 102])
+        fig.add_annotation(text=f"cross-validated values below {CV_FLOOR:g}% run off the chart", showarrow=False,
+                           xref="paper", yref="paper", x=1, y=0.02, xanchor="right",
+                           font=dict(size=11, color="#5b6570"))
     fig.update_layout(legend=dict(orientation="h", y=-0.22, x=0), bargap=0.35)
     return fig
 
@@ -359,7 +367,9 @@ def score_figure(
 
     fig.update_xaxes(title_text=component_label(x, explained_ratio), zeroline=True)
     fig.update_yaxes(title_text=component_label(y, explained_ratio), zeroline=True)
-    fig.update_layout(dragmode="select", clickmode="event+select", legend=dict(itemsizing="constant"))
+    # Legend above the plot: it never covers points and wraps on a narrow window.
+    fig.update_layout(dragmode="select", clickmode="event",
+                      legend=dict(itemsizing="constant", orientation="h", x=0, y=1.01, yanchor="bottom"))
     return fig
 
 
@@ -444,12 +454,14 @@ def biplot_figure(scores, loadings, eigenvalues, explained_ratio, variables: Seq
     ys = np.column_stack([np.zeros(len(names)), arrows[:, 1], np.full(len(names), np.nan)]).ravel()
     fig.add_trace(go.Scatter(x=xs, y=ys, mode="lines", line=dict(color="#b23a00", width=1.5),
                              name=f"variables (arrows × {k:g})", hoverinfo="skip"))
+    # Each label sits beyond its arrow's tip, on the side the arrow points to.
+    positions = [("top " if dy >= 0 else "bottom ") + ("right" if dx >= 0 else "left") for dx, dy in arrows]
     fig.add_trace(go.Scatter(x=arrows[:, 0], y=arrows[:, 1], mode="markers+text", text=names,
-                             textposition="top center", textfont=dict(size=11, color="#8a2d00"),
+                             textposition=positions, textfont=dict(size=11, color="#8a2d00"),
                              marker=dict(color="#b23a00", size=5), showlegend=False,
                              hovertemplate="<b>%{text}</b><extra>variable</extra>"))
-    fig.update_xaxes(title_text=f"{component_label(x, explained_ratio)}, unit-variance scores")
-    fig.update_yaxes(title_text=f"{component_label(y, explained_ratio)}, unit-variance scores")
+    fig.update_xaxes(title_text=component_label(x, explained_ratio))
+    fig.update_yaxes(title_text=component_label(y, explained_ratio))
     fig.update_layout(title_text=f"Biplot: scores / sqrt(λ), loadings × sqrt(λ) × {k:g}")
     return fig
 
@@ -515,7 +527,7 @@ def t2_spe_figure(t2, spe, t2_limits: Mapping[float, float], spe_limits: Mapping
                       annotation_position="top right", annotation_font_size=11)
     fig.update_xaxes(title_text="Hotelling's T² (distance within the model)", rangemode="tozero")
     fig.update_yaxes(title_text="SPE (distance from the model)", rangemode="tozero")
-    fig.update_layout(dragmode="select", clickmode="event+select", legend=dict(itemsizing="constant"))
+    fig.update_layout(dragmode="select", clickmode="event", legend=dict(itemsizing="constant"))
     return fig
 
 
@@ -565,7 +577,7 @@ def control_chart_figure(values, limits: Mapping[float, float], *, name: str, or
                       annotation_font_size=11)
     fig.update_xaxes(title_text=x_title)
     fig.update_yaxes(title_text=name, rangemode="tozero")
-    fig.update_layout(dragmode="select", clickmode="event+select",
+    fig.update_layout(dragmode="select", clickmode="event",
                       legend=dict(orientation="h", y=1.02, yanchor="bottom", x=1, xanchor="right"))
     return fig
 
