@@ -296,7 +296,7 @@ class PCAModel:
                 + (f" (or the {p_input} it was fitted on)" if p_input != p_model else "")
             )
         names = self.variable_names_ if values.shape[1] == p_model else self.feature_names_in_
-        values, ids, _ = as_matrix(values, variable_names=names)
+        values, ids, _ = as_matrix(values, variable_names=names, default_ids=False)
         if values.shape[1] != p_model:
             keep = [names.index(v) for v in self.variable_names_]
             values = values[:, keep]
@@ -320,6 +320,8 @@ class PCAModel:
     def _scores_of(self, z: np.ndarray) -> np.ndarray:
         """Scores of preprocessed rows; incomplete rows by projection to the model plane."""
         p = self.loadings_
+        if np.isfinite(z.sum()):
+            return z @ p
         missing = np.isnan(z)
         incomplete = missing.any(axis=1)
         scores = np.empty((z.shape[0], p.shape[1]))
@@ -346,15 +348,18 @@ class PCAModel:
         scores = np.empty((m, self.n_components_))
         spe = np.zeros(m)
         full_span = self.n_components_ == len(self.variable_names_)
+        check_log10(values, log_mask, ids, self.variable_names_)
         for start in range(0, m, CHUNK_ROWS):
             stop = start + CHUNK_ROWS
-            check_log10(values[start:stop], log_mask, ids[start:stop], self.variable_names_)
             z = scale_block(values[start:stop], log_mask, self.mean_, self.scale_)
             t = self._scores_of(z)
             scores[start:stop] = t
             if not full_span:  # with every direction in the model the residual is 0
                 z -= t @ self.loadings_.T
-                spe[start:stop] = diagnostics.spe_contributions(z).sum(axis=1)
+                if np.isfinite(z.sum()):
+                    spe[start:stop] = np.einsum("ij,ij->i", z, z)
+                else:
+                    spe[start:stop] = diagnostics.spe_contributions(z).sum(axis=1)
         return scores, spe
 
     def transform(self, X) -> np.ndarray:

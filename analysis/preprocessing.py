@@ -37,12 +37,19 @@ def default_sample_ids(n: int) -> list[str]:
     return list(map(str, range(1, n + 1)))
 
 
-def as_matrix(X, sample_ids=None, variable_names=None) -> tuple[np.ndarray, list[str], list[str]]:
+def row_label(sample_ids, i: int) -> str:
+    """The sample id of row i, or its row number counted from 1 when there are no ids."""
+    return str(i + 1) if sample_ids is None else sample_ids[i]
+
+
+def as_matrix(X, sample_ids=None, variable_names=None, default_ids=True):
     """Validate input and return (float64 matrix, sample ids, variable names).
 
     ``X`` is an ndarray or a DataFrame (index gives the sample ids and columns
     the variable names unless given explicitly). NaN marks a missing value;
     infinite or non-numeric values are an InputError naming row and column.
+    With ``default_ids=False`` an ndarray without ids gets None instead of a
+    list of row numbers (messages still name the row number).
     """
     if isinstance(X, pd.DataFrame):
         if sample_ids is None:
@@ -62,9 +69,12 @@ def as_matrix(X, sample_ids=None, variable_names=None) -> tuple[np.ndarray, list
     if values.ndim != 2:
         raise InputError(f"data must be a 2-D table (samples x variables), got {values.ndim} dimension(s)")
     n, p = values.shape
-    sample_ids = default_sample_ids(n) if sample_ids is None else [str(s) for s in sample_ids]
+    if sample_ids is not None:
+        sample_ids = [str(s) for s in sample_ids]
+    elif default_ids:
+        sample_ids = default_sample_ids(n)
     variable_names = default_variable_names(p) if variable_names is None else [str(v) for v in variable_names]
-    if len(sample_ids) != n:
+    if sample_ids is not None and len(sample_ids) != n:
         raise InputError(f"{len(sample_ids)} sample ids given for {n} rows")
     if len(variable_names) != p:
         raise InputError(f"{len(variable_names)} variable names given for {p} columns")
@@ -75,7 +85,7 @@ def as_matrix(X, sample_ids=None, variable_names=None) -> tuple[np.ndarray, list
     if not np.isfinite(values.sum()) and np.isinf(values).any():
         i, j = np.argwhere(np.isinf(values))[0]
         raise InputError(
-            f"infinite value {values[i, j]} in variable {variable_names[j]!r}, sample {sample_ids[i]!r}"
+            f"infinite value {values[i, j]} in variable {variable_names[j]!r}, sample {row_label(sample_ids, i)!r}"
         )
     return values, sample_ids, variable_names
 
@@ -90,7 +100,7 @@ def check_log10(values: np.ndarray, log_mask: np.ndarray, sample_ids, variable_n
         i, k = np.argwhere(bad)[0]
         j = np.flatnonzero(log_mask)[k]
         raise InputError(
-            f"log10 needs positive values: variable {variable_names[j]!r}, sample {sample_ids[i]!r} "
+            f"log10 needs positive values: variable {variable_names[j]!r}, sample {row_label(sample_ids, i)!r} "
             f"has {values[i, j]:g}"
         )
 
