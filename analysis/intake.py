@@ -199,7 +199,8 @@ def read_table(
                 raise IntakeError(f"{filename}: is {kind}, not a table. Upload a CSV, TSV or XLSX file.")
         if sheet is not None:
             raise IntakeError(f"{filename}: sheet {sheet!r} was asked for, but this is a text file without sheets.")
-        grid = read_text(raw, filename, text_columns=set(roles), max_columns=max_columns)
+        text_columns = {c for c, r in roles.items() if r in ("id", "metadata")}  # keep "007" as written
+        grid = read_text(raw, filename, text_columns=text_columns, max_columns=max_columns)
     return _typed(grid, filename, roles, below_limit, bad_cells, mostly_missing)
 
 
