@@ -1,0 +1,313 @@
+"""The dataset and upload pages' callback bodies, called as plain functions.
+
+Data: the wine recognition data shipped with scikit-learn (Aeberhard, Coomans &
+de Vel 1992; ``sklearn.datasets.load_wine``), with sample ids and the cultivar
+column added (tests/webapp/wine_data.py). Reference numbers come from numpy/scipy
+on the same data, never from our own output.
+"""
+
+from __future__ import annotations
+
+import base64
+import csv
+import importlib
+import io
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from analysis.errors import InputError
+from tests.webapp.wine_data import variables, wine_csv, wine_frame
+from webapp.ui import ids
+from webapp.ui.url_state import ViewState
+
+
+def _pages():
+    # Dash's page loader runs the page modules when the app is built; take those modules.
+    return (importlib.import_module("webapp.pages.dataset"), importlib.import_module("webapp.pages.dataset_views"),
+            importlib.import_module("webapp.pages.dataset_samples"), importlib.import_module("webapp.pages.upload"))
+
+
+@pytest.fixture
+def wine(app, make_user):
+    """(app, dataset id, user id) with the wine data stored."""
+    from webapp.services import ingest
+    from webapp.store import accounts, session_scope
+
+    name, _ = make_user("analyst")
+    with app.app_context():
+        with session_scope() as s:
+            user_id = accounts.get_user_by_name(s, name).id
+        dataset = ingest.ingest_upload(wine_csv(), "wine.csv", user_id, id_column="sample")
+    return app, dataset["id"], user_id
+
+
+@pytest.fixture
+def fitted(wine):
+    app, dataset_id, user_id = wine
+    dataset, *_ = _pages()
+    with app.app_context():
+        result = dataset.fit_summary(dataset_id, dataset.applied_settings(ViewState(components=3)), user_id)
+    return app, result
+
+
+def _autoscaled_wine():
+    x = wine_frame()[variables()].to_numpy(dtype=float)
+    return (x - x.mean(0)) / x.std(0, ddof=1)
+
+
+# ------------------------------------------------------------ URL <-> controls
+def test_location_wins_on_load_and_back(app):
+    dataset, *_ = _pages()
+    state, notes, set_controls = dataset.sync_state(ids.DATASET_LOCATION, "?tab=outliers&colour=cultivar&a=2",
+                                                    {}, None, {})
+    assert set_controls and notes == []
+    assert state == ViewState(tab="outliers", colour="cultivar", components=2)
+    assert dataset.view_values(state)["tab"] == "outliers"
+    assert dataset.form_values(state)["components"] == "2"
+
+
+def test_view_control_change_keeps_applied_settings(app):
+    dataset, *_ = _pages()
+    applied = dataset.applied_settings(ViewState(components=4, exclude=("W-001",)))
+    view = dataset.view_values(ViewState())
+    view.update(colour="cultivar", pcx=2, pcy=3, labels=["on"])
+    state, _, set_controls = dataset.sync_state(ids.VIEW_COLOUR, "", view, applied, {})
+    assert not set_controls
+    assert (state.colour, state.pcx, state.pcy, state.labels) == ("cultivar", 2, 3, True)
+    assert (state.components, state.exclude) == (4, ("W-001",))
+
+
+def test_fit_button_applies_the_form_and_keeps_left_out_samples(app):
+    dataset, *_ = _pages()
+    applied = dataset.applied_settings(ViewState(exclude=("W-007",)))
+    form = {"drop": ["Ash"], "log10": ["Ash", "Proline"], "scaling": "pareto", "components": "2", "confidence": 0.99}
+    state, _, _ = dataset.sync_state(ids.SETTINGS_FIT, "", dataset.view_values(ViewState()), applied, form)
+    assert state.components == 2 and state.scaling == "pareto" and state.confidence == 0.99
+    assert state.drop == ("Ash",) and state.log10 == ("Proline",)  # a dropped variable is not transformed
+    assert state.exclude == ("W-007",)
+
+
+def test_same_component_on_both_axes_is_corrected(app):
+    dataset, *_ = _pages()
+    state = dataset.state_from_controls({"pcx": 2, "pcy": 2}, None)
+    assert state.pcx != state.pcy
+
+
+def test_toolbar_groups_per_tab(app):
+    dataset, *_ = _pages()
+    assert dataset.toolbar_hidden("scores") == {"axes": False, "loadings": True, "order": True}
+    assert dataset.toolbar_hidden("diagnostics") == {"axes": True, "loadings": True, "order": False}
+
+
+# --------------------------------------------------------------------- fitting
+def test_fit_summary_matches_an_svd_and_then_comes_from_the_cache(wine):
+    app, dataset_id, user_id = wine
+    dataset, *_ = _pages()
+    settings = dataset.applied_settings(ViewState(components=3))
+    with app.app_context():
+        first = dataset.fit_summary(dataset_id, settings, user_id)
+        again = dataset.fit_summary(dataset_id, settings, user_id)
+    assert first["ok"] and first["cache_hit"] is False and again["cache_hit"] is True
+    assert first["fingerprint"] == again["fingerprint"]
+    s = np.linalg.svd(_autoscaled_wine(), compute_uv=False)
+    np.testing.assert_allclose(first["explained_variance_ratio"], (s**2 / np.sum(s**2))[:3], rtol=1e-8)
+    assert first["rank"]["recommended"] >= 1  # the component-choice table comes with a numbered fit too
+
+
+def test_bad_settings_give_the_services_message(wine):
+    app, dataset_id, user_id = wine
+    dataset, *_ = _pages()
+    with app.app_context():
+        result = dataset.fit_summary(dataset_id, dataset.applied_settings(ViewState(components=40)), user_id)
+    assert result["ok"] is False and "40" in result["error"]
+
+
+def test_fit_line_says_where_the_model_came_from(fitted):
+    _, result = fitted
+    dataset, *_ = _pages()
+    recommendation, source, _ = dataset.fit_line(result)
+    assert source.startswith("Showing 3 components, model ")
+    assert "fitted in" in source or "from the cache" in source
+
+
+# ------------------------------------------------------------------- the plots
+def test_recolouring_and_axes_never_refit(fitted, monkeypatch):
+    app, result = fitted
+    _, views, _, _ = _pages()
+    from webapp.services import modelling
+
+    def no_fit(*args, **kwargs):
+        raise AssertionError("a view change refitted the model")
+
+    monkeypatch.setattr(modelling, "_fit", no_fit)
+    with app.app_context():
+        plain, hit = views.score_view(result, pcx=1, pcy=2, colour=None, shape=None, labels=False)
+        coloured, hit2 = views.score_view(result, pcx=1, pcy=3, colour="cultivar", shape=None, labels=True)
+    assert hit and hit2
+    groups = [t.name for t in coloured.data if t.name and t.name.startswith("cultivar")]
+    assert groups == ["cultivar 1", "cultivar 2", "cultivar 3"]
+    assert coloured.layout.yaxis.title.text.startswith("PC3 (")
+    assert coloured.data[0].mode == "markers+text"
+
+
+def test_score_ellipses_use_the_two_component_training_limit(fitted):
+    app, result = fitted
+    _, views, _, _ = _pages()
+    n = 178
+    for confidence in (0.95, 0.99):
+        # Tracy, Young & Mason (1992): T2 ~ ((n-1)^2/n) Beta(A/2, (n-A-1)/2), A = 2 plotted components
+        expected = (n - 1) ** 2 / n * stats.beta.ppf(confidence, 1.0, (n - 3) / 2)
+        assert views.ellipse_limits(n)[confidence] == pytest.approx(expected, rel=1e-12)
+    with app.app_context():
+        fig, _ = views.score_view(result, pcx=1, pcy=2, colour=None, shape=None, labels=False)
+    ellipse = [t for t in fig.data if t.name == "T² 95% limit"][0]
+    s = np.linalg.svd(_autoscaled_wine(), compute_uv=False)
+    eig = s**2 / (n - 1)
+    limit = (n - 1) ** 2 / n * stats.beta.ppf(0.95, 1.0, (n - 3) / 2)
+    assert max(ellipse.x) == pytest.approx(np.sqrt(limit * eig[0]), rel=1e-8)
+
+
+def test_diagnostics_draw_training_limits_at_95_and_99(fitted):
+    app, result = fitted
+    _, views, _, _ = _pages()
+    with app.app_context():
+        both, t2_chart, spe_chart = views.diagnostics_view(result, order=None)
+    n, a = 178, 3
+    expected = sorted((n - 1) ** 2 / n * stats.beta.ppf(c, a / 2, (n - a - 1) / 2) for c in (0.95, 0.99))
+    vlines = sorted(s.x0 for s in both.layout.shapes if s.x0 == s.x1 and s.xref == "x")
+    np.testing.assert_allclose(vlines, expected, rtol=1e-10)
+    np.testing.assert_allclose(sorted(s.y0 for s in t2_chart.layout.shapes), expected, rtol=1e-10)
+    assert spe_chart.layout.yaxis.title.text == "SPE"
+
+
+def test_outlier_table_lists_every_sample_beyond_a_limit(fitted):
+    app, result = fitted
+    _, views, _, _ = _pages()
+    with app.app_context():
+        rows, columns, note = views.outlier_rows(result)
+    # independent check: T2 from an SVD of the autoscaled data (sum of t_a^2 / lambda_a)
+    z = _autoscaled_wine()
+    u, s, vt = np.linalg.svd(z, full_matrices=False)
+    n, a = z.shape[0], 3
+    t2 = np.sum((u[:, :a] * np.sqrt(n - 1)) ** 2, axis=1)
+    spe = np.sum((z - (u[:, :a] * s[:a]) @ vt[:a]) ** 2, axis=1)
+    t2_limit = (n - 1) ** 2 / n * stats.beta.ppf(0.95, a / 2, (n - a - 1) / 2)
+    beyond_t2 = set(np.flatnonzero(t2 > t2_limit))
+    listed = {r["sample_id"] for r in rows}
+    assert {f"W-{i + 1:03d}" for i in beyond_t2} <= listed
+    spe_limit = result["spe_limit"]
+    expected = {f"W-{i + 1:03d}" for i in np.flatnonzero((t2 > t2_limit) | (spe > spe_limit))}
+    assert listed == expected
+    assert note.startswith(f"{len(expected)} of 178 samples")
+    assert all(r["top variables"] for r in rows)
+    assert "meta: cultivar" in {c["field"] for c in columns}
+
+
+def test_variance_view_marks_the_recommendation(fitted):
+    app, result = fitted
+    _, views, _, _ = _pages()
+    with app.app_context():
+        scree, table, per_variable = views.variance_view(result)
+    rec = result["rank"]["recommended"]
+    assert any(f"recommended: {rec}" in (a.text or "") for a in scree.layout.annotations)
+    assert len(per_variable.data[0].y) == 13
+
+
+def test_loading_views(fitted):
+    app, result = fitted
+    _, views, _, _ = _pages()
+    with app.app_context():
+        plot = views.loading_view(result, pcx=1, pcy=2, mode="plot")
+        bars = views.loading_view(result, pcx=2, pcy=1, mode="bars")
+        biplot = views.loading_view(result, pcx=1, pcy=2, mode="biplot", colour="cultivar")
+    _, _, vt = np.linalg.svd(_autoscaled_wine(), full_matrices=False)
+    # loadings equal the right singular vectors up to sign (sign convention: largest |element| positive)
+    np.testing.assert_allclose(np.abs(plot.data[0].x), np.abs(vt[0]), atol=1e-8)
+    assert bars.layout.title.text.startswith("Loadings of PC2")
+    assert "Biplot" in biplot.layout.title.text
+
+
+# ------------------------------------------------ clicks, selection, explanation
+def test_clicks_and_selections_give_the_sample_ids_back(app):
+    _, views, samples, _ = _pages()
+    assert views.clicked_sample({"points": [{"text": "a&amp;b &lt;1&gt;", "customdata": 3}]}) == "a&b <1>"
+    assert views.clicked_sample({"points": [{"x": 1}]}) is None
+    event = {"points": [{"text": "W-002"}, {"text": "W-001"}, {"text": "W-002"}]}
+    assert views.selected_samples(event) == ["W-002", "W-001"]
+    store = views.selection_data(event, {"dataset_id": 5, "sample_ids": []}, {"fingerprint": "f", "dataset_id": 5})
+    assert store == {"dataset_id": 5, "fingerprint": "f", "sample_ids": ["W-002", "W-001"]}
+    applied = {"exclude": ["W-009"], "components": 2}
+    assert samples.leave_out(applied, store)["exclude"] == ["W-009", "W-002", "W-001"]
+    assert samples.leave_out(applied, {"sample_ids": []}) is None
+
+
+def test_explanation_names_the_driving_variables(fitted):
+    app, result = fitted
+    _, views, samples, _ = _pages()
+    with app.app_context():
+        rows, _, _ = views.outlier_rows(result)
+        panel = samples.explain_view(result, rows[0]["sample_id"])
+        missing = samples.explain_view(result, "no-such-sample")
+    text = str(panel)
+    assert rows[0]["sample_id"] in text and "mainly because of" in text
+    assert "has no sample no-such-sample" in str(missing)
+
+
+def test_csv_download_has_one_row_per_sample_and_numbers(fitted):
+    app, result = fitted
+    _, _, samples, _ = _pages()
+    with app.app_context():
+        content, name = samples.download_payload(result, "samples", "csv")
+        xlsx, xname = samples.download_payload(result, "loadings", "xlsx")
+    rows = list(csv.DictReader(io.StringIO(content.decode("utf-8"))))
+    assert name.endswith(".csv") and len(rows) == 178
+    assert rows[0]["sample_id"] == "W-001" and float(rows[0]["T2"]) >= 0
+    assert xname.endswith(".xlsx") and xlsx[:2] == b"PK"  # XLSX is a zip container (ECMA-376)
+
+
+# ---------------------------------------------------------------------- upload
+def _data_url(raw: bytes) -> str:
+    return "data:text/csv;base64," + base64.b64encode(raw).decode()
+
+
+def test_upload_preview_shows_the_report_and_stores_nothing(wine):
+    app, _, user_id = wine
+    *_, upload = _pages()
+    raw = "id;grp;a;b\nx1;g;1,5;<0,1\nx2;g;2,5;0,3\nx3;h;1,0;0,2\n".encode()
+    with app.app_context():
+        from webapp.services import ingest
+
+        before = len(ingest.list_datasets())
+        report, rows, id_options, ok = upload.preview(_data_url(raw), "semi.csv", upload.intake_options(
+            None, None, "half", "error", None))
+        assert len(ingest.list_datasets()) == before
+    assert ok and {r["column"]: r["role"] for r in rows}["grp"] == "metadata"
+    text = str(report)
+    assert "semicolon" in text and "Decimal mark" in text
+    assert {"label": "a", "value": "a"} in id_options
+
+
+def test_upload_error_names_row_and_column_and_confirm_stores(wine):
+    app, _, user_id = wine
+    *_, upload = _pages()
+    bad = b"id,a,b\nx1,1,2\nx2,oops,3\n"
+    good = b"id,a,b\nx1,1,2\nx2,2,3\nx3,4,1\n"
+    with app.app_context():
+        report, rows, _, ok = upload.preview(_data_url(bad), "bad.csv", upload.intake_options(None, None, None,
+                                                                                               None, None))
+        url, message = upload.store(_data_url(good), "good.csv", upload.intake_options(None, None, None, None,
+                                                                                        None), user_id)
+    assert not ok and rows is None and "row" in str(report) and "'oops'" in str(report)
+    assert url.startswith("/datasets/") and "good.csv" in message
+
+
+def test_upload_roles_from_the_grid_and_bad_transport(app):
+    *_, upload = _pages()
+    options = upload.intake_options("id", " Sheet1 ", "sqrt2", "missing",
+                                    [{"column": "x", "role": "ignore"}, {"column": "y", "role": "bogus"}])
+    assert options == {"id_column": "id", "sheet": "Sheet1", "roles": {"x": "ignore"}, "below_limit": "sqrt2",
+                       "bad_cells": "missing"}
+    with pytest.raises(InputError, match="unreadable"):
+        upload.decode_upload("not a data url")
