@@ -248,36 +248,7 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
     def where(col: str) -> str:
         return f"column {col!r} ({grid.letters[col]})"
 
-    # Decide roles; text columns are kept as raw cells until the end.
-    decided: dict[str, str] = {}
-    numbers: dict[str, np.ndarray] = {}
-    parses = {}
-    block = {}
-    if len(frame.columns) > WIDE:
-        # Wide tables: take the numeric columns in one go; a pandas Series per column costs more than the parse.
-        typed = [c for c, dt in frame.dtypes.items() if _is_numeric_dtype(dt) and c not in roles]
-        block = dict(zip(typed, frame[typed].to_numpy(dtype=np.float64).T))
-    for col in frame.columns:
-        if col in block:
-            decided[col], parses[col], numbers[col] = "variable", None, block[col]
-            continue
-        series = frame[col]
-        if col in roles:
-            decided[col] = roles[col]
-        elif _is_numeric(series):
-            decided[col] = "variable"
-        elif _looks_like_numbers(series, grid.decimal):
-            decided[col] = "variable"
-        else:
-            decided[col] = "metadata"
-        if decided[col] == "variable":
-            if _is_numeric(series):
-                values = series.to_numpy(dtype=np.float64)
-                parses[col] = None
-            else:
-                parses[col] = parse_column(series.to_numpy(dtype=object), grid.decimal, below_limit)
-                values = parses[col].values
-            numbers[col] = values
+    decided, numbers, parses = _decide_roles(frame, roles, grid.decimal, below_limit)
     # Fully blank rows and columns (trailing separators, blank lines) vanish silently.
     blank_row = frame.isna().all(axis=1).to_numpy()
     texts: dict[str, np.ndarray] = {}  # metadata and id columns as clean text, None where missing
@@ -286,6 +257,7 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
         if col not in texts:
             texts[col] = _text(frame[col])
         return texts[col]
+
     for col in list(decided):
         if decided[col] == "variable" and np.isnan(numbers[col][~blank_row]).all() and col not in roles:
             empty_text = parses[col] is None or not (parses[col].bare_limit or parses[col].bad)
@@ -341,7 +313,8 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
         if parse is not None:
             _count_parse(report, col, where(col), parse, below_limit)
     if problems and bad_cells == "error":
-        problems.sort()
+        position = {c: j for j, c in enumerate(frame.columns)}
+        problems.sort(key=lambda p: (p[0], position[p[1]]))
         listed = "; ".join(
             f"row {r}, {where(c)}: {v!r} ({why})" for r, c, v, why in problems[:MAX_LISTED]
         )
@@ -391,6 +364,42 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
     report.n_samples, report.n_variables = data.shape
     table = Table(data=data, metadata=metadata, units=dict(report.units), id_column=id_col)
     return table, report
+
+
+def _decide_roles(frame: pd.DataFrame, roles: dict, decimal: str, below_limit: str):
+    """Role of every column, and the numbers of the variables.
+
+    Returns (roles decided, {variable: float64 values}, {variable: ColumnParse or None
+    when pandas already typed the column}). Text columns stay raw until the end.
+    """
+    decided: dict[str, str] = {}
+    numbers: dict[str, np.ndarray] = {}
+    parses: dict = {}
+    block = {}
+    if len(frame.columns) > WIDE:
+        # Wide tables: take the numeric columns in one go; a pandas Series per column costs more than the parse.
+        typed = [c for c, dt in frame.dtypes.items() if _is_numeric_dtype(dt) and c not in roles]
+        block = dict(zip(typed, frame[typed].to_numpy(dtype=np.float64).T))
+    for col in frame.columns:
+        if col in block:
+            decided[col], parses[col], numbers[col] = "variable", None, block[col]
+            continue
+        series = frame[col]
+        if col in roles:
+            decided[col] = roles[col]
+        elif _is_numeric(series) or _looks_like_numbers(series, decimal):
+            decided[col] = "variable"
+        else:
+            decided[col] = "metadata"
+        if decided[col] != "variable":
+            continue
+        if _is_numeric(series):
+            parses[col] = None
+            numbers[col] = series.to_numpy(dtype=np.float64)
+        else:
+            parses[col] = parse_column(series.to_numpy(dtype=object), decimal, below_limit)
+            numbers[col] = parses[col].values
+    return decided, numbers, parses
 
 
 def _is_numeric_dtype(dtype) -> bool:
