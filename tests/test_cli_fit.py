@@ -287,3 +287,30 @@ def test_console_command_end_to_end(tmp_path, wine_csv):
     assert bad.returncode == 2
     assert bad.stderr == "latentdesk: error: unknown sample id(s) to exclude: ghost\n"
     assert not (tmp_path / "bad").exists()
+
+
+def test_missing_cells_fit_and_apply(tmp_path, wine_frame, capsys):
+    frame = wine_frame.copy()
+    rng = np.random.default_rng(4)
+    variables = list(load_wine().feature_names)
+    holes = rng.random((len(frame), len(variables))) < 0.05
+    values = frame[variables].to_numpy(dtype=float, copy=True)
+    values[holes] = np.nan
+    frame[variables] = values
+    path = tmp_path / "holes.csv"
+    frame.to_csv(path, index=False)
+    fitted, applied = tmp_path / "fit", tmp_path / "apply"
+    code, _, stderr = _run(["fit", path, "--id-column", "lot", "--group-column", "cultivar", "--out", fitted], capsys)
+    assert code == 0, stderr
+    summary = json.loads((fitted / "summary.json").read_text(encoding="utf-8"))
+    assert summary["n_missing"] == int(holes.sum()) and summary["solver"].startswith("imputation")
+    assert all(row["cv_explained"] is not None for row in summary["rank"]["table"][:2])
+    assert _run(["apply", fitted / "model.json", path, "--out", applied], capsys)[0] == 0
+    samples = pd.read_csv(applied / "samples.csv")
+    scores = pd.read_csv(fitted / "scores.csv")
+    names = [f"PC{a + 1}" for a in range(summary["n_components"])]
+    complete = ~holes.any(axis=1)
+    # Complete rows get their training scores back; incomplete rows are scored by projection to the model plane
+    # (Nelson, Taylor & MacGregor 1996), so they are finite but need not equal the imputed training scores.
+    np.testing.assert_allclose(samples.loc[complete, names], scores.loc[complete, names], rtol=1e-9, atol=1e-9)
+    assert np.isfinite(samples[names + ["t2", "spe"]].to_numpy()).all()
