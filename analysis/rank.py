@@ -189,7 +189,7 @@ def rank_table(Z, scaling, max_components=MAX_COMPONENTS, random_state=0) -> Ran
     Z = np.asarray(Z, dtype=np.float64)
     n, p = Z.shape
     notes: list[str] = []
-    imputed = mean_imputed(Z)
+    imputed = mean_imputed(Z) if np.isnan(Z).any() else Z
     eigenvalues = data_eigenvalues(imputed, max_components)
     total = float(np.einsum("ij,ij->", imputed, imputed)) / max(n - 1, 1)
     del imputed

@@ -1,5 +1,6 @@
 """Tests for analysis.rank: broken stick, parallel analysis, ekf cross-validation, recommendation."""
 
+import json
 from fractions import Fraction
 
 import numpy as np
@@ -211,6 +212,7 @@ def test_too_few_samples_falls_back_to_parallel_analysis():
     assert result.table["cv_explained"].isna().all()
     assert "Horn 1965" in result.rule and "at least 4 samples" in result.rule
     assert result.to_dict()["table"][0]["cv_explained"] is None
+    json.dumps(result.to_dict(), allow_nan=False)  # standard JSON (RFC 8259 has no NaN)
 
 
 def test_mean_imputed_fills_column_means():
