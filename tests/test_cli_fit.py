@@ -314,3 +314,11 @@ def test_missing_cells_fit_and_apply(tmp_path, wine_frame, capsys):
     # (Nelson, Taylor & MacGregor 1996), so they are finite but need not equal the imputed training scores.
     np.testing.assert_allclose(samples.loc[complete, names], scores.loc[complete, names], rtol=1e-9, atol=1e-9)
     assert np.isfinite(samples[names + ["t2", "spe"]].to_numpy()).all()
+
+
+def test_output_folder_that_is_a_file_is_bad_input(tmp_path, wine_csv, capsys):
+    blocker = tmp_path / "taken"
+    blocker.write_text("not a folder", encoding="utf-8")
+    code, _, stderr = _run(["fit", wine_csv, "--components", "2", "--out", blocker], capsys)
+    assert code == 2 and stderr == f"latentdesk: error: output folder {blocker} exists and is not a folder\n"
+    assert blocker.read_text(encoding="utf-8") == "not a folder"

@@ -309,11 +309,14 @@ def fit_to_folder(
     }
 
     _make_folder(folder)
-    write_csv(scores, folder / SCORES_FILE)
-    write_csv(loadings, folder / LOADINGS_FILE)
-    write_csv(samples, folder / SAMPLES_FILE)
-    save_model(model, folder / MODEL_FILE, fingerprint=fingerprint, extra=extra)
-    _write_json(summary, folder / SUMMARY_FILE)
+    try:
+        write_csv(scores, folder / SCORES_FILE)
+        write_csv(loadings, folder / LOADINGS_FILE)
+        write_csv(samples, folder / SAMPLES_FILE)
+        save_model(model, folder / MODEL_FILE, fingerprint=fingerprint, extra=extra)
+        _write_json(summary, folder / SUMMARY_FILE)
+    except OSError as exc:
+        raise InputError(f"cannot write to output folder {folder}: {exc.strerror or exc}") from None
     return summary
 
 
@@ -367,7 +370,10 @@ def apply_to_folder(
         [pd.DataFrame(scores, columns=_component_names(fitted.n_components_)), statistics],
     )
     _make_folder(folder)
-    write_csv(samples, folder / SAMPLES_FILE)
+    try:
+        write_csv(samples, folder / SAMPLES_FILE)
+    except OSError as exc:
+        raise InputError(f"cannot write to output folder {folder}: {exc.strerror or exc}") from None
     return {
         "n_samples": table.n_samples,
         "n_variables": len(needed),
