@@ -284,6 +284,12 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
         _check_ids(ids, rows, id_col, where(id_col), filename)
     else:
         ids = np.array([f"row {r}" for r in rows], dtype=object)
+        first = frame.columns[0]
+        if decided[first] == "variable" and _ID_NAME.match(first) and first not in roles:
+            report.warnings.append(
+                f"{where(first)} is named like sample ids but holds numbers, so it is analysed as a variable; "
+                "name it as the id column if it holds ids."
+            )
     report.id_column = id_col
     report.roles = dict(decided)
 

@@ -493,3 +493,65 @@ def test_wide_file_reads_and_counts_columns_against_the_limit():
     np.testing.assert_array_equal(table.values, values)
     with pytest.raises(IntakeError, match=rf"row 1 has {p + 1} columns, more than the limit of {p}"):
         read_table(raw, "wide.csv", max_columns=p)
+
+
+def _rewrite_member(raw: bytes, member: str, edit) -> bytes:
+    import zipfile
+
+    src = zipfile.ZipFile(io.BytesIO(raw))
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
+        for info in src.infolist():
+            data = src.read(info.filename)
+            dst.writestr(info.filename, edit(data) if info.filename == member else data)
+    return out.getvalue()
+
+
+def _small_book() -> bytes:
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    for row in (["id", "a", "b"], ["x", 1, 2], ["y", 3, 4], ["z", 5, "=B4*100"]):
+        ws.append(row)
+    buf = io.BytesIO()
+    wb.save(buf)
+    return buf.getvalue()
+
+
+def test_xlsx_formula_gives_its_saved_value_never_an_evaluation():
+    # A spreadsheet saves a formula with its last value: <f>B4*100</f><v>7</v>. Intake reads 7, not 500.
+    raw = _rewrite_member(_small_book(), "xl/worksheets/sheet1.xml", lambda x: x.replace(b"<v />", b"<v>7</v>"))
+    table, _ = read_table(raw, "cached.xlsx")
+    np.testing.assert_array_equal(table.values, [[1, 2], [3, 4], [5, 7]])
+
+
+def test_xlsx_with_entity_expansion_is_refused_not_expanded():
+    # "Billion laughs": nested entities; expat >= 2.4 refuses the amplification (libexpat changelog 2.4.0).
+    lol = b'<?xml version="1.0"?><!DOCTYPE lolz [<!ENTITY lol "lol">' + b"".join(
+        b'<!ENTITY lol%d "%s">' % (k, (b"&lol%d;" % (k - 1) if k > 1 else b"&lol;") * 10) for k in range(1, 10)
+    ) + b"]>"
+
+    def inject(xml: bytes) -> bytes:
+        body = xml.split(b"?>", 1)[1] if xml.startswith(b"<?xml") else xml
+        return lol + body.replace(b"<v>1</v>", b"<v>&lol9;</v>")
+
+    raw = _rewrite_member(_small_book(), "xl/worksheets/sheet1.xml", inject)
+    with pytest.raises(IntakeError, match=r"^lol\.xlsx: (a sheet of this XLSX file is damaged|is a damaged XLSX file)"):
+        read_table(raw, "lol.xlsx")
+
+
+def test_numeric_first_column_named_like_ids_is_a_variable_with_a_warning():
+    raw = b"Sample No,a,b\n1,1.5,2\n2,2.5,3\n3,4,6\n"
+    table, report = read_table(raw, "n.csv")
+    assert table.variables == ["Sample No", "a", "b"] and table.id_column is None
+    assert any("'Sample No' (A) is named like sample ids" in w for w in report.warnings)
+    table, report = read_table(raw, "n.csv", id_column="Sample No")
+    assert table.sample_ids == ["1", "2", "3"] and not report.warnings
+
+
+def test_read_path_refuses_missing_file_and_oversize_before_reading(tmp_path):
+    with pytest.raises(IntakeError, match=r"^nothing\.csv: cannot be opened"):
+        read_path(tmp_path / "nothing.csv")
+    path = tmp_path / "big.csv"
+    path.write_bytes(b"id,a,b\n" + b"x,1,2\n" * 100)
+    with pytest.raises(IntakeError, match=r"^big\.csv: the file is .* over the limit of .*\(100 bytes\)"):
+        read_path(path, max_bytes=100)
