@@ -299,3 +299,39 @@ def test_cli_log_verify_without_a_database_is_bad_input(tmp_path, monkeypatch, c
     monkeypatch.delenv("LATENTDESK_DATABASE_URL", raising=False)
     assert main(["log", "verify"]) == 2
     assert "no database" in capsys.readouterr().err
+
+
+def test_database_freezes_signatures_and_decided_proposals(stored_chain):
+    """Sign-offs are append-only and a decided proposal cannot change, whatever the app does."""
+    from webapp.store import review as store
+
+    with stored_chain.app_context(), session_scope() as s:
+        user_id = accounts.get_user_by_name(s, "ana").id
+        reviewer = accounts.add_user(s, "rita", "reviewer", "x", "Rita Reviewer")
+        from webapp.store import datasets
+
+        dataset = datasets.insert_dataset(
+            s, sha256="a" * 64, name="d.csv", stored_path="aa/none", size_bytes=0, id_column=None, sheet=None,
+            intake_options={}, n_samples=0, n_variables=0, variables=[], metadata_columns=[], warnings=[],
+            report={}, uploaded_by=user_id,
+        )
+        proposal = store.insert_proposal(
+            s, dataset_id=dataset.id, action="exclude", samples=["S1"], reason_category="other", reason="r",
+            proposed_by=user_id, created_at=audit.now_utc(), state="proposed", comparison=None,
+        )
+        assert store.close_proposal(s, proposal.id, "approved", audit.now_utc())
+        store.insert_sign_off(s, proposal_id=proposal.id, signer_id=reviewer.id, printed_name="Rita Reviewer",
+                              meaning="approved", comment="", signed_at=audit.now_utc())
+        proposal_id = proposal.id
+    for statement in (
+        f"UPDATE exclusion_proposals SET state = 'proposed' WHERE id = {proposal_id}",
+        f"DELETE FROM exclusion_proposals WHERE id = {proposal_id}",
+        "UPDATE sign_offs SET meaning = 'rejected'",
+        "DELETE FROM sign_offs",
+    ):
+        with pytest.raises(DBAPIError):
+            with get_engine(stored_chain).begin() as conn:
+                conn.exec_driver_sql(statement)
+    with stored_chain.app_context(), session_scope() as s:
+        assert not store.close_proposal(s, proposal_id, "rejected", audit.now_utc())  # the app's own guard
+        assert store.get_proposal(s, proposal_id).state == "approved"
