@@ -50,3 +50,18 @@ def test_worker_entry_point_needs_a_redis_url(monkeypatch):
     monkeypatch.delenv("LATENTDESK_REDIS_URL", raising=False)
     with pytest.raises(RuntimeError, match="LATENTDESK_REDIS_URL"):
         jobs.celery_app  # noqa: B018 - attribute access runs the worker factory
+
+
+def test_worker_entry_point_registers_the_background_callbacks(tmp_path, monkeypatch):
+    pytest.importorskip("celery", reason="the optional 'celery' extra is not installed")
+    pytest.importorskip("redis", reason="the optional 'celery' extra is not installed")
+    jobs.make_celery.cache_clear()
+    monkeypatch.setenv("LATENTDESK_REDIS_URL", "redis://127.0.0.1:1/0")
+    monkeypatch.setenv("LATENTDESK_SECRET_KEY", "worker-test")
+    monkeypatch.setenv("LATENTDESK_HOME", str(tmp_path))
+    worker_app = jobs.celery_app
+    # Dash names each background callback's task "background_callback_<hash>" (dash
+    # background_callback/managers/celery_manager.py); the worker must know them.
+    assert any(name.startswith("background_callback_") for name in worker_app.tasks)
+    assert worker_app is jobs.make_celery("redis://127.0.0.1:1/0")
+    jobs.make_celery.cache_clear()
