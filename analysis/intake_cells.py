@@ -145,16 +145,18 @@ def parse_column(cells, decimal: str, below_limit: str) -> ColumnParse:
     """
     cells = np.asarray(cells, dtype=object)
     codes, uniques = _factorize(cells)
-    parsed = [parse_cell(u, decimal) for u in uniques]
-    kinds = np.array([p[0] for p in parsed], dtype=np.int8)
-    vals = np.array([p[1] for p in parsed], dtype=np.float64)
+    vals = _plain_numbers(uniques, decimal)
+    kinds = np.full(len(uniques), NUMBER, dtype=np.int8)
+    alternatives = {}
+    for i in np.flatnonzero(np.isnan(vals)):  # only what the vectorised pass could not read
+        kinds[i], vals[i], alt = parse_cell(uniques[i], decimal)
+        if alt is not None:
+            alternatives[i] = alt
     counts = np.bincount(codes, minlength=len(uniques))
-    uses_other_mark = bool(((kinds == OTHER_MARK) & (counts > 0)).any())
-    if uses_other_mark:
-        for i, p in enumerate(parsed):
-            if p[2] is not None:
-                vals[i] = p[2]
-                kinds[i] = OTHER_MARK if p[0] == AMBIGUOUS else kinds[i]
+    if ((kinds == OTHER_MARK) & (counts > 0)).any():
+        for i, alt in alternatives.items():
+            vals[i] = alt
+            kinds[i] = OTHER_MARK if kinds[i] == AMBIGUOUS else kinds[i]
     factor = {"half": 0.5, "sqrt2": 1.0 / math.sqrt(2.0), "missing": math.nan}[below_limit]
     below_mask = kinds == BELOW
     vals[below_mask] = vals[below_mask] * factor
@@ -177,6 +179,21 @@ def parse_column(cells, decimal: str, below_limit: str) -> ColumnParse:
             reason = "infinite value" if kinds[u] == INFINITE else "not a number"
             out.bad.append((int(pos), str(uniques[u]), reason))
     return out
+
+
+def _plain_numbers(uniques: list, decimal: str) -> np.ndarray:
+    """Finite plain numbers read in one vectorised pass; NaN for everything else.
+
+    Text holding the other decimal mark is left out here (it may be a thousands
+    grouping), as are infinities, so :func:`parse_cell` decides those.
+    """
+    other = "." if decimal == "," else ","
+    text = pd.Series([u if isinstance(u, str) else None for u in uniques], dtype=object)
+    plain = text.where(~text.str.contains(other, regex=False, na=True))
+    if decimal == ",":
+        plain = plain.str.replace(",", ".", regex=False)
+    values = pd.to_numeric(plain, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    return np.where(np.isfinite(values), values, np.nan)
 
 
 def _factorize(cells: np.ndarray):
