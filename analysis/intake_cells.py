@@ -192,8 +192,14 @@ def _plain_numbers(uniques: list, decimal: str) -> np.ndarray:
     plain = text.where(~text.str.contains(other, regex=False, na=True))
     if decimal == ",":
         plain = plain.str.replace(",", ".", regex=False)
-    values = pd.to_numeric(plain, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
-    return np.where(np.isfinite(values), values, np.nan)
+    values = pd.to_numeric(plain, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan, copy=True)
+    readable = np.isfinite(values)
+    try:
+        # to_numeric only decides what is readable; numpy converts as float() does (correctly rounded).
+        values[readable] = np.asarray(plain[readable].tolist(), dtype=np.float64)
+    except ValueError:
+        return np.full(len(uniques), np.nan)  # something float() refuses: let parse_cell read every cell
+    return np.where(readable, values, np.nan)
 
 
 def _factorize(cells: np.ndarray):

@@ -202,3 +202,31 @@ def test_round_trip_of_written_numbers(data, n, p, dialect, encoding, newline, q
     assert table.variables == header[1:]
     np.testing.assert_allclose(table.values, values, rtol=0, atol=1e-9 * scale)
     assert report.delimiter == delimiter
+
+
+NUMBER_TEXT = st.one_of(
+    st.floats(allow_nan=True, allow_infinity=True).map(repr),
+    st.floats(-1e6, 1e6).map(lambda x: repr(x).replace(".", ",")),
+    st.integers(-10**6, 10**6).map(lambda i: f"{i:,}"),
+    st.integers(-10**6, 10**6).map(lambda i: f"{i:,}".replace(",", ".")),
+    st.from_regex(r"\A[ <>]{0,2}[-+]?[0-9]{0,4}[.,]?[0-9]{0,4}(e[-+]?[0-9]{1,3})?[ ]?\Z"),
+    CELL,
+)
+
+
+@FUZZ
+@given(cells=st.lists(NUMBER_TEXT, max_size=30), decimal=st.sampled_from([".", ","]))
+def test_vectorised_column_parse_agrees_with_cell_by_cell(cells, decimal):
+    # The fast pass must only ever agree with the cell-by-cell reader it shortcuts.
+    from analysis.intake_cells import BAD, BARE_LIMIT, BELOW, INFINITE, MISSING, OTHER_MARK, parse_cell, parse_column
+
+    out = parse_column(cells, decimal, "half")
+    parsed = [parse_cell(c, decimal) for c in cells]
+    mixed = any(kind == OTHER_MARK for kind, _, _ in parsed)
+    for got, (kind, value, alternative) in zip(out.values, parsed):
+        expected = alternative if (mixed and alternative is not None) else value
+        if kind == BELOW:
+            expected *= 0.5
+        if kind in (BAD, INFINITE, BARE_LIMIT, MISSING):
+            expected = np.nan
+        assert (np.isnan(got) and np.isnan(expected)) or got == expected, (cells, got, expected)
