@@ -178,11 +178,14 @@ def read_table(
         raise IntakeError(_too_big(filename, len(raw), max_bytes))
     if not raw or raw.isspace():
         raise IntakeError(f"{filename}: the file is empty.")
+    sheet = sheet or None  # forms send "" for "not given"
+    id_column = id_column or None
     roles = dict(roles or {})
     if id_column is not None:
         roles[str(id_column)] = "id"
     for g in [group_columns] if isinstance(group_columns, str) else group_columns or ():
-        roles.setdefault(str(g), "metadata")
+        if g:
+            roles.setdefault(str(g), "metadata")
     ids = [c for c, r in roles.items() if r == "id"]
     if len(ids) > 1:
         raise IntakeError(f"{filename}: more than one id column requested: {', '.join(map(repr, ids))}.")

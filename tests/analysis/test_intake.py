@@ -555,3 +555,9 @@ def test_read_path_refuses_missing_file_and_oversize_before_reading(tmp_path):
     path.write_bytes(b"id,a,b\n" + b"x,1,2\n" * 100)
     with pytest.raises(IntakeError, match=r"^big\.csv: the file is .* over the limit of .*\(100 bytes\)"):
         read_path(path, max_bytes=100)
+
+
+def test_empty_option_strings_mean_not_given():
+    # Web forms send "" for an empty field.
+    table, report = read_table(b"id,a,b\nx,1,2\ny,2,3\nz,4,6\n", "o.csv", sheet="", id_column="", group_columns=[""])
+    assert report.roles == {"id": "id", "a": "variable", "b": "variable"}
