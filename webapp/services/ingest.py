@@ -15,8 +15,9 @@ from __future__ import annotations
 import hashlib
 import json
 import time
+from contextlib import contextmanager
 from pathlib import Path, PurePosixPath, PureWindowsPath
-from typing import Any
+from typing import Any, Iterator
 
 import diskcache
 
@@ -106,12 +107,14 @@ def blob_path(sha256: str) -> Path:
     return files.absolute_path(home_folder(), files.relative_path(sha256))
 
 
-def _lock(sha256: str) -> diskcache.Lock:
+@contextmanager
+def _upload_lock(sha256: str) -> Iterator[None]:
     # Serialises uploads of the same bytes across gunicorn workers on this host,
     # so the "already stored?" check, the file write and the insert (or the
     # clean-up after a failed insert) of one upload never interleave with another's.
-    cache = diskcache.Cache(str(cache_folder() / "locks"))
-    return diskcache.Lock(cache, f"ingest:{sha256}", expire=LOCK_SECONDS)
+    with diskcache.Cache(str(cache_folder() / "locks")) as cache:
+        with diskcache.Lock(cache, f"ingest:{sha256}", expire=LOCK_SECONDS):
+            yield
 
 
 def ingest_upload(
@@ -142,7 +145,7 @@ def ingest_upload(
         below_limit=below_limit,
         bad_cells=bad_cells,
     )
-    with _lock(sha256):
+    with _upload_lock(sha256):
         with session_scope() as session:
             existing = store.find_dataset(session, sha256, opts)
             if existing is not None:
@@ -233,13 +236,19 @@ def load_table(dataset_id: int) -> Table:
     """
     info = dataset_info(dataset_id)
     key = options_key(info["sha256"], info["intake_options"])
-    cache = diskcache.Cache(str(cache_folder() / TABLE_CACHE_FOLDER))
-    try:
-        table = cache.get(key)
-    except Exception:  # noqa: BLE001 - unreadable cache entry: parse again
-        table = None
-    if isinstance(table, Table):
-        return table
+    with diskcache.Cache(str(cache_folder() / TABLE_CACHE_FOLDER)) as cache:
+        try:
+            table = cache.get(key)
+        except Exception:  # noqa: BLE001 - unreadable cache entry: parse again
+            table = None
+        if isinstance(table, Table):
+            return table
+        table = _parse_stored(dataset_id, info)
+        cache.set(key, table)
+    return table
+
+
+def _parse_stored(dataset_id: int, info: dict[str, Any]) -> Table:
     raw = files.read_bytes(home_folder(), info["stored_path"])
     if hashlib.sha256(raw).hexdigest() != info["sha256"]:
         raise RuntimeError(f"stored file for dataset {dataset_id} does not match its SHA-256")
@@ -247,5 +256,4 @@ def load_table(dataset_id: int) -> Table:
         table, _ = _read(raw, info["name"], info["intake_options"])
     except InputError as exc:  # accepted once, so this means the intake rules changed
         raise RuntimeError(f"dataset {dataset_id} can no longer be read: {exc}") from exc
-    cache.set(key, table)
     return table

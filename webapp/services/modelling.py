@@ -205,6 +205,33 @@ def _record(dataset: Mapping[str, Any], fingerprint: str, settings: dict, summar
             return store.model_by_fingerprint(session, fingerprint).id
 
 
+def _cached_or_fitted(cache: diskcache.Cache, dataset: Mapping[str, Any], settings: dict[str, Any]):
+    """(cache entry, fingerprint, cache_hit): from the cache, else fitted once and stored."""
+    fingerprint = None
+    if settings["components"] == "auto":
+        chosen = cache.get(_auto_key(dataset, settings))
+        if chosen is not None:
+            fingerprint = fingerprint_for(dataset, settings, chosen)
+    else:
+        fingerprint = fingerprint_for(dataset, settings, settings["components"])
+    entry = _cached(cache, fingerprint) if fingerprint else None
+    if entry is not None:
+        return entry, fingerprint, True
+    lock_name = fingerprint or _auto_key(dataset, settings)
+    # One fit per fingerprint across workers: the others wait, then hit the cache.
+    with diskcache.Lock(cache, f"lock:{lock_name}", expire=FIT_LOCK_SECONDS):
+        entry = _cached(cache, fingerprint) if fingerprint else None
+        if entry is not None:
+            return entry, fingerprint, True
+        entry = _fit(dataset["id"], settings)
+        n_components = int(entry["model"].scores_.shape[1])
+        fingerprint = fingerprint_for(dataset, settings, n_components)
+        cache.set(fingerprint, entry)
+        if settings["components"] == "auto":
+            cache.set(_auto_key(dataset, settings), n_components)
+    return entry, fingerprint, False
+
+
 def get_model(
     dataset_id: int, settings: Mapping[str, Any], *, user_id: int | None = None
 ) -> tuple[PCAModel, dict[str, Any]]:
@@ -232,32 +259,8 @@ def get_model(
     dataset = ingest.dataset_info(dataset_id)
     settings, exclusion_note = exclusion_settings(dataset_id, settings)
     settings = normalise_settings(settings, dataset["variables"])
-    cache = _cache()
-
-    fingerprint = None
-    if settings["components"] == "auto":
-        chosen = cache.get(_auto_key(dataset, settings))
-        if chosen is not None:
-            fingerprint = fingerprint_for(dataset, settings, chosen)
-    else:
-        fingerprint = fingerprint_for(dataset, settings, settings["components"])
-
-    entry = _cached(cache, fingerprint) if fingerprint else None
-    cache_hit = entry is not None
-    if entry is None:
-        lock_name = fingerprint or _auto_key(dataset, settings)
-        # One fit per fingerprint across workers: the others wait, then hit the cache.
-        with diskcache.Lock(cache, f"lock:{lock_name}", expire=FIT_LOCK_SECONDS):
-            entry = _cached(cache, fingerprint) if fingerprint else None
-            cache_hit = entry is not None
-            if entry is None:
-                entry = _fit(dataset_id, settings)
-                n_components = int(entry["model"].scores_.shape[1])
-                fingerprint = fingerprint_for(dataset, settings, n_components)
-                cache.set(fingerprint, entry)
-                if settings["components"] == "auto":
-                    cache.set(_auto_key(dataset, settings), n_components)
-
+    with _cache() as cache:
+        entry, fingerprint, cache_hit = _cached_or_fitted(cache, dataset, settings)
     model = entry["model"]
     summary = describe(model, settings["confidence"])
     model_id = _record(dataset, fingerprint, settings, {**summary, "rank": entry["rank"]}, user_id)
