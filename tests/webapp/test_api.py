@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import csv
 import io
+import os
 from urllib.parse import quote
 
 import numpy as np
@@ -314,3 +315,23 @@ def test_group_column_keeps_a_numeric_column_as_metadata(client, analyst):
     response = _upload(client, analyst, group_column="magnesium")
     body = response.get_json()["dataset"]
     assert "magnesium" in body["metadata_columns"] and "magnesium" not in body["variables"]
+
+
+@pytest.mark.skipif(not os.path.isdir("/proc/self/fd"), reason="needs Linux /proc to count open files")
+def test_requests_do_not_leak_open_files(client, analyst, dataset, model):
+    """Caches and locks are opened per request and must be closed again (common practice)."""
+
+    def open_files() -> int:
+        return len(os.listdir("/proc/self/fd"))
+
+    def round_trip():
+        _upload(client, analyst)
+        client.post(f"/api/v1/datasets/{dataset['id']}/models", json={"components": 2}, headers=analyst)
+        client.get(f"/api/v1/models/{model['id']}/samples", headers=analyst)
+
+    for _ in range(5):  # warm up connection pools
+        round_trip()
+    before = open_files()
+    for _ in range(40):
+        round_trip()
+    assert open_files() - before <= 3
