@@ -44,13 +44,13 @@ from scipy import linalg
 from analysis import diagnostics
 from analysis.errors import InputError
 from analysis.preprocessing import (
-    CHUNK_ROWS,
     SCALINGS,
     Preprocessor,
     as_matrix,
+    block_rows,
     check_log10,
-    has_missing,
     scale_block,
+    validated,
 )
 
 SOLVERS = ("auto", "xtx", "xxt", "svd")
@@ -127,12 +127,12 @@ class PCAModel:
         if isinstance(a, bool) or not isinstance(a, (int, np.integer)) or a < 1:
             raise InputError(f"n_components={a!r} must be a whole number of at least 1")
         a = int(a)
-        values, ids, names = as_matrix(X, sample_ids, variable_names)
+        values, ids, names, complete = validated(X, sample_ids, variable_names)
         n = values.shape[0]
         if n < 2:
             raise InputError(f"at least 2 samples are needed, got {n}")
 
-        missing = np.isnan(values) if has_missing(values) else None
+        missing = None if complete else np.isnan(values)
         n_missing = 0 if missing is None else int(missing.sum())
         n, p = values.shape
         solver = self.solver if self.solver != "auto" else ("xtx" if n >= p else "xxt")
@@ -254,8 +254,9 @@ class PCAModel:
         scores = np.empty((n, loadings.shape[1]))
         spe = np.empty(n)
         log_mask = self._log_mask()
-        for start in range(0, n, CHUNK_ROWS):
-            block = scale_block(values[start : start + CHUNK_ROWS], log_mask, self.mean_, self.scale_)
+        step = block_rows(values.shape[1])
+        for start in range(0, n, step):
+            block = scale_block(values[start : start + step], log_mask, self.mean_, self.scale_)
             t = block @ loadings
             total = np.einsum("ij,ij->i", block, block)
             q = total - np.einsum("ia,ia->i", t, t)
@@ -349,8 +350,9 @@ class PCAModel:
         spe = np.zeros(m)
         full_span = self.n_components_ == len(self.variable_names_)
         check_log10(values, log_mask, ids, self.variable_names_)
-        for start in range(0, m, CHUNK_ROWS):
-            stop = start + CHUNK_ROWS
+        step = block_rows(values.shape[1])
+        for start in range(0, m, step):
+            stop = start + step
             z = scale_block(values[start:stop], log_mask, self.mean_, self.scale_)
             t = self._scores_of(z)
             scores[start:stop] = t
@@ -450,9 +452,10 @@ class _Decomposition:
 def _decompose_xtx_blocks(values, log_mask, mean, scale) -> _Decomposition:
     """Eigendecomposition of Z'Z accumulated over row blocks of the preprocessed data."""
     n, p = values.shape
+    step = block_rows(p)
     gram = np.zeros((p, p))
-    for start in range(0, n, CHUNK_ROWS):
-        block = scale_block(values[start : start + CHUNK_ROWS], log_mask, mean, scale)
+    for start in range(0, n, step):
+        block = scale_block(values[start : start + step], log_mask, mean, scale)
         gram += block.T @ block
     return _from_gram_features(gram, n)
 

@@ -23,10 +23,6 @@ from analysis.errors import InputError
 
 SCALINGS = ("none", "center", "autoscale", "pareto")
 
-# Rows handled at once when a full preprocessed copy of tall data is not needed.
-CHUNK_ROWS = 8192
-
-
 def default_variable_names(p: int) -> list[str]:
     """Names used when the data come without column names: x1, x2, ..."""
     return [f"x{j + 1}" for j in range(p)]
@@ -43,9 +39,15 @@ def row_label(sample_ids, i: int) -> str:
 
 
 def as_matrix(X, sample_ids=None, variable_names=None, default_ids=True):
-    """Validate input and return (float64 matrix, sample ids, variable names).
+    """Validate input and return (float64 matrix, sample ids, variable names); see ``validated``."""
+    values, sample_ids, variable_names, _ = validated(X, sample_ids, variable_names, default_ids)
+    return values, sample_ids, variable_names
 
-    ``X`` is an ndarray or a DataFrame (index gives the sample ids and columns
+
+def validated(X, sample_ids=None, variable_names=None, default_ids=True):
+    """Validate input: (float64 matrix, sample ids, variable names, complete).
+
+    ``complete`` is True when no value is missing. ``X`` is an ndarray or a DataFrame (index gives the sample ids and columns
     the variable names unless given explicitly). NaN marks a missing value;
     infinite or non-numeric values are an InputError naming row and column.
     With ``default_ids=False`` an ndarray without ids gets None instead of a
@@ -82,12 +84,15 @@ def as_matrix(X, sample_ids=None, variable_names=None, default_ids=True):
         dup = sorted({v for v in variable_names if variable_names.count(v) > 1})
         raise InputError(f"duplicate variable name(s): {', '.join(dup[:10])}")
     # A finite total means every value is finite (fast path: no n x p temporary).
-    if not np.isfinite(values.sum()) and np.isinf(values).any():
+    complete = bool(np.isfinite(values.sum()))
+    if not complete and np.isinf(values).any():
         i, j = np.argwhere(np.isinf(values))[0]
         raise InputError(
             f"infinite value {values[i, j]} in variable {variable_names[j]!r}, sample {row_label(sample_ids, i)!r}"
         )
-    return values, sample_ids, variable_names
+    if not complete:
+        complete = not np.isnan(values).any()  # a finite-valued sum can still overflow
+    return values, sample_ids, variable_names, complete
 
 
 def check_log10(values: np.ndarray, log_mask: np.ndarray, sample_ids, variable_names) -> None:
@@ -199,39 +204,77 @@ def has_missing(values: np.ndarray) -> bool:
     return not np.isfinite(values.sum()) and bool(np.isnan(values).any())
 
 
+def block_rows(p: int) -> int:
+    """Rows per block so that one block of p float64 values stays near 1 MB (cache-sized)."""
+    return max(256, (1 << 17) // max(p, 1))
+
+
 def column_moments(values: np.ndarray, log_mask: np.ndarray, gram: bool = False):
     """Mean, SD (ddof=1), number of observed values per column after log10, and
     (``gram=True``, complete data) the cross-product matrix of the centred columns.
 
-    Two passes (centre, then sum squares) in row blocks: accurate (no
-    sum-of-squares-minus-square-of-sums cancellation) and without a full-size copy.
+    Without ``gram``: two passes (centre, then sum squares) in row blocks.
+    With ``gram`` (the caller guarantees complete data): ``shifted_cross_product``.
+    Both avoid the cancellation of "sum of squares minus square of sums" and
+    make no full-size copy.
     """
     n, p = values.shape
+    step = block_rows(p)
+    if gram:
+        return shifted_cross_product(values, log_mask, step)
     missing = has_missing(values)
-    if missing and gram:
-        raise ValueError("the cross-product is only accumulated for complete data")
     n_obs = np.sum(~np.isnan(values), axis=0) if missing else np.full(p, n)
     total = np.zeros(p)
-    for start in range(0, n, CHUNK_ROWS):
-        block = apply_log10(values[start : start + CHUNK_ROWS], log_mask)
+    for start in range(0, n, step):
+        block = apply_log10(values[start : start + step], log_mask)
         total += np.nansum(block, axis=0) if missing else block.sum(axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = total / n_obs
-    cross = np.zeros((p, p)) if gram else None
     ss = np.zeros(p)
-    for start in range(0, n, CHUNK_ROWS):
-        block = apply_log10(values[start : start + CHUNK_ROWS], log_mask) - mean
-        if gram:
-            cross += block.T @ block
-            continue
+    for start in range(0, n, step):
+        block = apply_log10(values[start : start + step], log_mask) - mean
         if missing:
             block = np.where(np.isnan(block), 0.0, block)
         ss += np.einsum("ij,ij->j", block, block)
-    if gram:
-        ss = np.diag(cross).copy()
     with np.errstate(invalid="ignore", divide="ignore"):
         sd = np.sqrt(ss / (n_obs - 1))
-    return mean, sd, n_obs, cross
+    return mean, sd, n_obs, None
+
+
+def shifted_cross_product(values: np.ndarray, log_mask: np.ndarray, step: int):
+    """One pass over complete data: mean, SD and centred cross-product matrix.
+
+    The data are shifted by the mean c of the first block (the "shifted data"
+    algorithm recommended by Chan, Golub & LeVeque 1983, The American
+    Statistician 37, 242-247), and a column of ones appended, so one
+    cross-product per block gives both sum((x-c)(x-c)') and sum(x-c); then
+    centred = shifted - n d d' with d = mean - c. The correction cancels about
+    log10(n d^2 / centred sum of squares) digits, which is at most
+    log10(n / rows of the first block) because the first block is part of the
+    data; beyond 4 digits (only possible for tens of millions of rows) a
+    second, exactly centred pass is made instead.
+    """
+    n, p = values.shape
+    shift = apply_log10(values[:step], log_mask).mean(axis=0)
+    buffer = np.empty((min(step, n), p + 1))
+    buffer[:, p] = 1.0
+    augmented = np.zeros((p + 1, p + 1))
+    for start in range(0, n, step):
+        block = apply_log10(values[start : start + step], log_mask)
+        k = block.shape[0]
+        np.subtract(block, shift, out=buffer[:k, :p])
+        augmented += buffer[:k].T @ buffer[:k]
+    d = augmented[p, :p] / n
+    mean = shift + d
+    cross = augmented[:p, :p] - n * np.outer(d, d)
+    # Digits lost to cancellation ~ log10(shifted / centred sum of squares); accept up to 4.
+    if np.any(n * d * d > 1e4 * np.maximum(np.diag(cross), 0.0)):
+        cross = np.zeros((p, p))
+        for start in range(0, n, step):
+            block = apply_log10(values[start : start + step], log_mask) - mean
+            cross += block.T @ block
+    sd = np.sqrt(np.diag(cross) / (n - 1))
+    return mean, sd, np.full(p, n), cross
 
 
 def apply_log10(block: np.ndarray, log_mask: np.ndarray) -> np.ndarray:

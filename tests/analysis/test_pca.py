@@ -194,8 +194,9 @@ def test_learned_attributes_and_identities():
     assert m.n_samples_ == n and m.n_missing_ == 0 and m.n_components_ == 4
     assert m.sample_ids_ == [str(i + 1) for i in range(n)]
     assert m.variable_names_ == [f"x{j + 1}" for j in range(p)]
-    np.testing.assert_allclose(m.mean_, X.mean(0))
-    np.testing.assert_allclose(m.scale_, X.std(0, ddof=1))
+    # (the diabetes data ship centred: compare means on the scale of the SDs)
+    np.testing.assert_allclose(m.mean_, X.mean(0), rtol=0, atol=1e-12 * X.std(0).max())
+    np.testing.assert_allclose(m.scale_, X.std(0, ddof=1), rtol=1e-12)
 
 
 def test_transform_reconstruct_residuals_on_training_data():
@@ -283,3 +284,24 @@ def test_bad_data_are_input_errors():
         PCAModel(2).fit(pd.DataFrame({"a": ["x", "y", "z"], "b": [1.0, 2.0, 3.0]}))
     with pytest.raises(InputError, match="2-D"):
         PCAModel(1).fit(np.arange(5.0))
+
+
+@pytest.mark.parametrize("solver", SOLVERS)
+def test_large_offsets_and_drift_stay_exact(solver):
+    # Numerical care (Chan, Golub & LeVeque 1983, The American Statistician 37, 242-247): means far
+    # larger than the SDs, and a strong drift so the first rows are far from the rest, must not
+    # cost digits. Reference: LAPACK SVD of the data centred with numpy, to 1e-8.
+    rng = np.random.default_rng(21)
+    n, p = 3000, 6
+    X = rng.standard_normal((n, p)) @ rng.standard_normal((p, p))
+    X[:, 0] += 1e7  # offset 1e7 against an SD of about 1
+    X[:, 1] += np.linspace(0, 200, n)  # drift: early rows 100 SD away from the mean
+    Z = preprocess_reference(X, "autoscale")
+    s = linalg.svd(Z, compute_uv=False)
+    model = PCAModel(n_components=3, solver=solver).fit(X)
+    np.testing.assert_allclose(model.eigenvalues_, s**2 / (n - 1), rtol=1e-8)
+    np.testing.assert_allclose(model.scale_, X.std(0, ddof=1), rtol=1e-10)
+    # Values near 1e7 carry an absolute rounding of 1e-9 (one ulp, IEEE 754), so T2 (mean A = 3)
+    # can only agree to about 1e-8 absolute whatever the algorithm.
+    reference = PCAModel(n_components=3, solver="svd").fit(X).t2_
+    np.testing.assert_allclose(model.t2_, reference, rtol=1e-8, atol=3e-8)

@@ -101,3 +101,26 @@ def test_bad_scaling_and_names():
         as_matrix(X, variable_names=["a", "a", "b", "c"])
     with pytest.raises(InputError, match="3 sample ids given for 25 rows"):
         as_matrix(X, sample_ids=["1", "2", "3"])
+
+
+def test_shifted_cross_product_matches_centred_product():
+    # Chan, Golub & LeVeque (1983), The American Statistician 37, 242-247: the shifted-data
+    # algorithm gives the centred cross-product; compared with numpy on explicitly centred data.
+    # Tiny blocks (step 2) with a first block far from the rest force the exact second pass.
+    from analysis.preprocessing import shifted_cross_product
+
+    rng = np.random.default_rng(4)
+    data = rng.standard_normal((40_000, 3)) + 50.0
+    # With step 2 the first block sits 1000 units above the rest: n d^2 / centred SS = 2e4, so the
+    # correction would cancel more than 4 digits and the exact second pass must take over.
+    data[:2] += 1e3
+    mask = np.array([False, True, False])
+    logged = data.copy()
+    logged[:, 1] = np.log10(logged[:, 1])
+    centred = logged - logged.mean(0)
+    for step in (2, 512, 10_000):
+        mean, sd, n_obs, cross = shifted_cross_product(data, mask, step)
+        np.testing.assert_allclose(mean, logged.mean(0), rtol=1e-12)
+        np.testing.assert_allclose(cross, centred.T @ centred, rtol=1e-9)
+        np.testing.assert_allclose(sd, logged.std(0, ddof=1), rtol=1e-10)
+        assert list(n_obs) == [40_000] * 3
