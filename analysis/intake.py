@@ -267,11 +267,11 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
             if empty_text:
                 decided[col] = "ignore"
                 del numbers[col]
-                if not col.startswith("column "):
+                if col not in grid.unnamed:
                     report.warnings.append(f"{where(col)} has no values and was left out.")
         elif decided[col] == "metadata" and pd.isna(text_of(col)[~blank_row]).all() and col not in roles:
             decided[col] = "ignore"
-            if not col.startswith("column "):
+            if col not in grid.unnamed:
                 report.warnings.append(f"{where(col)} has no values and was left out.")
     keep = ~blank_row
     rows = rows[keep]

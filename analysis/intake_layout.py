@@ -39,6 +39,7 @@ class Grid:
     file_type: str
     decimal: str = "."
     units: dict[str, str] = field(default_factory=dict)
+    unnamed: set[str] = field(default_factory=set)  # names made up for blank header cells
     encoding: str | None = None
     delimiter: str | None = None
     sheet: str | None = None
@@ -127,13 +128,14 @@ def find_units_row(rows: list[list], header: int, decimal: str) -> int | None:
     return cand if unit_like >= max(1, math.ceil(0.5 * len(numeric_cols))) else None
 
 
-def column_names(header: list, width: int, filename: str, header_row: int) -> list[str]:
-    """Header cells as unique column names; blank ones become "column C"."""
-    names = []
+def column_names(header: list, width: int, filename: str, header_row: int) -> tuple[list[str], set[str]]:
+    """Header cells as unique column names; blank ones become "column C" (returned as the second item)."""
+    names, unnamed = [], set()
     for j in range(width):
         cell = header[j] if j < len(header) else None
         if _is_blank(cell):
             names.append(f"column {column_letter(j)}")
+            unnamed.add(names[-1])
         elif isinstance(cell, float) and cell.is_integer():
             names.append(str(int(cell)))
         else:
@@ -150,7 +152,7 @@ def column_names(header: list, width: int, filename: str, header_row: int) -> li
             f"{filename}: the header (row {header_row}) names a column twice: {', '.join(dupes[:10])}. "
             "Give each column a unique name."
         )
-    return names
+    return names, unnamed
 
 
 _COMMA_DEC = re.compile(r"^[<>]?\s*[+-]?(\d+),(\d+)$")

@@ -177,7 +177,7 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
         raise IntakeError(
             f"{filename}: row {header + 1} has {width} columns, more than the limit of {max_columns}."
         )
-    names = column_names(rows[header], width, filename, header + 1)
+    names, unnamed = column_names(rows[header], width, filename, header + 1)
     units = {}
     if units_at is not None:
         units = {n: u.strip() for n, u in zip(names, rows[units_at]) if u.strip() and u.strip().lower() not in MISSING_MARKERS}
@@ -211,6 +211,7 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
         file_type="csv",
         decimal=decimal,
         units=units,
+        unnamed=unnamed,
         encoding=encoding,
         delimiter=delimiter,
     )

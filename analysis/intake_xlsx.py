@@ -115,7 +115,7 @@ def _read_sheet(book, filename: str, sheet: str | None, max_columns: int) -> Gri
     decimal = guess_decimal(body)
     units_at = find_units_row(rows[: header + 1 + SAMPLE_ROWS], header, decimal)
     width = max(len(r) for r in rows[header:])
-    names = column_names(rows[header], width, filename, header + 1)
+    names, unnamed = column_names(rows[header], width, filename, header + 1)
     units = {}
     if units_at is not None:
         for n, u in zip(names, rows[units_at]):
@@ -139,6 +139,7 @@ def _read_sheet(book, filename: str, sheet: str | None, max_columns: int) -> Gri
         file_type="xlsx",
         decimal=decimal,
         units=units,
+        unnamed=unnamed,
         sheet=ws.title,
     )
 
