@@ -335,3 +335,21 @@ def test_requests_do_not_leak_open_files(client, analyst, dataset, model):
     for _ in range(40):
         round_trip()
     assert open_files() - before <= 3
+
+
+def test_health_reports_an_unreachable_database_as_503(client, monkeypatch):
+    from contextlib import contextmanager
+
+    from sqlalchemy.exc import OperationalError
+
+    from webapp import api
+
+    @contextmanager
+    def unreachable():
+        raise OperationalError("SELECT 1", {}, Exception("connection refused"))
+        yield  # pragma: no cover - never reached
+
+    monkeypatch.setattr(api, "session_scope", unreachable)
+    response = client.get("/health")
+    assert response.status_code == 503
+    assert response.get_json()["error"]["code"] == "database_unavailable"
