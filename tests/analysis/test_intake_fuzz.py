@@ -230,3 +230,54 @@ def test_vectorised_column_parse_agrees_with_cell_by_cell(cells, decimal):
         if kind in (BAD, INFINITE, BARE_LIMIT, MISSING):
             expected = np.nan
         assert (np.isnan(got) and np.isnan(expected)) or got == expected, (cells, got, expected)
+
+
+@settings(max_examples=int(os.environ.get("INTAKE_FUZZ_EXAMPLES", "120")), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(
+    data=st.data(),
+    n=st.integers(4, 20),
+    p=st.integers(2, 5),
+    dialect=st.sampled_from([(",", "."), (";", ","), ("\t", "."), ("\t", ","), ("|", ".")]),
+    title=st.booleans(),
+    comments=st.booleans(),
+    units=st.booleans(),
+    blank_lines=st.booleans(),
+)
+def test_round_trip_with_lab_export_habits(data, n, p, dialect, title, comments, units, blank_lines):
+    # Title rows, '#' comments, a units row, blank lines, missing markers and "<LOD" values
+    # (common practice in lab exports) around numbers that must come back as written.
+    delimiter, decimal = dialect
+    values = np.round(np.array(data.draw(st.lists(st.floats(0.5, 999.0), min_size=n * p, max_size=n * p))).reshape(n, p), 2)
+    cells = [[f"{v:.2f}".replace(".", decimal) for v in row] for row in values]
+    expected = values.copy()
+    for i in range(n):
+        for j in range(p):
+            kind = data.draw(st.sampled_from(["value"] * 6 + ["marker", "lod"]))
+            if kind == "marker":
+                cells[i][j] = data.draw(st.sampled_from(["NA", "n/a", "-", "", "ND", "#N/A", "?"]))
+                expected[i, j] = np.nan
+            elif kind == "lod":
+                cells[i][j] = "<" + f"{values[i, j]:.2f}".replace(".", decimal)
+                expected[i, j] = values[i, j] / 2
+    keep = ~np.isnan(expected).all(axis=1)
+    lines = []
+    if title:
+        lines += ["Invented plant: weekly results" + delimiter * p, ""]
+    if comments:
+        lines += ["# exported by an invented system", "# units below"]
+    lines.append(delimiter.join(["Sample"] + [f"P{j}" for j in range(p)]))
+    if units:
+        lines.append(delimiter.join([""] + ["mg/L"] * p))
+    for i in range(n):
+        lines.append(delimiter.join([f"W{i:02d}"] + cells[i]))
+        if blank_lines and i == n // 2:
+            lines.append("")
+    raw = ("\n".join(lines) + "\n").encode("utf-8")
+    if keep.sum() < 3 or any(np.isnan(expected[keep, j]).all() for j in range(p)):
+        return  # too few values left to be a table; refusals are covered above
+    table, report = read_table(raw, "habits.csv")
+    assert table.sample_ids == [f"W{i:02d}" for i in range(n) if keep[i]]
+    np.testing.assert_allclose(table.values, expected[keep], rtol=0, atol=1e-9)
+    if units:
+        assert report.units == {f"P{j}": "mg/L" for j in range(p)}
