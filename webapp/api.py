@@ -285,10 +285,8 @@ def model_samples(model_id: int):
     # Built column by column: one dict per sample, values already plain (100,000 rows stay quick).
     score_rows = _plain(frame[_score_columns(frame)].to_numpy(dtype=float))
     meta_rows = zip(*(_plain(frame[m]) for m in metadata)) if metadata else ([] for _ in range(len(frame)))
-    flag_rows = (
-        [name for name, hit in (("T2", t2), ("SPE", spe)) if hit]
-        for t2, spe in zip(frame["T2_flag"].tolist(), frame["SPE_flag"].tolist())
-    )
+    flag_lists = {(False, False): [], (True, False): ["T2"], (False, True): ["SPE"], (True, True): ["T2", "SPE"]}
+    flag_rows = map(flag_lists.__getitem__, zip(frame["T2_flag"].tolist(), frame["SPE_flag"].tolist()))
     columns = zip(
         frame["sample_id"].tolist(), meta_rows, frame["excluded"].tolist(), score_rows,
         _plain(frame["T2"]), _plain(frame["T2_limit"]), _plain(frame["SPE"]), _plain(frame["SPE_limit"]), flag_rows,

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import os
+import shutil
 
 import numpy as np
 import pytest
@@ -117,6 +118,7 @@ def test_a_damaged_stored_file_is_reported_not_read(app, uploader):
         dataset = ingest.ingest_upload(raw, "wine.csv", uploader)
         path = ingest.blob_path(dataset["sha256"])
         path.write_bytes(raw.replace(b"W-001", b"W-999"))
+        shutil.rmtree(os.path.join(app.config["HOME"], "cache", ingest.TABLE_CACHE_FOLDER))  # a cold cache
         with pytest.raises(RuntimeError, match="does not match its SHA-256"):
             ingest.load_table(dataset["id"])
 

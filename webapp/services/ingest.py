@@ -20,6 +20,7 @@ from pathlib import Path, PurePosixPath, PureWindowsPath
 from typing import Any, Iterator
 
 import diskcache
+from flask import current_app
 
 from analysis.errors import InputError
 from analysis.intake import read_table
@@ -177,6 +178,7 @@ def ingest_upload(
             if created:
                 _remove_unreferenced_blob(sha256)
             raise
+        _remember_table(options_key(sha256, opts), table)  # the first fit need not parse again
     return {**result, "created": True}
 
 
@@ -236,7 +238,7 @@ def load_table(dataset_id: int) -> Table:
     """
     info = dataset_info(dataset_id)
     key = options_key(info["sha256"], info["intake_options"])
-    with diskcache.Cache(str(cache_folder() / TABLE_CACHE_FOLDER)) as cache:
+    with _table_cache() as cache:
         try:
             table = cache.get(key)
         except Exception:  # noqa: BLE001 - unreadable cache entry: parse again
@@ -246,6 +248,19 @@ def load_table(dataset_id: int) -> Table:
         table = _parse_stored(dataset_id, info)
         cache.set(key, table)
     return table
+
+
+def _table_cache() -> diskcache.Cache:
+    return diskcache.Cache(str(cache_folder() / TABLE_CACHE_FOLDER))
+
+
+def _remember_table(key: str, table: Table) -> None:
+    """Cache a freshly read Table; a cache that cannot be written only costs a re-read."""
+    try:
+        with _table_cache() as cache:
+            cache.set(key, table)
+    except Exception:  # noqa: BLE001 - the dataset is committed; do not fail the upload for a cache
+        current_app.logger.warning("could not cache the table of %s", key, exc_info=True)
 
 
 def _parse_stored(dataset_id: int, info: dict[str, Any]) -> Table:
