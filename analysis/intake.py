@@ -137,6 +137,7 @@ def read_table(
     max_bytes: int = 200 * 1024**2,
     max_columns: int = 20000,
     mostly_missing: float = 0.5,
+    min_samples: int = 3,
 ) -> tuple[Table, IntakeReport]:
     """Read CSV/TSV/XLSX bytes into a Table and an IntakeReport.
 
@@ -164,6 +165,9 @@ def read_table(
         Size limits; larger files are refused.
     mostly_missing : float
         Warn about variables and samples missing more than this fraction.
+    min_samples : int
+        Fewest samples accepted: 3 to fit a model, 1 to score new samples
+        against a saved one.
 
     Raises
     ------
@@ -204,7 +208,7 @@ def read_table(
             raise IntakeError(f"{filename}: sheet {sheet!r} was asked for, but this is a text file without sheets.")
         text_columns = {c for c, r in roles.items() if r in ("id", "metadata")}  # keep "007" as written
         grid = read_text(raw, filename, text_columns=text_columns, max_columns=max_columns)
-    return _typed(grid, filename, roles, below_limit, bad_cells, mostly_missing)
+    return _typed(grid, filename, roles, below_limit, bad_cells, mostly_missing, min_samples)
 
 
 def _too_big(filename: str, size: int, limit: int) -> str:
@@ -233,7 +237,9 @@ def _check_options(filename, below_limit, bad_cells, roles, mostly_missing) -> N
         raise IntakeError(f"mostly_missing must be a fraction in (0, 1], not {mostly_missing!r}.")
 
 
-def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: str, mostly_missing: float):
+def _typed(
+    grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: str, mostly_missing: float, min_samples: int
+):
     frame, rows = grid.frame, grid.row_numbers
     report = IntakeReport(
         filename=filename, file_type=grid.file_type, encoding=grid.encoding, delimiter=grid.delimiter,
@@ -360,8 +366,11 @@ def _typed(grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: 
             + (", ..." if empty.sum() > MAX_LISTED else "") + ")."
         )
         data, metadata, data_missing, row_missing = data[~empty], metadata[~empty], data_missing[~empty], row_missing[~empty]
-    if data.shape[0] < 3:
-        raise IntakeError(f"{filename}: only {data.shape[0]} sample(s) with numeric values; at least 3 are needed.")
+    if data.shape[0] < min_samples:
+        raise IntakeError(
+            f"{filename}: only {data.shape[0]} sample(s) with numeric values; at least {min_samples} "
+            f"{'is' if min_samples == 1 else 'are'} needed."
+        )
     if data.shape[1] < 2:
         raise IntakeError(
             f"{filename}: only {data.shape[1]} numeric variable ({', '.join(map(repr, variables))}); at least 2 "
@@ -518,7 +527,8 @@ def _count_parse(report: IntakeReport, col: str, where: str, parse, policy: str)
 
 def _warn_about_values(report, data: pd.DataFrame, missing: pd.DataFrame, row_missing: np.ndarray, where, mostly_missing: float) -> None:
     lowest, highest = data.min(), data.max()
-    for c in data.columns[(lowest == highest).to_numpy()]:
+    constant = (lowest == highest).to_numpy() & (data.shape[0] > 1)  # one new sample is trivially "constant"
+    for c in data.columns[constant]:
         report.warnings.append(f"{where(c)} is constant; it cannot be autoscaled.")
     frac_col = missing.mean(axis=0)
     for c, f in frac_col.items():

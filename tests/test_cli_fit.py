@@ -168,6 +168,22 @@ def test_apply_on_the_training_file_gives_the_training_scores(tmp_path, wine_csv
     assert (samples["t2_exceeds"] == (samples["t2"] > summary["t2_limit_new"])).all()
 
 
+def test_apply_scores_a_single_new_sample(tmp_path, wine_csv, capsys):
+    # One new batch is a normal monitoring case (common practice): no minimum of 3 samples, no
+    # "constant variable" warnings for a one-row file.
+    fitted, applied, one = tmp_path / "fit", tmp_path / "apply", tmp_path / "one.csv"
+    assert _run(["fit", wine_csv, "--id-column", "lot", "--group-column", "cultivar", "--components", "3",
+                 "--out", fitted], capsys)[0] == 0
+    lines = open(wine_csv, encoding="utf-8").read().splitlines()
+    one.write_text("\n".join(lines[:2]) + "\n", encoding="utf-8")
+    code, stdout, stderr = _run(["apply", fitted / "model.json", one, "--out", applied], capsys)
+    assert code == 0, stderr
+    assert "scored 1 new sample(s)" in stdout and stderr == ""
+    training = pd.read_csv(fitted / "samples.csv").iloc[[0]].reset_index(drop=True)
+    sample = pd.read_csv(applied / "samples.csv")
+    np.testing.assert_allclose(sample[["t2", "spe"]], training[["t2", "spe"]], rtol=1e-10)
+
+
 def test_apply_matches_variables_by_name_and_warns_about_extra_ones(tmp_path, wine_frame, capsys):
     train = tmp_path / "train.csv"
     wine_frame.to_csv(train, index=False)

@@ -336,7 +336,8 @@ def apply_to_folder(
     fitted, document = read_model_file(model)
     stored = document.get("extra") if isinstance(document.get("extra"), dict) else {}
     id_column = id_column or stored.get("id_column")
-    options = {"id_column": id_column, "sheet": sheet, "below_limit": below_limit, "bad_cells": bad_cells}
+    options = {"id_column": id_column, "sheet": sheet, "below_limit": below_limit, "bad_cells": bad_cells,
+               "min_samples": 1}  # a single new batch can be checked
     table, report, sha256 = _read(file, **options)
     groups = [g for g in stored.get("group_columns") or () if g in table.variables]
     if groups:
