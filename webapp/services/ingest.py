@@ -4,10 +4,12 @@ A dataset is immutable and known by the SHA-256 of its raw bytes (DESIGN.md 3).
 The bytes live at ``HOME/files/<sha[:2]>/<sha>``; the user's file name is
 display text only and never part of a path. Storing is one unit of work: the
 file is written to a temporary name and moved into place with ``os.replace``
-(atomic on POSIX), then the database row is committed; if anything fails in
-between, the new file is removed again, so a failure leaves no half dataset.
-Uploading the same bytes with the same intake options returns the dataset
-already stored.
+(atomic on POSIX; ``webapp.store.files``), then the database row is committed;
+if anything fails in between, the new file is removed again, so a failure
+leaves no half dataset (a worker killed outright leaves at most a complete but
+unlisted file, which ``remove_orphan_files`` sweeps). Uploading the same bytes
+with the same intake options returns the dataset already stored. Parsed Tables
+are cached on disk (``HOME/cache/tables``) so fits do not re-read the file.
 """
 
 from __future__ import annotations
