@@ -367,3 +367,34 @@ def test_log_filters(client, team, dataset_id):
     assert [e["action"] for e in mine] == ["propose"]
     bad = client.get(f"{url}?since=yesterday", headers=team["viewer"].headers)
     assert bad.status_code == 400 and "since" in bad.get_json()["error"]["message"]
+
+
+def test_signoff_report_names_the_signature_and_escapes_user_text(client, team, dataset_id):
+    proposal = propose(client, team["analyst"], dataset_id, reason="<script>alert(1)</script> balance fault")
+    proposal_id = proposal.get_json()["proposal"]["id"]
+    sign(client, team["reviewer"], proposal_id, comment="<b>ok</b>")
+    page = client.get(f"/-/review/datasets/{dataset_id}/report?proposal={proposal_id}",
+                      headers=team["viewer"].headers)
+    assert page.status_code == 200 and page.mimetype == "text/html"
+    html = page.get_data(as_text=True)
+    # Text from users is shown as text (DESIGN.md 7): escaped, never markup.
+    assert "<script>alert(1)</script>" not in html and "&lt;script&gt;alert(1)&lt;/script&gt;" in html
+    assert "&lt;b&gt;ok&lt;/b&gt;" in html
+    # 21 CFR 11.50: printed name, date and time, meaning; plus the dataset's SHA-256.
+    assert f"Printed name: {team['reviewer'].display_name}" in html and "Meaning: approved" in html
+    sha = client.get(f"/api/v1/datasets/{dataset_id}", headers=team["viewer"].headers).get_json()["dataset"]["sha256"]
+    assert sha in html
+    assert "<svg" in html  # explained variance before/after as a static chart
+    assert client.get(f"/-/review/datasets/{dataset_id}/report?proposal=999",
+                      headers=team["viewer"].headers).status_code == 404
+
+
+def test_dataset_page_links_follow_selection_and_role():
+    from webapp.pages.review_links import HIDDEN, links_for
+
+    href, style, save = links_for(3, "?a=2&exclude=S9", {"sample_ids": ["S1", "S 2"]}, can_act=True)
+    assert href.startswith("/review/propose?dataset=3&action=exclude&sample=S1&sample=S%202")
+    assert "a=2" in href and "exclude=" not in href  # a what-if on the page is not carried into the proposal
+    assert style is None and save.startswith("/views?save=1&dataset=3&sel=S1")
+    assert links_for(3, "", {"sample_ids": []}, can_act=True)[1] == HIDDEN
+    assert links_for(3, "", {"sample_ids": ["S1"]}, can_act=False)[1] == HIDDEN
