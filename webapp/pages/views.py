@@ -13,6 +13,7 @@ from flask_login import current_user
 
 from analysis.errors import InputError
 from webapp import auth
+from webapp.pages.review import when
 from webapp.ui import ids, url_state
 
 dash.register_page(__name__, path="/views", name="Saved views", title="Saved views · LatentDesk", nav=True,
@@ -31,7 +32,7 @@ def views_table(views: list[dict], names: dict[int, str]) -> html.Table | html.P
                 html.Td(names.get(v["dataset_id"], str(v["dataset_id"]))),
                 html.Td(v["note"]),
                 html.Td([v["created_by_name"] or "", html.Br(),
-                         html.Span(v["created_at"][:16].replace("T", " ") + " UTC", className="ld-muted")]),
+                         html.Span(when(v["created_at"]), className="ld-muted")]),
                 html.Td((v["model_fingerprint"] or "")[:12] + "…", title=v["model_fingerprint"] or "",
                         className="ld-muted ld-mono"),
             ]

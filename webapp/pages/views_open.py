@@ -13,6 +13,7 @@ from dash import dcc, html
 from flask_login import current_user
 
 from analysis.errors import InputError
+from webapp.pages.review import when
 from webapp.ui import ids
 
 dash.register_page(__name__, path_template="/views/<view_id>", name="Saved view", title="Saved view · LatentDesk")
@@ -52,15 +53,14 @@ def opened_view(opened: dict) -> html.Div:
         [
             html.H1(view["title"]),
             html.P(view["note"]) if view["note"] else None,
-            html.P(f"Saved by {view['created_by_name']} at {view['created_at']} (UTC).", className="ld-muted"),
+            html.P(f"Saved by {view['created_by_name']} at {when(view['created_at'])}.", className="ld-muted"),
             proof,
             change,
             html.Section(
                 [
                     html.P(f"{model['n_samples']} samples, {model['n_components']} component(s): "
                            f"{_pct(model['explained_variance_ratio'])}."),
-                    html.P(f"Left out of the fit: {', '.join(opened['excluded_as_saved']) or 'none'}.")
-                    ,
+                    html.P(f"Left out of the fit: {', '.join(opened['excluded_as_saved']) or 'none'}."),
                     html.P(f"Selected: {', '.join(view['state'].get('selection') or []) or 'nothing'}.",
                            className="ld-muted"),
                     dcc.Link("Open on the dataset page", href=opened["links"]["as_saved"], className="ld-button"),
