@@ -39,7 +39,6 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import linalg
 
 from analysis import diagnostics
 from analysis.errors import InputError
@@ -461,11 +460,13 @@ def _decompose_xtx_blocks(values, log_mask, mean, scale) -> _Decomposition:
 
 
 def _from_gram_features(gram: np.ndarray, n: int) -> _Decomposition:
-    w, v = linalg.eigh(gram, driver="evd")
+    w, v = np.linalg.eigh(gram)
     w, v = np.clip(w[::-1], 0.0, None), v[:, ::-1]
     return _Decomposition(w / (n - 1), lambda a: v[:, :a].copy(), float(np.trace(gram)), np.diag(gram).copy())
 
 
+# LAPACK through numpy (syevd for eigh, gesdd for svd): the same BLAS thread pool as the
+# matrix products, so no second pool competes for the cores.
 def _decompose_full(z: np.ndarray, solver: str) -> _Decomposition:
     """Decompose the preprocessed, complete matrix z with the named solver."""
     n, p = z.shape
@@ -474,10 +475,10 @@ def _decompose_full(z: np.ndarray, solver: str) -> _Decomposition:
     if solver == "xtx":
         return _from_gram_features(z.T @ z, n)
     if solver == "svd":
-        _, s, vt = linalg.svd(z, full_matrices=False, lapack_driver="gesdd")
+        _, s, vt = np.linalg.svd(z, full_matrices=False)
         return _Decomposition(s**2 / (n - 1), lambda a: vt[:a].T.copy(), total_ss, column_ss)
     # xxt: eigenvectors u of ZZ' give loadings Z'u / ||Z'u|| (= Z'u / sigma).
-    w, u = linalg.eigh(z @ z.T, driver="evd")
+    w, u = np.linalg.eigh(z @ z.T)
     w, u = np.clip(w[::-1], 0.0, None), u[:, ::-1]
 
     def loadings(a: int) -> np.ndarray:
