@@ -225,7 +225,8 @@ def layout(proposal=None, dataset=None, **_query) -> html.Div:
                 id=ids.REVIEW_DETAIL,
             )
             detail = html.Section(
-                [dcc.Store(id=ids.REVIEW_CONTEXT, data={"proposal_id": chosen["id"]}), detail,
+                [dcc.Store(id=ids.REVIEW_CONTEXT, data={"proposal_id": chosen["id"], "dataset_id": dataset_id}),
+                 detail,
                  html.Div(id=ids.REVIEW_MESSAGE, role="status")],
                 className="ld-panel",
             )
@@ -294,4 +295,5 @@ def _on_sign(_approve, _reject, _withdraw, comment, password, context):
     message, result = sign_or_withdraw(ctx.triggered_id, int(context["proposal_id"]), comment, password)
     if result is None:
         return message, no_update, no_update
-    return message, [proposal_detail(result), _signing_form(result)], queue_sections(None, _dataset_names())
+    queue = queue_sections(context.get("dataset_id"), _dataset_names())
+    return message, [proposal_detail(result), _signing_form(result)], queue

@@ -83,7 +83,7 @@ DOWNLOAD = "download"
 
 # -- review pages (webapp/pages/review*.py, views*.py; owner REVIEW) ---------------
 REVIEW_QUEUE = "review-queue"
-REVIEW_CONTEXT = "review-context"  # dcc.Store: {"proposal_id"}
+REVIEW_CONTEXT = "review-context"  # dcc.Store: {"proposal_id", "dataset_id" (queue filter or None)}
 REVIEW_COMMENT = "review-comment"
 REVIEW_PASSWORD = "review-password"
 REVIEW_APPROVE = "review-approve"
@@ -118,3 +118,7 @@ def image_button(graph_id, image_format) -> dict:
 REVIEW_LINKS = "review-links"  # on the dataset page: propose / save view / log / views
 REVIEW_PROPOSE_LINK = "review-propose-link"
 VIEW_SAVE_LINK = "view-save-link"
+RANK_STORE = "rank-store"  # dcc.Store: component-choice table computed on request for the fit on screen
+RANK_BUTTON = "rank-button"
+RANK_STATUS = "rank-status"
+SCORE_DRAWN = "score-drawn"  # dcc.Store: what the score plot on screen shows (model, axes, colouring)
