@@ -398,3 +398,16 @@ def test_dataset_page_links_follow_selection_and_role():
     assert style is None and save.startswith("/views?save=1&dataset=3&sel=S1")
     assert links_for(3, "", {"sample_ids": []}, can_act=True)[1] == HIDDEN
     assert links_for(3, "", {"sample_ids": ["S1"]}, can_act=False)[1] == HIDDEN
+
+
+def test_repeated_wrong_signature_passwords_lock_the_account(app, client, team, dataset_id):
+    # OWASP Authentication Cheat Sheet (account lockout): re-entered passwords count like sign-ins.
+    proposal_id = propose(client, team["analyst"], dataset_id).get_json()["proposal"]["id"]
+    for _ in range(app.config["LOCKOUT_ATTEMPTS"]):
+        response = sign(client, team["reviewer"], proposal_id, password="guess")
+        assert response.status_code == 403
+    assert "locked" in response.get_json()["error"]["message"]
+    # Even the right password is refused while the account is locked.
+    assert sign(client, team["reviewer"], proposal_id).status_code == 403
+    failed = [e for e in log_of(client, team["viewer"], dataset_id) if e["action"] == "sign_failed"]
+    assert len(failed) == app.config["LOCKOUT_ATTEMPTS"] + 1

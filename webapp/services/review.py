@@ -306,6 +306,12 @@ def _password_ok(user_id: int, password) -> bool:
     return isinstance(password, str) and bool(password) and check_password_again(user_id, password)
 
 
+def _locked(user_id: int) -> bool:
+    with session_scope() as session:
+        row = store.get_user(session, user_id)
+        return row is not None and row.locked_until is not None and row.locked_until > audit.now_utc()
+
+
 def sign(proposal_id: int, user, *, decision: str, password, comment="") -> dict[str, Any]:
     """Approve or reject a proposal after re-checking the signer's password.
 
@@ -343,8 +349,9 @@ def sign(proposal_id: int, user, *, decision: str, password, comment="") -> dict
             )
 
         run_write(log_failure)
+        locked = " Too many wrong passwords: the account is now locked for a while." if _locked(user.id) else ""
         raise ReviewRefused(
-            "the password is not correct; nothing was signed (the attempt is in the review log)",
+            "the password is not correct; nothing was signed (the attempt is in the review log)." + locked,
             code="wrong_password",
             status=403,
         )
