@@ -120,7 +120,8 @@ class Preprocessor:
         Variables to replace by their base-10 logarithm before centring.
     drop_constant : bool
         When False (default) a constant variable is an InputError naming it
-        (it cannot be autoscaled); when True it is dropped with a warning.
+        if the scaling divides by the SD (autoscale, pareto) and is kept
+        otherwise; when True every constant variable is dropped with a warning.
 
     Attributes
     ----------
@@ -159,9 +160,10 @@ class Preprocessor:
         mean, sd, n_obs, cross = column_moments(values, log_mask, gram=gram)
         too_few = n_obs < 2
         constant = ~too_few & (sd <= 64 * np.finfo(float).eps * np.abs(mean))
-        # Only scalings that divide by the SD are broken by a constant variable.
+        # Only scalings that divide by the SD are broken by a constant variable; when
+        # dropping is allowed, constant variables go whatever the scaling (they carry nothing).
         divides = self.scaling in ("autoscale", "pareto")
-        bad = too_few | (constant & divides)
+        bad = too_few | (constant & (divides or self.drop_constant))
         self.warnings_ = []
         names = np.asarray(variable_names, dtype=object)
         if bad.any():

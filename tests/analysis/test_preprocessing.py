@@ -84,6 +84,9 @@ def test_constant_variable_is_kept_when_scaling_does_not_divide():
     assert model.variable_names_ == ["x1", "x2", "x3", "x4", "x5"]
     assert abs(model.loadings_[4]).max() < 1e-12
     assert model.variable_explained_[4] == 0.0
+    # Asked to drop constants, it goes whatever the scaling.
+    dropped = PCAModel(n_components=2, scaling="center", drop_constant=True).fit(data)
+    assert dropped.dropped_variables_ == ["x5"] and dropped.warnings_
 
 
 def test_means_and_sds_ignore_missing_values():
