@@ -13,6 +13,7 @@ import os
 from urllib.parse import quote
 
 import numpy as np
+import pandas as pd
 import pytest
 from sklearn.decomposition import PCA
 
@@ -353,3 +354,17 @@ def test_health_reports_an_unreachable_database_as_503(client, monkeypatch):
     response = client.get("/health")
     assert response.status_code == 503
     assert response.get_json()["error"]["code"] == "database_unavailable"
+
+
+def test_xlsx_upload_reads_the_named_sheet(client, analyst):
+    frame = wine_frame()
+    buffer = io.BytesIO()
+    with pd.ExcelWriter(buffer, engine="openpyxl") as writer:
+        frame.iloc[:20].to_excel(writer, sheet_name="first", index=False)
+        frame.iloc[20:50].to_excel(writer, sheet_name="second", index=False)
+    response = _upload(client, analyst, raw=buffer.getvalue(), name="wine.xlsx", sheet="second")
+    body = response.get_json()
+    assert response.status_code == 201, body
+    assert body["dataset"]["sheet"] == "second" and body["dataset"]["n_samples"] == 30
+    missing = _upload(client, analyst, raw=buffer.getvalue(), name="wine.xlsx", sheet="third")
+    assert missing.status_code == 400 and "third" in missing.get_json()["error"]["message"]
