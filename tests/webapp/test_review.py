@@ -8,7 +8,11 @@ US FDA 21 CFR Part 11 section 11.50 (printed name, date and time, meaning) and 1
 
 from __future__ import annotations
 
+import io
+
 import pytest
+from review_helpers import actor, propose, sign
+from wine_data import wine_csv, wine_frame
 
 from analysis.errors import InputError
 from webapp.services import review_rules as rules
@@ -114,28 +118,7 @@ def test_exclusions_fold_in_decision_order():
 
 # --- the workflow over the API ------------------------------------------------------------
 
-from types import SimpleNamespace  # noqa: E402
-
-from webapp import auth as webauth  # noqa: E402
-from webapp.store import accounts, session_scope  # noqa: E402
-
-from conftest import add_user  # noqa: E402
-from wine_data import wine_csv, wine_frame  # noqa: E402
-
 ROLES = ("viewer", "analyst", "reviewer", "admin")
-
-
-def actor(app, role, display_name=None):
-    """A user of ``role`` with a known password and an API token."""
-    name, password = add_user(app, role, display_name=display_name)
-    with app.app_context(), session_scope() as s:
-        user = accounts.get_user_by_name(s, name)
-        token = webauth.create_token(s, user.id, "test")
-        user_id = user.id
-    return SimpleNamespace(
-        id=user_id, name=name, password=password, display_name=display_name or name, role=role,
-        headers={"Authorization": f"Bearer {token}"},
-    )
 
 
 @pytest.fixture
@@ -152,25 +135,13 @@ def dataset_id(client, team):
     # the first 40 samples keep the fits quick.
     raw = wine_csv(wine_frame().head(40))
     response = client.post(
-        "/api/v1/datasets", data={"file": (__import__("io").BytesIO(raw), "wine40.csv"), "id_column": "sample"},
+        "/api/v1/datasets", data={"file": (io.BytesIO(raw), "wine40.csv"), "id_column": "sample"},
         headers=team["analyst"].headers, content_type="multipart/form-data",
     )
     assert response.status_code == 201, response.get_json()
     return response.get_json()["dataset"]["id"]
 
 
-def propose(client, who, dataset_id, samples=("W-003",), action="exclude", **extra):
-    body = {"samples": list(samples), "reason_category": "measurement error",
-            "reason": "balance drift noted in the bench log", "action": action, **extra}
-    return client.post(f"/api/v1/datasets/{dataset_id}/exclusions", json=body, headers=who.headers)
-
-
-def sign(client, who, proposal_id, decision="approve", password=None, comment="checked the raw record"):
-    return client.post(
-        f"/api/v1/exclusions/{proposal_id}/{decision}",
-        json={"password": who.password if password is None else password, "comment": comment},
-        headers=who.headers,
-    )
 
 
 def log_of(client, who, dataset_id):

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from test_review import actor, propose, sign
+from review_helpers import actor, propose, sign
 from wine_data import wine_csv, wine_frame
 
 QUERY = "tab=scores&a=3&scaling=autoscale&pcx=1&pcy=3&colour=cultivar"
