@@ -292,5 +292,6 @@ def apply_log10(block: np.ndarray, log_mask: np.ndarray) -> np.ndarray:
 def scale_block(block: np.ndarray, log_mask: np.ndarray, mean: np.ndarray, scale: np.ndarray) -> np.ndarray:
     """log10, centre and scale one block of rows (a new array; NaN kept)."""
     out = apply_log10(block, log_mask) - mean
-    out /= scale
+    if np.any(scale != 1.0):  # centring-only scalings skip a pass
+        out *= 1.0 / scale  # one reciprocal per variable; multiplying is cheaper than dividing
     return out
