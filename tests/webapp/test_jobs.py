@@ -34,8 +34,6 @@ def test_redis_url_without_celery_installed_is_a_clear_error(tmp_path, monkeypat
 
 
 def test_redis_url_gives_a_celery_manager_on_that_broker(tmp_path):
-    pytest.importorskip("celery", reason="the optional 'celery' extra is not installed")
-    pytest.importorskip("redis", reason="the optional 'celery' extra is not installed")
     jobs.make_celery.cache_clear()
     url = "redis://127.0.0.1:1/0"  # never contacted: building the app does not connect
     manager = jobs.make_manager({"HOME": str(tmp_path), "REDIS_URL": url})
@@ -53,8 +51,6 @@ def test_worker_entry_point_needs_a_redis_url(monkeypatch):
 
 
 def test_worker_entry_point_registers_the_background_callbacks(tmp_path, monkeypatch):
-    pytest.importorskip("celery", reason="the optional 'celery' extra is not installed")
-    pytest.importorskip("redis", reason="the optional 'celery' extra is not installed")
     jobs.make_celery.cache_clear()
     monkeypatch.setenv("LATENTDESK_REDIS_URL", "redis://127.0.0.1:1/0")
     monkeypatch.setenv("LATENTDESK_SECRET_KEY", "worker-test")
