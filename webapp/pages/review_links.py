@@ -3,6 +3,10 @@
 The dataset page places ``review_links(dataset_id)`` in its header; the callback
 keeps the two state-dependent links in step with the page's URL and selection
 (links built by ``webapp.ui.url_state``).
+
+Not a page of its own (no page is registered here); Dash's page loader imports
+every module in pages/ whose text mentions register_page, which is how the
+callback below reaches each app exactly once.
 """
 
 from __future__ import annotations
