@@ -1,6 +1,7 @@
-"""End to end in headless Chromium: an analyst proposes excluding the demo's two
-out-of-model batches, a reviewer signs in another browser context, and the log page
-shows both actions with names and times.  Screenshots go to docs/images/.
+"""End to end in headless Chromium: an analyst selects the demo's two out-of-model
+batches on the dataset page and proposes excluding them, a reviewer signs in another
+browser context, and the log page shows both actions with names and times.
+Screenshots go to docs/images/.
 
 The planted anomalies are those of the invented demo data (docs/scenarios.md, step 3).
 """
@@ -27,15 +28,42 @@ def _lab_dataset_id(page, server) -> int:
     return int(re.search(r"/datasets/(\d+)", href).group(1))
 
 
+def _box_select_high_spe(page, above: float) -> None:
+    """Drag a selection box over the T2-SPE plot, from the top down to SPE = ``above``."""
+    graph = "#graph-t2-spe .js-plotly-plot"
+    page.wait_for_selector(f"{graph} .scatterlayer .point", timeout=90_000)
+    box = page.evaluate(
+        """([selector, above]) => {
+            const gd = document.querySelector(selector);
+            Plotly.relayout(gd, {dragmode: 'select'});
+            const xa = gd._fullLayout.xaxis, ya = gd._fullLayout.yaxis, r = gd.getBoundingClientRect();
+            return {x0: r.left + xa._offset + 2, x1: r.left + xa._offset + xa._length - 2,
+                    y0: r.top + ya._offset + 2, y1: r.top + ya._offset + ya.l2p(above)};
+        }""",
+        [graph, above],
+    )
+    page.mouse.move(box["x0"], box["y0"])
+    page.mouse.down()
+    page.mouse.move((box["x0"] + box["x1"]) / 2, (box["y0"] + box["y1"]) / 2, steps=5)
+    page.mouse.move(box["x1"], box["y1"], steps=5)
+    page.mouse.up()
+
+
 def test_analyst_proposes_reviewer_signs_log_shows_both(demo_server, new_page):
     analyst = new_page()
     sign_in(analyst, demo_server, "ana")
     analyst.wait_for_url(demo_server.url + "/")
     dataset_id = _lab_dataset_id(analyst, demo_server)
 
-    # The link the dataset page's selection panel builds for a selection.
-    state = url_state.ViewState(components=3)
-    analyst.goto(demo_server.url + url_state.propose_url(dataset_id, PLANTED, state=state))
+    # On the dataset page: three components, the T2-SPE plot, a box around the two batches far
+    # above the SPE limit (SPE about 22, limit about 6; docs/scenarios.md step 3).
+    state = url_state.ViewState(components=3, tab="diagnostics")
+    analyst.goto(demo_server.url + url_state.dataset_url(dataset_id, state))
+    _box_select_high_spe(analyst, above=15)
+    expect(analyst.locator("#selection-panel")).to_contain_text("2 samples selected")
+    analyst.click("#review-propose-link")
+    analyst.wait_for_url("**/review/propose?**")
+    assert all(f"sample={s}" in analyst.url for s in PLANTED)
     preview = analyst.locator("#propose-preview")
     expect(preview).to_contain_text("Principal angles", timeout=60_000)
     expect(preview).to_contain_text("Explained, PC1")
