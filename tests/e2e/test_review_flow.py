@@ -15,7 +15,7 @@ from playwright.sync_api import expect
 from tests.e2e.conftest import SCREENSHOTS, sign_in
 from webapp.demo_data import LAB_FILENAME
 from webapp.serve import DEMO_USERS
-from webapp.ui import url_state
+from webapp.ui import ids, url_state
 
 PLANTED = ["B26-042", "B26-070"]
 PRINTED = {name: printed for name, _role, printed in DEMO_USERS}
@@ -109,6 +109,11 @@ def test_analyst_proposes_reviewer_signs_log_shows_both(demo_server, new_page):
         assert re.match(r"\d{4}-\d\d-\d\d \d\d:\d\d:\d\d", rows.nth(i).locator("td").nth(1).inner_text())
     expect(analyst.locator("#log-verify")).to_contain_text("intact")
     analyst.screenshot(path=str(SCREENSHOTS / "review-log.png"), full_page=True)
+
+    # The dataset's current model now leaves the approved batches out by default.
+    analyst.goto(demo_server.url + url_state.dataset_url(dataset_id, url_state.ViewState(components=3)))
+    expect(analyst.locator(f"#{ids.SETTINGS_EXCLUDED}")).to_contain_text(
+        "(2): B26-042, B26-070", timeout=60_000)
 
     report = new_page()
     sign_in(report, demo_server, "vic", path=url_state.signoff_report_url(dataset_id, proposal_id))
