@@ -254,17 +254,19 @@ class PCAModel:
         spe = np.empty(n)
         log_mask = self._log_mask()
         step = block_rows(values.shape[1])
+        buffer = np.empty((min(step, n), values.shape[1]))
         for start in range(0, n, step):
-            block = scale_block(values[start : start + step], log_mask, self.mean_, self.scale_)
-            t = block @ loadings
+            raw = values[start : start + step]
+            stop = start + raw.shape[0]
+            block = scale_block(raw, log_mask, self.mean_, self.scale_, out=buffer[: raw.shape[0]])
+            t = np.matmul(block, loadings, out=scores[start:stop])
             total = np.einsum("ij,ij->i", block, block)
             q = total - np.einsum("ia,ia->i", t, t)
             fragile = q < CANCELLATION_GUARD * total
             if fragile.any():
                 e = block[fragile] - t[fragile] @ loadings.T
                 q[fragile] = np.einsum("ij,ij->i", e, e)
-            scores[start : start + len(block)] = t
-            spe[start : start + len(block)] = q
+            spe[start:stop] = q
         return scores, spe
 
     # ------------------------------------------------------------- new data
@@ -350,9 +352,10 @@ class PCAModel:
         full_span = self.n_components_ == len(self.variable_names_)
         check_log10(values, log_mask, ids, self.variable_names_)
         step = block_rows(values.shape[1])
+        buffer = np.empty((min(step, m), values.shape[1]))
         for start in range(0, m, step):
-            stop = start + step
-            z = scale_block(values[start:stop], log_mask, self.mean_, self.scale_)
+            stop = min(start + step, m)
+            z = scale_block(values[start:stop], log_mask, self.mean_, self.scale_, out=buffer[: stop - start])
             t = self._scores_of(z)
             scores[start:stop] = t
             if not full_span:  # with every direction in the model the residual is 0

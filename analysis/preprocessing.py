@@ -289,9 +289,14 @@ def apply_log10(block: np.ndarray, log_mask: np.ndarray) -> np.ndarray:
     return out
 
 
-def scale_block(block: np.ndarray, log_mask: np.ndarray, mean: np.ndarray, scale: np.ndarray) -> np.ndarray:
-    """log10, centre and scale one block of rows (a new array; NaN kept)."""
-    out = apply_log10(block, log_mask) - mean
+def scale_block(block: np.ndarray, log_mask: np.ndarray, mean: np.ndarray, scale: np.ndarray, out=None) -> np.ndarray:
+    """log10, centre and scale one block of rows (NaN kept) into ``out`` (a new array by default).
+
+    Passing a reusable ``out`` buffer spares a fresh allocation per block.
+    """
+    if out is None:
+        out = np.empty(block.shape)
+    np.subtract(apply_log10(block, log_mask), mean, out=out)
     if np.any(scale != 1.0):  # centring-only scalings skip a pass
         out *= 1.0 / scale  # one reciprocal per variable; multiplying is cheaper than dividing
     return out

@@ -99,6 +99,23 @@ def case(name, X, n_components, solver_name, target, repeats):
     return ratio, rel, share, peak, limit
 
 
+def offset_accuracy() -> None:
+    """Price of exactness: the covariance_eigh shortcut X'X - n m m' cancels digits when the
+    means are large against the SDs; our centred cross-product does not. Reference: LAPACK SVD."""
+    rng = np.random.default_rng(21)
+    X = rng.standard_normal((3000, 6)) @ rng.standard_normal((6, 6))
+    print("\n== accuracy with a large offset in one variable (3,000 x 6; reference LAPACK SVD) ==")
+    for offset in (1e3, 1e5, 1e7):
+        Y = X.copy()
+        Y[:, 0] += offset
+        s = np.linalg.svd(Y - Y.mean(0), compute_uv=False)
+        lam = s**2 / (len(Y) - 1)
+        sk = PCA(6, svd_solver="covariance_eigh").fit(Y).explained_variance_
+        ours = PCAModel(6, scaling="center").fit(Y).eigenvalues_
+        print(f"offset {offset:.0e}: max relative eigenvalue error sklearn covariance_eigh "
+              f"{np.max(np.abs(sk / lam - 1)):.1e}, PCAModel {np.max(np.abs(ours / lam[: ours.size] - 1)):.1e}")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="one-tenth sizes, for a smoke run")
@@ -109,6 +126,7 @@ def main() -> None:
           f"numpy {np.__version__}; {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}")
     case("tall", structured(200_000 // shrink, 100, seed=1), 5, "covariance_eigh", 1.5, args.repeats)
     case("wide", structured(2_000 // shrink, 5_000 // shrink, seed=2), 10, "full", 0.5, args.repeats)
+    offset_accuracy()
 
 
 if __name__ == "__main__":
