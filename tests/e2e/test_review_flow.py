@@ -59,11 +59,13 @@ def test_analyst_proposes_reviewer_signs_log_shows_both(demo_server, new_page):
     # above the SPE limit (SPE about 22, limit about 6; docs/scenarios.md step 3).
     state = url_state.ViewState(components=3, tab="diagnostics")
     analyst.goto(demo_server.url + url_state.dataset_url(dataset_id, state))
+    expect(analyst.locator(f"#{ids.FIT_SOURCE}")).to_contain_text("Showing 3 components", timeout=90_000)
     _box_select_high_spe(analyst, above=15)
-    expect(analyst.locator("#selection-panel")).to_contain_text("2 samples selected")
+    expect(analyst.locator(f"#{ids.SELECTION_PANEL}")).to_contain_text("2 samples selected")
+    expect(analyst.locator(f"#{ids.SELECTION_PANEL}")).to_contain_text(", ".join(PLANTED))
     analyst.click("#review-propose-link")
     analyst.wait_for_url("**/review/propose?**")
-    assert all(f"sample={s}" in analyst.url for s in PLANTED)
+    assert all(f"sample={s}" in analyst.url for s in PLANTED), analyst.url
     preview = analyst.locator("#propose-preview")
     expect(preview).to_contain_text("Principal angles", timeout=60_000)
     expect(preview).to_contain_text("Explained, PC1")
