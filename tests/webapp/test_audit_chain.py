@@ -335,3 +335,15 @@ def test_database_freezes_signatures_and_decided_proposals(stored_chain):
     with stored_chain.app_context(), session_scope() as s:
         assert not store.close_proposal(s, proposal_id, "rejected", audit.now_utc())  # the app's own guard
         assert store.get_proposal(s, proposal_id).state == "approved"
+
+
+def test_verify_endpoint_names_the_first_broken_entry(stored_chain):
+    from review_helpers import actor
+
+    viewer = actor(stored_chain, "viewer", "Vera Viewer")
+    client = stored_chain.test_client()
+    intact = client.get("/api/v1/review-log/verify", headers=viewer.headers).get_json()
+    assert intact["intact"] is True and intact["head"]["seq"] == 5
+    _as_superuser(stored_chain, "UPDATE review_log SET actor_name = 'Mallory' WHERE seq = 4")
+    broken = client.get("/api/v1/review-log/verify", headers=viewer.headers).get_json()
+    assert broken["ok"] is True and broken["intact"] is False and broken["first_broken_seq"] == 4

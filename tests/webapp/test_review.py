@@ -382,3 +382,18 @@ def test_repeated_wrong_signature_passwords_lock_the_account(app, client, team, 
     assert sign(client, team["reviewer"], proposal_id).status_code == 403
     failed = [e for e in log_of(client, team["viewer"], dataset_id) if e["action"] == "sign_failed"]
     assert len(failed) == app.config["LOCKOUT_ATTEMPTS"] + 1
+
+
+@pytest.mark.parametrize(
+    "role,path,status",
+    [
+        ("viewer", "/review/propose", 403),
+        ("analyst", "/review/propose", 200),
+        ("viewer", "/review", 200),
+        ("viewer", "/review/log", 200),
+        ("viewer", "/views", 200),
+    ],
+)
+def test_review_pages_by_role(client, auth, role, path, status):
+    auth.login(role)
+    assert client.get(path).status_code == status
