@@ -116,7 +116,21 @@ class PCAModel:
 
     # ------------------------------------------------------------------ fit
     def fit(self, X, sample_ids=None, variable_names=None) -> PCAModel:
-        """Fit the model to X (n samples x p variables; ndarray or DataFrame, NaN allowed)."""
+        """Fit the model to X (n samples x p variables; ndarray or DataFrame, NaN allowed).
+
+        ``sample_ids`` / ``variable_names`` override a DataFrame's index / columns
+        (defaults for arrays: "1", "2", ... and "x1", "x2", ...). On InputError
+        the model is left exactly as it was before the call.
+        """
+        before = dict(self.__dict__)
+        try:
+            return self._fit(X, sample_ids, variable_names)
+        except InputError:
+            self.__dict__.clear()
+            self.__dict__.update(before)
+            raise
+
+    def _fit(self, X, sample_ids, variable_names) -> PCAModel:
         if self.solver not in SOLVERS:
             raise InputError(f"solver={self.solver!r} is not one of {', '.join(SOLVERS)}")
         if self.scaling not in SCALINGS:

@@ -305,3 +305,20 @@ def test_large_offsets_and_drift_stay_exact(solver):
     # can only agree to about 1e-8 absolute whatever the algorithm.
     reference = PCAModel(n_components=3, solver="svd").fit(X).t2_
     np.testing.assert_allclose(model.t2_, reference, rtol=1e-8, atol=3e-8)
+
+
+def test_failed_fit_leaves_the_model_unchanged():
+    # Project rule (brief): bad input gets a clear message and changes nothing.
+    model = PCAModel(n_components=2).fit(NIST_DATA)
+    state = {k: (v.copy() if isinstance(v, np.ndarray) else v) for k, v in model.__dict__.items()}
+    model.n_components = 3
+    rank_deficient = np.column_stack([NIST_DATA[:, 0], 2 * NIST_DATA[:, 0], NIST_DATA[:, 1]])
+    with pytest.raises(InputError, match="rank"):
+        model.fit(rank_deficient)
+    model.n_components = 2
+    assert model.__dict__.keys() == state.keys()
+    for key, value in state.items():
+        if isinstance(value, np.ndarray):
+            np.testing.assert_array_equal(model.__dict__[key], value)
+        else:
+            assert model.__dict__[key] == value
