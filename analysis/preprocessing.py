@@ -47,9 +47,10 @@ def as_matrix(X, sample_ids=None, variable_names=None, default_ids=True):
 def validated(X, sample_ids=None, variable_names=None, default_ids=True):
     """Validate input: (float64 matrix, sample ids, variable names, complete).
 
-    ``complete`` is True when no value is missing. ``X`` is an ndarray or a DataFrame (index gives the sample ids and columns
-    the variable names unless given explicitly). NaN marks a missing value;
-    infinite or non-numeric values are an InputError naming row and column.
+    ``complete`` is True when no value is missing. ``X`` is an ndarray or a
+    DataFrame (index gives the sample ids and columns the variable names
+    unless given explicitly). NaN marks a missing value; infinite or
+    non-numeric values are an InputError naming row and column.
     With ``default_ids=False`` an ndarray without ids gets None instead of a
     list of row numbers (messages still name the row number).
     """
