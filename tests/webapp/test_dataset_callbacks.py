@@ -113,7 +113,12 @@ def test_fit_summary_matches_an_svd_and_then_comes_from_the_cache(wine):
     assert first["fingerprint"] == again["fingerprint"]
     s = np.linalg.svd(_autoscaled_wine(), compute_uv=False)
     np.testing.assert_allclose(first["explained_variance_ratio"], (s**2 / np.sum(s**2))[:3], rtol=1e-8)
-    assert first["rank"]["recommended"] >= 1  # the component-choice table comes with a numbered fit too
+    assert first["rank"] is None  # with a number given, the component-choice table is computed on request
+    with app.app_context():
+        rank = dataset.rank_summary(dataset_id, first["settings"], user_id)
+    assert [row["components"] for row in rank["table"]][:3] == [1, 2, 3]
+    np.testing.assert_allclose([row["explained"] for row in rank["table"]][:3], (s**2 / np.sum(s**2))[:3],
+                               rtol=1e-8)
 
 
 def test_bad_settings_give_the_services_message(wine):
@@ -207,10 +212,13 @@ def test_outlier_table_lists_every_sample_beyond_a_limit(fitted):
 
 def test_variance_view_marks_the_recommendation(fitted):
     app, result = fitted
-    _, views, _, _ = _pages()
+    dataset, views, _, _ = _pages()
     with app.app_context():
-        scree, table, per_variable = views.variance_view(result)
-    rec = result["rank"]["recommended"]
+        _, waiting, _ = views.variance_view(result)
+        rank = dataset.rank_summary(result["dataset_id"], result["settings"])
+        scree, table, per_variable = views.variance_view(result, rank)
+    assert "Compute the component-choice table" in str(waiting)
+    rec = rank["recommended"]
     assert any(f"recommended: {rec}" in (a.text or "") for a in scree.layout.annotations)
     assert len(per_variable.data[0].y) == 13
 
@@ -311,3 +319,41 @@ def test_upload_roles_from_the_grid_and_bad_transport(app):
                        "bad_cells": "missing"}
     with pytest.raises(InputError, match="unreadable"):
         upload.decode_upload("not a data url")
+
+
+def _decode(spec: dict) -> np.ndarray:
+    # plotly.js typed-array spec: little-endian bytes, base64 (plotly.js "b64 typed arrays")
+    return np.frombuffer(base64.b64decode(spec["bdata"]), dtype=np.dtype(spec["dtype"]).newbyteorder("<"))
+
+
+def test_large_score_plot_recolours_and_changes_axes_by_patch(fitted, monkeypatch):
+    app, result = fitted
+    _, views, _, _ = _pages()
+    from dash import Patch
+
+    from webapp.ui import figures
+
+    monkeypatch.setattr(figures, "WEBGL_THRESHOLD", 100)  # treat the 178 wine samples as "many"
+    with app.app_context():
+        fig, drawn = views.score_update(result, pcx=1, pcy=2, colour=None, shape=None, labels=False)
+        assert drawn["large"] and drawn["n_legend"] == 0 and fig.data[0].type == "scattergl"
+        patch, drawn2 = views.score_update(result, pcx=1, pcy=2, colour="cultivar", shape=None, labels=False,
+                                           drawn=drawn)
+        patch3, drawn3 = views.score_update(result, pcx=1, pcy=3, colour="cultivar", shape=None, labels=True,
+                                            drawn=drawn2)
+        full, _ = views.score_update(result, pcx=1, pcy=2, colour=None, shape="cultivar", labels=False,
+                                     drawn=drawn3)
+    assert isinstance(patch, Patch) and isinstance(patch3, Patch) and not isinstance(full, Patch)
+    ops = patch.to_plotly_json()["operations"]
+    colour = next(o for o in ops if o["location"] == ["data", 0, "marker", "color"])["params"]["value"]
+    cultivar = wine_frame()["cultivar"].to_numpy()
+    expected_codes = np.searchsorted(np.array(["cultivar 1", "cultivar 2", "cultivar 3"]), cultivar)
+    np.testing.assert_array_equal(_decode(colour), expected_codes)
+    appended = [o["params"]["value"]["name"] for o in ops if o["operation"] == "Append"]
+    assert appended == ["cultivar 1", "cultivar 2", "cultivar 3"] and drawn2["n_legend"] == 3
+    ops3 = patch3.to_plotly_json()["operations"]
+    y = next(o for o in ops3 if o["location"] == ["data", 0, "y"])["params"]["value"]
+    u, s, _ = np.linalg.svd(_autoscaled_wine(), full_matrices=False)
+    np.testing.assert_allclose(np.abs(_decode(y)), np.abs(u[:, 2] * s[2]), rtol=1e-8, atol=1e-10)
+    assert {"operation": "Assign", "location": ["data", 0, "mode"], "params": {"value": "markers+text"}} in ops3
+    assert not any(o["location"][:2] == ["data", 0] and o["location"][-1] == "color" for o in ops3)

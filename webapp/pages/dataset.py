@@ -174,9 +174,10 @@ def fit_summary(dataset_id: int, applied: dict | None, user_id: int | None = Non
 
     Returns the JSON-safe result kept in the FIT_RESULT store: ``ok``, the
     model's id, fingerprint, ``cache_hit``, ``seconds``, the summary numbers,
-    the component-choice table (``rank``, from the "auto" fit when a number was
-    given) and the settings the service normalised. Bad settings give
-    ``ok: False`` and the service's message.
+    the component-choice table (``rank``; only when the number of components
+    was left at "Recommended": with a number given the table is computed on
+    request, see ``rank_summary``) and the settings the service normalised.
+    Bad settings give ``ok: False`` and the service's message.
     """
     from webapp.services import ingest, modelling
 
@@ -187,20 +188,27 @@ def fit_summary(dataset_id: int, applied: dict | None, user_id: int | None = Non
         settings = state.model_settings(dataset["variables"])
         model, info = modelling.get_model(int(dataset_id), settings, user_id=user_id)
         rank = info.get("rank")
-        if rank is None:
-            _, auto = modelling.get_model(int(dataset_id), {**settings, "components": "auto"}, user_id=user_id)
-            rank = auto.get("rank")
     except InputError as exc:
         return {"ok": False, "error": str(exc)}
     keep = ("id", "fingerprint", "cache_hit", "settings", "excluded", "n_components", "n_samples",
             "n_variables", "variables", "dropped_variables", "explained_variance_ratio", "cumulative",
-            "eigenvalues", "confidence", "t2_limit", "spe_limit", "solver", "n_missing", "warnings")
+            "eigenvalues", "confidence", "t2_limit", "spe_limit", "solver", "n_missing", "warnings",
+            "what_if", "approved_exclusions")
     result = {key: info.get(key) for key in keep}
     result.update(ok=True, rank=rank, dataset_id=int(dataset_id), seconds=round(time.perf_counter() - started, 3))
     return result
 
 
-def _app_context():
+def rank_summary(dataset_id: int, settings: dict[str, Any], user_id: int | None = None) -> dict | None:
+    """The component-choice table (``analysis.rank``) for the settings of a fit on
+    screen: the "Recommended" fit with the same preprocessing (cached like any fit)."""
+    from webapp.services import modelling
+
+    _, auto = modelling.get_model(int(dataset_id), {**settings, "components": "auto"}, user_id=user_id)
+    return auto.get("rank")
+
+
+def job_context():
     """The Flask app context a background job needs (it runs outside the request).
 
     The diskcache job manager forks the web process; a database pool inherited
@@ -458,7 +466,7 @@ def _sync(search, _clicks, applied, view_list, form_list):
 )
 def _run_fit(set_progress, applied, dataset_id):
     set_progress(1)
-    with _app_context():
+    with job_context():
         result = fit_summary(dataset_id, applied)
     set_progress(3)
     if not result["ok"]:
@@ -484,7 +492,7 @@ def fit_line(result: dict | None):
     rec = rank.get("recommended")
     recommendation = (
         html.Span(f"Recommended: {rec} component{'s' if rec != 1 else ''} (see Variance)", title=rank.get("rule", ""))
-        if rec else ""
+        if rec else "Recommendation: see Variance"
     )
     used = result["n_components"]
     source = (
@@ -494,9 +502,13 @@ def fit_line(result: dict | None):
     excluded = result.get("excluded") or []
     if excluded:
         shown = ", ".join(excluded[:20]) + (f" and {len(excluded) - 20} more" if len(excluded) > 20 else "")
+        # Approved exclusions (signed off, webapp.services.review) versus a what-if preview.
+        signed = not result.get("what_if")
+        label = "Left out by approved exclusions" if signed else "What-if preview, nothing recorded: left out"
         left_out = html.Div(
-            [html.Span(f"Left out of this fit ({len(excluded)}): {shown} "),
-             html.Button("Put them back", id=ids.SETTINGS_INCLUDE_ALL, n_clicks=0, className="ld-link-button")]
+            [html.Span(f"{label} ({len(excluded)}): {shown} "),
+             html.Button("Put them back", id=ids.SETTINGS_INCLUDE_ALL, n_clicks=0, className="ld-link-button",
+                         hidden=signed)]
         )
     else:
         left_out = html.Button("Put them back", id=ids.SETTINGS_INCLUDE_ALL, n_clicks=0, hidden=True)

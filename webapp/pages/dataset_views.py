@@ -19,16 +19,16 @@ from typing import Any
 import dash_ag_grid as dag
 import numpy as np
 import pandas as pd
-from dash import ALL, Input, Output, State, callback, clientside_callback, dcc, html, no_update
+from dash import ALL, Input, Output, Patch, State, callback, clientside_callback, dcc, html, no_update
 
 from analysis import diagnostics
 from webapp.ui import figures, ids
 
 LIMIT_LEVELS = (0.95, 0.99)
+EXPLORE_CACHE = "explore"  # HOME/cache/explore: metadata columns in model order
 OUTLIER_ROWS = 500  # the most extreme flagged samples listed with their top variables
 GRAPH_CONFIG = {
     "displaylogo": False,
-    "responsive": True,
     "toImageButtonOptions": {"format": "png", "scale": 2},
     "modeBarButtonsToRemove": ["autoScale2d"],
 }
@@ -42,8 +42,8 @@ CAUTION = (
 def _graph(graph_id: str) -> html.Div:
     return html.Div(
         [
-            dcc.Loading(dcc.Graph(id=graph_id, config=GRAPH_CONFIG, figure=figures.empty_figure("Fitting…")),
-                        delay_show=400, type="dot"),
+            # No loading overlay: it hides and re-shows the plot, which costs a WebGL redraw.
+            dcc.Graph(id=graph_id, config=GRAPH_CONFIG, figure=figures.empty_figure("Fitting…")),
             html.Div(
                 [html.Span("Save picture:", className="ld-muted"),
                  html.Button("PNG", id=ids.image_button(graph_id, "png"), n_clicks=0, className="ld-link-button"),
@@ -63,6 +63,7 @@ def tab_content(tab: str) -> list:
     """Components of one tab (only the open tab is in the page: at most three WebGL plots)."""
     if tab == "variance":
         return [
+            dcc.Store(id=ids.RANK_STORE),
             _graph(ids.GRAPH_VARIANCE),
             html.Div(id=ids.RANK_TABLE, className="ld-rank"),
             _graph(ids.GRAPH_VARIABLE_EXPLAINED),
@@ -94,7 +95,7 @@ def tab_content(tab: str) -> list:
                 style={"height": "520px"},
             ),
         ]
-    return [_graph(ids.GRAPH_SCORES)]
+    return [dcc.Store(id=ids.SCORE_DRAWN), _graph(ids.GRAPH_SCORES)]
 
 
 # ------------------------------------------------------------ plain parts
@@ -121,6 +122,25 @@ def _column(meta: pd.DataFrame, name: str | None):
     return meta[name].to_numpy(dtype=object)
 
 
+def training_column(result: dict, model, name: str | None):
+    """One metadata column in the model's sample order, kept on disk per model and
+    column (a recolour then reads a few kilobytes instead of the whole table)."""
+    if not name:
+        return None
+    import diskcache
+
+    from webapp.services.context import cache_folder
+
+    cache = diskcache.Cache(str(cache_folder() / EXPLORE_CACHE))
+    key = f"column:{result['fingerprint']}:{name}"
+    stored = cache.get(key)
+    if stored is not None:
+        return stored[0]
+    values = _column(_training_frame(result["dataset_id"], model), name)
+    cache.set(key, (values,))
+    return values
+
+
 def _picked(model, sample_id: str | None) -> list[int]:
     if not sample_id:
         return []
@@ -137,9 +157,68 @@ def ellipse_limits(n_samples: int) -> dict[float, float]:
     return {c: diagnostics.t2_limit(n_samples, 2, c) for c in LIMIT_LEVELS}
 
 
+def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None, shape: str | None,
+                 labels: bool, sample: str | None = None, drawn: dict | None = None):
+    """The score plot, or only what changed: (figure or dash.Patch, drawn state).
+
+    ``drawn`` describes the plot on screen. When it shows many samples of the
+    same model without shapes, a new colouring, axis pair or label switch is sent
+    as a Patch of the point trace (typed arrays: colour codes or coordinates)
+    instead of the whole figure; anything else draws the figure again.
+    """
+    if not result or not result.get("ok"):
+        return score_view(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=labels)[0], None
+    model, info = _model(result)
+    n_comp = model.scores_.shape[1]
+    x, y = int(pcx or 1) - 1, int(pcy or 2) - 1
+    state = {"model": info["fingerprint"], "pcx": pcx, "pcy": pcy, "colour": colour, "shape": shape,
+             "labels": bool(labels), "large": model.n_samples_ > figures.WEBGL_THRESHOLD,
+             "n_ellipses": len(LIMIT_LEVELS)}
+    patchable = (drawn and drawn.get("large") and drawn.get("model") == state["model"] and not shape
+                 and not drawn.get("shape") and n_comp >= 2 and max(x, y) < n_comp)
+    if not patchable:
+        fig, _ = score_view(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=labels, sample=sample)
+        first_legend = 1 + len(LIMIT_LEVELS) + 1
+        state["n_legend"] = max(0, len(fig.data) - first_legend) if state["large"] else 0
+        return fig, state if state["large"] and fig.data else None
+    patch = Patch()
+    state["n_legend"] = drawn.get("n_legend", 0)
+    if colour != drawn.get("colour"):
+        encoding = figures.score_colours(training_column(result, model, colour), colour)
+        for key, value in encoding["marker"].items():
+            if isinstance(value, np.ndarray):
+                value = figures.typed_array(value, "f4" if value.dtype == np.float32 else "f8")
+            patch["data"][0]["marker"][key] = value
+        first_legend = 1 + drawn["n_ellipses"] + 1
+        for i in reversed(range(first_legend, first_legend + drawn.get("n_legend", 0))):
+            del patch["data"][i]
+        for entry in encoding["legend"]:
+            patch["data"].append(entry.to_plotly_json())
+        patch["layout"]["legend"]["title"]["text"] = encoding["title"]
+        state["n_legend"] = len(encoding["legend"])
+    if (pcx, pcy) != (drawn.get("pcx"), drawn.get("pcy")):
+        axes = figures.score_axes(model.scores_, model.explained_variance_ratio_, x, y, model.eigenvalues_,
+                                  ellipse_limits(model.n_samples_), _picked(model, sample))
+        patch["data"][0]["x"] = figures.typed_array(axes["x"])
+        patch["data"][0]["y"] = figures.typed_array(axes["y"])
+        patch["data"][0]["hovertemplate"] = axes["hover"]
+        for i, (ex, ey) in enumerate(axes["ellipses"]):
+            patch["data"][1 + i]["x"] = figures.typed_array(ex)
+            patch["data"][1 + i]["y"] = figures.typed_array(ey)
+        picked = 1 + drawn["n_ellipses"]
+        patch["data"][picked]["x"] = list(axes["picked"][0])
+        patch["data"][picked]["y"] = list(axes["picked"][1])
+        for axis, title in (("xaxis", axes["xtitle"]), ("yaxis", axes["ytitle"])):
+            patch["layout"][axis]["title"]["text"] = title
+            patch["layout"][axis]["autorange"] = True
+    if bool(labels) != drawn.get("labels"):
+        patch["data"][0]["mode"] = "markers+text" if labels else "markers"
+    return patch, state
+
+
 def score_view(result: dict | None, *, pcx: int, pcy: int, colour: str | None, shape: str | None,
                labels: bool, sample: str | None = None):
-    """The score plot for a fit result and view settings; (figure, cache_hit)."""
+    """The whole score plot for a fit result and view settings; (figure, cache_hit)."""
     if not result or not result.get("ok"):
         return figures.empty_figure("No model yet: choose settings and press Fit model."), None
     model, info = _model(result)
@@ -151,13 +230,16 @@ def score_view(result: dict | None, *, pcx: int, pcy: int, colour: str | None, s
     if max(x, y) >= n_comp:
         return figures.empty_figure(f"The model has {n_comp} components: choose axes up to PC{n_comp}."), \
             info["cache_hit"]
-    meta = _training_frame(result["dataset_id"], model)
+    # hover shows metadata only for moderate sizes (figures.HOVER_METADATA_LIMIT)
+    meta = _training_frame(result["dataset_id"], model) if model.n_samples_ <= figures.HOVER_METADATA_LIMIT else None
     fig = figures.score_figure(
         model.scores_, model.explained_variance_ratio_, x=x, y=y, sample_ids=model.sample_ids_,
-        colour_values=_column(meta, colour), colour_name=colour, symbol_values=_column(meta, shape),
+        colour_values=training_column(result, model, colour), colour_name=colour,
+        symbol_values=training_column(result, model, shape),
         symbol_name=shape, labels=bool(labels), eigenvalues=model.eigenvalues_,
         t2_limits=ellipse_limits(model.n_samples_), metadata=meta, highlight=_picked(model, sample),
     )
+    fig.update_layout(meta={"model": info["fingerprint"]})  # which model a drawn plot shows
     return fig, info["cache_hit"]
 
 
@@ -173,10 +255,10 @@ def loading_view(result: dict | None, *, pcx: int, pcy: int, mode: str, colour: 
     if n_comp < 2 or max(x, y) >= n_comp:
         return figures.empty_figure(f"The model has {n_comp} component(s): choose axes up to PC{n_comp}.")
     if mode == "biplot":
-        meta = _training_frame(result["dataset_id"], model)
         return figures.biplot_figure(model.scores_, model.loadings_, model.eigenvalues_,
                                      model.explained_variance_ratio_, model.variable_names_, x=x, y=y,
-                                     sample_ids=model.sample_ids_, colour_values=_column(meta, colour),
+                                     sample_ids=model.sample_ids_,
+                                     colour_values=training_column(result, model, colour),
                                      colour_name=colour)
     return figures.loading_figure(model.loadings_, model.variable_names_, model.explained_variance_ratio_, x=x, y=y)
 
@@ -199,8 +281,7 @@ def diagnostics_view(result: dict | None, *, order: str | None, sample: str | No
         spe_limits[confidence] = model.spe_limit(confidence)
     picked = _picked(model, sample)
     ids_ = model.sample_ids_
-    meta = _training_frame(result["dataset_id"], model) if order else None
-    order_values = _column(meta, order) if meta is not None else None
+    order_values = training_column(result, model, order)
     both = figures.t2_spe_figure(model.t2_, model.spe_, t2_limits, spe_limits, sample_ids=ids_,
                                  confidence=confidence, highlight=picked)
     t2_chart = figures.control_chart_figure(model.t2_, t2_limits, name="Hotelling's T²", order=order_values,
@@ -210,13 +291,16 @@ def diagnostics_view(result: dict | None, *, order: str | None, sample: str | No
     return both, t2_chart, spe_chart
 
 
-def variance_view(result: dict | None):
-    """(scree figure, component-choice table, per-variable explained figure)."""
+def variance_view(result: dict | None, rank: dict | None = None):
+    """(scree figure, component-choice table, per-variable explained figure).
+
+    ``rank`` is the component-choice table computed on request for a fit with a
+    given number of components (a "Recommended" fit carries its own)."""
     if not result or not result.get("ok"):
         empty = figures.empty_figure("No model yet.")
         return empty, None, empty
     model, _ = _model(result)
-    rank = result.get("rank")
+    rank = result.get("rank") or rank
     n_comp = model.scores_.shape[1]
     if rank and rank.get("table"):
         rows = rank["table"]
@@ -227,8 +311,13 @@ def variance_view(result: dict | None):
         table = rank_table(rank)
     else:
         scree = figures.variance_figure(model.explained_variance_ratio_, chosen=n_comp)
-        table = html.P("The component-choice table is computed when the number of components is "
-                       "left at Recommended.", className="ld-muted")
+        table = html.Div([
+            html.P("The component-choice table (cross-validation, parallel analysis, broken stick) takes a "
+                   "while on large data, so it is computed when you ask.", className="ld-muted"),
+            html.Button("Compute the component-choice table", id=ids.RANK_BUTTON, n_clicks=0,
+                        className="ld-button ld-button-quiet"),
+            html.Span(id=ids.RANK_STATUS, className="ld-muted", role="status"),
+        ])
     per_variable = figures.variable_explained_figure(model.variable_names_, model.variable_explained_)
     return scree, table, per_variable
 
@@ -334,6 +423,7 @@ def selected_samples(event: dict | None) -> list[str]:
 # --------------------------------------------------------------- callbacks
 @callback(
     Output(ids.GRAPH_SCORES, "figure"),
+    Output(ids.SCORE_DRAWN, "data"),
     Input(ids.FIT_RESULT, "data"),
     Input(ids.VIEW_PCX, "value"),
     Input(ids.VIEW_PCY, "value"),
@@ -341,10 +431,11 @@ def selected_samples(event: dict | None) -> list[str]:
     Input(ids.VIEW_SHAPE, "value"),
     Input(ids.VIEW_LABELS, "value"),
     State(ids.VIEW_SAMPLE, "data"),
+    State(ids.SCORE_DRAWN, "data"),
 )
-def _scores(result, pcx, pcy, colour, shape, labels, sample):
-    fig, _ = score_view(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=bool(labels), sample=sample)
-    return fig
+def _scores(result, pcx, pcy, colour, shape, labels, sample, drawn):
+    return score_update(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=bool(labels), sample=sample,
+                        drawn=drawn)
 
 
 @callback(
@@ -376,9 +467,31 @@ def _diagnostics(result, order, sample):
     Output(ids.RANK_TABLE, "children"),
     Output(ids.GRAPH_VARIABLE_EXPLAINED, "figure"),
     Input(ids.FIT_RESULT, "data"),
+    Input(ids.RANK_STORE, "data"),
 )
-def _variance(result):
-    return variance_view(result)
+def _variance(result, rank):
+    if rank and result and rank.get("fingerprint") != result.get("fingerprint"):
+        rank = None  # computed for another fit
+    return variance_view(result, (rank or {}).get("rank"))
+
+
+@callback(
+    Output(ids.RANK_STORE, "data"),
+    Input(ids.RANK_BUTTON, "n_clicks"),
+    State(ids.FIT_RESULT, "data"),
+    background=True,
+    running=[(Output(ids.RANK_BUTTON, "disabled"), True, False),
+             (Output(ids.RANK_STATUS, "children"), " Computing…", "")],
+    prevent_initial_call=True,
+)
+def _rank(clicks, result):
+    from webapp.pages import dataset
+
+    if not clicks or not result or not result.get("ok"):
+        return no_update
+    with dataset.job_context():
+        rank = dataset.rank_summary(result["dataset_id"], result["settings"])
+    return {"fingerprint": result["fingerprint"], "rank": rank}
 
 
 @callback(

@@ -88,7 +88,8 @@ def report_view(report: dict) -> html.Div:
     ]
     if report.get("file_type") == "csv":
         facts += [_fact("Delimiter", _delimiter_name(report.get("delimiter"))),
-                  _fact("Decimal mark", report.get("decimal")),
+                  _fact("Decimal mark", {",": "comma ( , )", ".": "point ( . )"}.get(report.get("decimal"),
+                                                                                  report.get("decimal"))),
                   _fact("Encoding", report.get("encoding"))]
     else:
         facts.append(_fact("Sheet", report.get("sheet") or "first"))

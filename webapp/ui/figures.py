@@ -23,11 +23,13 @@ Westerhuis, J.A., Gurden, S.P., Smilde, A.K. (2000) Generalized contribution
 
 from __future__ import annotations
 
+import base64
 import html
 from collections.abc import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
+import plotly.colors as pcolors
 import plotly.graph_objects as go
 
 # Okabe, M., Ito, K. (2008) Color Universal Design: a colour-blind-safe set of eight.
@@ -106,9 +108,14 @@ def _as_float(values) -> np.ndarray:
 
 
 def _as_text(values, n: int) -> np.ndarray:
+    """Labels as an object array, escaped for Plotly (vectorised: 100,000 ids are common)."""
     if values is None:
-        return np.array([str(i + 1) for i in range(n)], dtype=object)
-    return np.array([plain(v) for v in values], dtype=object)
+        return np.arange(1, n + 1).astype(str).astype(object)
+    text = pd.Series(values, dtype=object).astype(str)
+    if text.str.contains("[<>&]", regex=True).any():
+        text = text.str.replace("&", "&amp;", regex=False).str.replace("<", "&lt;", regex=False).str.replace(
+            ">", "&gt;", regex=False)
+    return text.to_numpy(dtype=object)
 
 
 def is_numeric_column(values) -> bool:
@@ -119,6 +126,9 @@ def is_numeric_column(values) -> bool:
     present = series[series.notna() & (series.astype(str).str.strip() != "")]
     if present.empty:
         return False
+    # A text value among the first few settles it without converting every row.
+    if pd.to_numeric(present.iloc[:200], errors="coerce").isna().any():
+        return False
     numbers = pd.to_numeric(present, errors="coerce")
     if numbers.isna().any():
         return False
@@ -127,13 +137,11 @@ def is_numeric_column(values) -> bool:
 
 def _group_labels(values) -> tuple[np.ndarray, list[str]]:
     """Text label per point ('(missing)' for empty) and the group order."""
-    labels = []
-    for v in values:
-        if v is None or (isinstance(v, float) and np.isnan(v)) or str(v).strip() == "":
-            labels.append("(missing)")
-        else:
-            labels.append(str(v))
-    arr = np.array(labels, dtype=object)
+    series = pd.Series(values, dtype=object)
+    text = series.astype(str)
+    missing = series.isna().to_numpy() | (text.str.strip() == "").to_numpy()
+    arr = text.to_numpy(dtype=object)
+    arr[missing] = "(missing)"
     present = [g for g in pd.unique(arr) if g != "(missing)"]
     try:
         order = sorted(present, key=lambda g: float(g))
@@ -284,6 +292,10 @@ def score_figure(
     """
     t = np.asarray(scores, dtype=np.float64)
     n = t.shape[0]
+    if n > WEBGL_THRESHOLD:
+        return large_score_figure(t, explained_ratio, x=x, y=y, sample_ids=sample_ids, colour_values=colour_values,
+                                  colour_name=colour_name, symbol_values=symbol_values, symbol_name=symbol_name,
+                                  labels=labels, eigenvalues=eigenvalues, t2_limits=t2_limits, highlight=highlight)
     tx, ty = np.ascontiguousarray(t[:, x]), np.ascontiguousarray(t[:, y])
     ids = _as_text(sample_ids, n)
     rows = np.arange(n, dtype=np.int32)
@@ -369,6 +381,129 @@ def score_figure(
     fig.update_yaxes(title_text=component_label(y, explained_ratio), zeroline=True)
     # Legend above the plot: it never covers points and wraps on a narrow window.
     fig.update_layout(dragmode="select", clickmode="event",
+                      legend=dict(itemsizing="constant", orientation="h", x=0, y=1.01, yanchor="bottom"))
+    return fig
+
+
+# ------------------------------------------------- scores, many samples
+def typed_array(values, dtype: str = "f8") -> dict:
+    """A numpy array as a plotly.js typed-array spec (base64), for partial figure updates."""
+    arr = np.ascontiguousarray(values, dtype=np.dtype(dtype).newbyteorder("<"))
+    return {"dtype": dtype, "bdata": base64.b64encode(arr.tobytes()).decode("ascii")}
+
+
+def _legend_entry(name: str, colour: str, symbol: str = "circle", group: str | None = None) -> go.Scatter:
+    return go.Scatter(x=[None], y=[None], mode="markers", name=name, legendgroup=group,
+                      marker=dict(color=colour, size=8, symbol=symbol), hoverinfo="skip", showlegend=True)
+
+
+def _stepped_scale(colours: Sequence[str]) -> list:
+    """A colour scale of equal steps, one flat colour per integer code 0..k-1."""
+    k = len(colours)
+    scale = []
+    for i, c in enumerate(colours):
+        scale += [[i / k, c], [(i + 1) / k, c]]
+    return scale
+
+
+def score_colours(colour_values, colour_name: str | None) -> dict:
+    """Marker colour settings and legend entries of the point trace of a large score plot.
+
+    Groups become integer codes drawn through a stepped Okabe-Ito scale; numbers
+    use the continuous scale, with missing values drawn grey below its bottom.
+    Returns {"marker": dict, "legend": [traces], "title": str}.
+    """
+    if colour_values is None:
+        return {"marker": {"color": POINT_COLOUR, "showscale": False}, "legend": [], "title": ""}
+    title = plain(colour_name or "")
+    if is_numeric_column(colour_values):
+        numbers = pd.to_numeric(pd.Series(colour_values, dtype=object), errors="coerce").to_numpy(dtype=np.float64)
+        missing = np.isnan(numbers)
+        lo, hi = float(np.nanmin(numbers)), float(np.nanmax(numbers))
+        bar = dict(title=dict(text=title, side="right"), thickness=14, len=0.8)
+        if not missing.any():
+            return {"marker": {"color": numbers, "colorscale": CONTINUOUS_SCALE, "cmin": lo, "cmax": hi,
+                               "showscale": True, "colorbar": bar}, "legend": [], "title": ""}
+        floor = lo - 0.04 * ((hi - lo) or 1.0)
+        numbers = np.where(missing, floor, numbers)
+        steps = pcolors.get_colorscale(CONTINUOUS_SCALE)
+        cut = (lo - floor) / (hi - floor)
+        scale = [[0.0, MISSING_COLOUR], [cut * 0.999, MISSING_COLOUR]] + [
+            [cut + (1 - cut) * float(pos), colour] for pos, colour in steps]
+        return {"marker": {"color": numbers, "colorscale": scale, "cmin": floor, "cmax": hi, "showscale": True,
+                           "colorbar": bar},
+                "legend": [_legend_entry("(missing)", MISSING_COLOUR)], "title": ""}
+    labels, groups = _group_labels(colour_values)
+    colours = group_colours(groups)
+    codes = pd.Categorical(labels, categories=groups).codes.astype(np.float32)
+    return {"marker": {"color": codes, "colorscale": _stepped_scale([colours[g] for g in groups]), "cmin": -0.5,
+                       "cmax": len(groups) - 0.5, "showscale": False},
+            "legend": [_legend_entry(plain(g), colours[g]) for g in groups], "title": title}
+
+
+def score_axes(scores, explained_ratio, x: int, y: int, eigenvalues=None,
+               t2_limits: Mapping[float, float] | None = None, highlight: Sequence[int] = ()) -> dict:
+    """What changes with the plotted pair of components: point coordinates, hover
+    text, axis titles, the T2 ellipses (sorted by confidence) and the picked points."""
+    t = np.asarray(scores, dtype=np.float64)
+    tx, ty = np.ascontiguousarray(t[:, x]), np.ascontiguousarray(t[:, y])
+    ellipses = []
+    if t2_limits and eigenvalues is not None:
+        ev = _as_float(eigenvalues)
+        ellipses = [ellipse_points(t2_limits[c], ev[x], ev[y]) for c in sorted(t2_limits)]
+    h = np.asarray(list(highlight), dtype=np.int64)
+    h = h[(h >= 0) & (h < t.shape[0])]
+    return {
+        "x": tx, "y": ty, "picked": (tx[h], ty[h]), "ellipses": ellipses,
+        "xtitle": component_label(x, explained_ratio), "ytitle": component_label(y, explained_ratio),
+        "hover": "<b>%{text}</b><br>" + f"{component_label(x)}: " + "%{x:.3g}<br>" + f"{component_label(y)}: "
+                 + "%{y:.3g}<extra></extra>",
+    }
+
+
+def large_score_figure(scores, explained_ratio, *, x: int = 0, y: int = 1, sample_ids=None, colour_values=None,
+                       colour_name: str | None = None, symbol_values=None, symbol_name: str | None = None,
+                       labels: bool = False, eigenvalues=None, t2_limits: Mapping[float, float] | None = None,
+                       highlight: Sequence[int] = ()) -> go.Figure:
+    """Score plot for many samples: one WebGL trace coloured by per-point codes.
+
+    Trace order is fixed so a recolour or an axis change can be sent as a small
+    update (``score_colours`` / ``score_axes``): 0 the points, then one trace per
+    T2 ellipse, then the picked points, then the legend entries.
+    """
+    t = np.asarray(scores, dtype=np.float64)
+    n = t.shape[0]
+    ids = _as_text(sample_ids, n)
+    axes = score_axes(t, explained_ratio, x, y, eigenvalues, t2_limits, highlight)
+    colours = score_colours(colour_values, colour_name)
+    marker = dict(size=4, opacity=0.8, **colours["marker"])
+    legend = list(colours["legend"])
+    if symbol_values is not None:
+        sym_labels, symbol_groups = _group_labels(symbol_values)
+        sym_map = {g: SYMBOLS[i % len(SYMBOLS)] for i, g in enumerate(symbol_groups)}
+        marker["symbol"] = np.array([sym_map[s] for s in sym_labels], dtype=object)
+        legend += [_legend_entry(f"{plain(symbol_name or 'shape')}: {plain(g)}", "#5b6570", sym_map[g], "symbols")
+                   for g in symbol_groups]
+    fig = _base_figure(None, height=520)
+    fig.add_trace(go.Scattergl(x=axes["x"], y=axes["y"], mode="markers+text" if labels else "markers",
+                               text=ids, customdata=np.arange(n, dtype=np.int32), marker=marker,
+                               textposition="top center", textfont=dict(size=10, color="#3d4852"),
+                               hovertemplate=axes["hover"], showlegend=False, name="samples"))
+    for conf, (ex, ey) in zip(sorted(t2_limits or {}), axes["ellipses"]):
+        fig.add_trace(go.Scatter(x=ex, y=ey, mode="lines", name=f"T² {_confidence_text(conf)} limit",
+                                 line=dict(color="#5b6570", width=1.3, dash=_LIMIT_STYLES.get(conf, "dot")),
+                                 hoverinfo="skip", showlegend=True))
+    h = np.asarray(list(highlight), dtype=np.int64)
+    h = h[(h >= 0) & (h < n)]
+    fig.add_trace(go.Scatter(x=axes["picked"][0], y=axes["picked"][1], mode="markers", name="picked",
+                             customdata=h.astype(np.int32), text=ids[h], showlegend=False,
+                             marker=dict(size=15, color="rgba(0,0,0,0)", line=dict(color="#000000", width=2)),
+                             hovertemplate="<b>%{text}</b><extra>picked</extra>"))
+    for entry in legend:
+        fig.add_trace(entry)
+    fig.update_xaxes(title_text=axes["xtitle"], zeroline=True)
+    fig.update_yaxes(title_text=axes["ytitle"], zeroline=True)
+    fig.update_layout(dragmode="select", clickmode="event", legend_title_text=colours["title"],
                       legend=dict(itemsizing="constant", orientation="h", x=0, y=1.01, yanchor="bottom"))
     return fig
 
