@@ -277,9 +277,15 @@ def write_doc(rows: int, cols: int, results: dict, refs: dict) -> str:
         "to plotly.js, i.e. server work plus transfer. A recolour or an axis change of a large plot is "
         "sent as a partial update (colour codes or coordinates as typed arrays), never a refit. The rest "
         "of *Drawn* is plotly.js redrawing 100,000 WebGL points in a browser without a GPU (software "
-        "rendering); on a desktop with a graphics card that part is typically far shorter. Leaving "
+        "rendering; a machine with a graphics card was not measured). Leaving "
         "*Components* at *Recommended* adds the component-choice table (cross-validation, parallel "
         "analysis), which is not part of these figures.",
+        "",
+        "Verdict on this machine: fit to drawn plot "
+        f"{'meets' if fit <= FIT_TARGET else 'misses'} the {FIT_TARGET:g} s target; for a recolour and an axis "
+        f"change the data reach the browser {'within' if max(arr['colour'], arr['axis']) <= REDRAW_TARGET else 'outside'}"
+        f" {REDRAW_TARGET:g} s, and the drawn plot {'meets' if max(colour, axis) <= REDRAW_TARGET else 'misses'} "
+        f"the {REDRAW_TARGET:g} s target.",
         END,
     ]
     block = "\n".join(lines)
