@@ -277,3 +277,60 @@ def test_colour_and_shape_together_keep_a_plain_colour_legend():
     legend = [t for t in fig.data if t.showlegend is not False and t.name in set(species)]
     assert [t.marker.symbol for t in legend] == ["circle"] * 3
     assert [t.marker.color for t in legend] == OKABE_ITO_PUBLISHED[:3]
+
+
+def _decode(spec):
+    import base64
+
+    return np.frombuffer(base64.b64decode(spec["bdata"]), dtype=np.dtype(spec["dtype"]).newbyteorder("<"))
+
+
+def test_large_score_plot_has_a_fixed_trace_order_and_group_codes():
+    rng = np.random.default_rng(3)
+    n = F.WEBGL_THRESHOLD + 500
+    scores = rng.normal(size=(n, 3))
+    groups = rng.choice(["b", "a", "c"], size=n)
+    eig = scores.var(0, ddof=1)
+    limits = {0.95: 6.0, 0.99: 9.2}
+    fig = F.score_figure(scores, [0.5, 0.3, 0.2], colour_values=groups, colour_name="grp", eigenvalues=eig,
+                         t2_limits=limits, highlight=[7])
+    assert [t.name for t in fig.data] == ["samples", "T² 95% limit", "T² 99% limit", "picked", "a", "b", "c"]
+    main = fig.data[0]
+    assert isinstance(main, go.Scattergl) and main.showlegend is False
+    # codes follow the sorted group order and map onto the Okabe-Ito colours through a stepped scale
+    np.testing.assert_array_equal(np.asarray(main.marker.color), np.searchsorted(["a", "b", "c"], groups))
+    scale = [tuple(step) for step in main.marker.colorscale]
+    assert (scale[0][1], scale[2][1], scale[4][1]) == tuple(s.lower() for s in OKABE_ITO_PUBLISHED[:3]) or \
+        (scale[0][1], scale[2][1], scale[4][1]) == tuple(OKABE_ITO_PUBLISHED[:3])
+    assert (main.marker.cmin, main.marker.cmax) == (-0.5, 2.5)
+    assert list(fig.data[3].customdata) == [7]
+
+
+def test_large_numeric_colour_keeps_missing_values_grey():
+    values = np.linspace(0.0, 10.0, 40).astype(object)
+    values[3] = None
+    enc = F.score_colours(values, "temperature")
+    colour = enc["marker"]["color"]
+    assert colour[3] < enc["marker"]["cmin"] + 1e-12 and enc["marker"]["cmin"] < 0.0
+    assert enc["marker"]["colorscale"][0][1] == F.MISSING_COLOUR
+    assert [t.name for t in enc["legend"]] == ["(missing)"]
+    full = F.score_colours(np.linspace(0.0, 10.0, 40), "temperature")
+    assert full["marker"]["colorscale"] == F.CONTINUOUS_SCALE and full["legend"] == []
+
+
+def test_typed_array_round_trip():
+    values = np.array([1.5, -2.25, 3e-9])
+    spec = F.typed_array(values)
+    assert spec["dtype"] == "f8"
+    np.testing.assert_array_equal(_decode(spec), values)
+
+
+def test_score_axes_for_another_pair():
+    rng = np.random.default_rng(4)
+    scores = rng.normal(size=(50, 3))
+    axes = F.score_axes(scores, [0.5, 0.3, 0.2], 2, 0, scores.var(0, ddof=1), {0.95: 5.0}, [4])
+    np.testing.assert_array_equal(axes["x"], scores[:, 2])
+    assert axes["xtitle"] == "PC3 (20.0%)" and axes["ytitle"] == "PC1 (50.0%)"
+    assert axes["picked"][0].tolist() == [scores[4, 2]]
+    ex, ey = axes["ellipses"][0]
+    np.testing.assert_allclose(ex**2 / scores[:, 2].var(ddof=1) + ey**2 / scores[:, 0].var(ddof=1), 5.0)
