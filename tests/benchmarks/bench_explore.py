@@ -72,7 +72,7 @@ def invented_data(rows: int, cols: int, seed: int = 20261205) -> bytes:
     values = factors @ weights + rng.normal(scale=0.8, size=(rows, cols)) + 50.0
     frame = pd.DataFrame(values, columns=[f"v{j + 1:02d}" for j in range(cols)])
     frame.insert(0, "Line", rng.choice(["Line A", "Line B", "Line C", "Line D"], size=rows))
-    frame.insert(0, "Run", (np.arange(rows) // 250 + 1).astype(str))
+    frame.insert(0, "Run", [f"R{k:04d}" for k in np.arange(rows) // 250 + 1])
     frame.insert(0, "Sample", [f"S{i + 1:06d}" for i in range(rows)])
     buffer = io.StringIO()
     frame.to_csv(buffer, index=False, float_format="%.5g")

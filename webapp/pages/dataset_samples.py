@@ -95,7 +95,7 @@ def explain_view(result: dict | None, sample: str | None):
             html.P(info["sentence"], className="ld-sentence"),
             html.P(
                 f"T² {_fmt(info['t2'])} (limit {_fmt(info['t2_limit'])}) · SPE {_fmt(info['spe'])} "
-                f"(limit {_fmt(info['spe_limit'])}) at {level}: {figures.REGION_TEXT[region].lower()}.",
+                f"(limit {_fmt(info['spe_limit'])}) at {level}: {_lower_first(figures.REGION_TEXT[region])}.",
                 className="ld-stats"),
             dcc.Graph(id=ids.GRAPH_SPE_CONTRIB, config=SMALL_GRAPH,
                       figure=_small(figures.contribution_figure(
@@ -113,6 +113,10 @@ def explain_view(result: dict | None, sample: str | None):
                    "cannot reproduce, in scaled units.", className="ld-muted ld-small"),
         ]
     )
+
+
+def _lower_first(text: str) -> str:
+    return text[:1].lower() + text[1:]
 
 
 def _value_of(info: dict, variable: str) -> dict:

@@ -382,13 +382,13 @@ def outlier_rows(result: dict | None) -> tuple[list[dict], list[dict], str]:
             value = meta.iloc[i][col]
             row[f"meta: {col}"] = None if pd.isna(value) else str(value)
         rows.append(row)
-    number = {"type": "numericColumn", "filter": False, "minWidth": 92,
+    number = {"type": "numericColumn", "filter": False, "minWidth": 108,
               "valueFormatter": {"function": "d3.format('.3~g')(params.value)"}}
     columns = [{"field": "sample_id", "headerName": "Sample", "pinned": "left", "minWidth": 110},
                {"field": "region", "headerName": "Beyond", "minWidth": 150},
+               {"field": "top variables", "headerName": "Mainly because of", "minWidth": 260, "flex": 3},
                {"field": "T2", "headerName": "T²", **number}, {"field": "T2 / limit", "headerName": "T² / limit", **number},
-               {"field": "SPE", **number}, {"field": "SPE / limit", **number},
-               {"field": "top variables", "headerName": "Mainly because of", "minWidth": 260, "flex": 3}]
+               {"field": "SPE", **number}, {"field": "SPE / limit", **number}]
     columns += [{"field": f"meta: {c}", "headerName": str(c)} for c in meta.columns]
     level = f"{100 * confidence:g}%"
     note = (f"{flagged.size} of {model.n_samples_} samples are beyond the {level} T² or SPE limit "
