@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import argparse
 import io
+import os
 import platform
 import re
 import statistics
@@ -46,6 +47,7 @@ CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networki
 DOC = ROOT / "docs" / "performance.md"
 START, END = "<!-- explore-benchmark:start -->", "<!-- explore-benchmark:end -->"
 FIT_TARGET, REDRAW_TARGET = 5.0, 0.5
+LOAD_AT_START = 0.0
 
 PROBE = """
 () => {
@@ -252,7 +254,9 @@ def write_doc(rows: int, cols: int, results: dict, refs: dict) -> str:
         "",
         f"Measured by `tests/benchmarks/bench_explore.py` on {time.strftime('%Y-%m-%d')} "
         f"({platform.machine()}, {__import__('os').cpu_count()} cores, headless Chromium without GPU, "
-        f"werkzeug threaded server, diskcache background jobs). Data: {rows:,} x {cols} invented values "
+        f"werkzeug threaded server, diskcache background jobs; load average {LOAD_AT_START:.1f} at the start and "
+        f"{__import__('os').getloadavg()[0]:.1f} at the end: other jobs share the 2 cores). "
+        f"Data: {rows:,} x {cols} invented values "
         f"(five latent factors + noise). Median of {len(results['fit'])} rounds, browser clock from the click "
         "to the score plot's `plotly_afterplot` event.",
         "",
@@ -306,6 +310,8 @@ def main() -> int:
     parser.add_argument("--no-write", action="store_true", help="print only; leave docs/performance.md alone")
     args = parser.parse_args()
 
+    global LOAD_AT_START
+    LOAD_AT_START = os.getloadavg()[0]
     raw = invented_data(args.rows, args.cols)
     with tempfile.TemporaryDirectory(prefix="bench-explore-") as home:
         app, dataset_id, password = prepare(Path(home), raw)
