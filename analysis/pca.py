@@ -37,6 +37,8 @@ Nelson, P.R.C., Taylor, P.A., MacGregor, J.F. (1996) Missing data methods in
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 import pandas as pd
 
@@ -45,9 +47,11 @@ from analysis.errors import InputError
 from analysis.preprocessing import (
     SCALINGS,
     Preprocessor,
-    as_matrix,
+    block_buffer,
     block_rows,
     check_log10,
+    default_sample_ids,
+    row_label,
     scale_block,
     validated,
 )
@@ -89,6 +93,7 @@ class PCAModel:
     t2_, spe_ : ndarray (n,)              training-sample Hotelling's T2 and SPE
     variable_explained_ : ndarray (p,)    share of each variable's sum of squares explained
     sample_ids_, variable_names_, dropped_variables_, feature_names_in_ : list[str]
+                                          (default sample ids "1", "2", ... are built on first use)
     warnings_ : list[str]
     solver_ : str                         solver used ("imputation+..." with missing values)
     n_samples_, n_components_, n_missing_, n_iter_ : int
@@ -140,7 +145,7 @@ class PCAModel:
         if isinstance(a, bool) or not isinstance(a, (int, np.integer)) or a < 1:
             raise InputError(f"n_components={a!r} must be a whole number of at least 1")
         a = int(a)
-        values, ids, names, complete = validated(X, sample_ids, variable_names)
+        values, ids, names, complete, column_sums = validated(X, sample_ids, variable_names, default_ids=False)
         n = values.shape[0]
         if n < 2:
             raise InputError(f"at least 2 samples are needed, got {n}")
@@ -151,7 +156,9 @@ class PCAModel:
         solver = self.solver if self.solver != "auto" else ("xtx" if n >= p else "xxt")
         # Tall complete data: the centred cross-product comes out of the moments pass.
         fused = not n_missing and solver == "xtx" and self.scaling != "none"
-        prep = Preprocessor(self.scaling, self.log10, self.drop_constant).fit(values, ids, names, gram=fused)
+        prep = Preprocessor(self.scaling, self.log10, self.drop_constant).fit(
+            values, ids, names, gram=fused, column_sums=column_sums
+        )
         if prep.dropped_variables_:
             values = values[:, prep.keep_]
             if missing is not None:
@@ -160,10 +167,13 @@ class PCAModel:
         if n_missing:
             empty = np.flatnonzero(missing.all(axis=1))
             if empty.size:
-                raise InputError(f"sample(s) with no values: {', '.join(ids[i] for i in empty[:10])}")
+                raise InputError(f"sample(s) with no values: {', '.join(row_label(ids, i) for i in empty[:10])}")
 
         self.feature_names_in_ = names
-        self.sample_ids_ = ids
+        if ids is None:
+            self.__dict__.pop("sample_ids_", None)  # row numbers, built on first use
+        else:
+            self.sample_ids_ = ids
         self.variable_names_ = prep.variable_names_
         self.dropped_variables_ = prep.dropped_variables_
         self.warnings_ = list(prep.warnings_)
@@ -204,7 +214,9 @@ class PCAModel:
             scores = z @ loadings
             residual_ss = _residual_ss(z, scores, loadings, mask=mask)
         else:
-            scores, residual_ss = self._scores_and_spe_blocks(values, loadings)
+            scores, residual_ss = _scores_and_spe_blocks(
+                values, self._log_mask(), self.mean_, self.scale_, loadings, complete=True
+            )
         if a == rank:
             residual_ss[:] = 0.0  # nothing discarded: the training data are reproduced exactly
         eigenvalues = eig[:rank].copy()
@@ -224,6 +236,14 @@ class PCAModel:
         self.t2_ = diagnostics.hotelling_t2(scores, eigenvalues)
         self.spe_ = residual_ss
         return self
+
+    @functools.cached_property
+    def sample_ids_(self) -> list[str]:
+        """Training sample ids. Fitted without ids, the row numbers "1", "2", ... are built
+        here on first use (fit stores given ids directly, which this then never overrides)."""
+        if "n_samples_" not in self.__dict__:
+            raise AttributeError("sample_ids_ is set by fit")
+        return default_sample_ids(self.n_samples_)
 
     def _impute(self, z: np.ndarray, missing: np.ndarray, a: int, solver: str):
         """Iterative PCA imputation (Walczak & Massart 2001); returns completed, centred z."""
@@ -256,40 +276,13 @@ class PCAModel:
             self.mean_ = self.mean_ + shift * self.scale_
         return z, missing
 
-    def _scores_and_spe_blocks(self, values: np.ndarray, loadings: np.ndarray):
-        """Scores and SPE of complete training data, block by block (no full copy).
-
-        SPE = ||z||^2 - ||t||^2 (the loadings are orthonormal), recomputed from
-        the explicit residual for rows where that difference is small enough to
-        lose digits to cancellation.
-        """
-        n = values.shape[0]
-        scores = np.empty((n, loadings.shape[1]))
-        spe = np.empty(n)
-        log_mask = self._log_mask()
-        step = block_rows(values.shape[1])
-        buffer = np.empty((min(step, n), values.shape[1]))
-        for start in range(0, n, step):
-            raw = values[start : start + step]
-            stop = start + raw.shape[0]
-            block = scale_block(raw, log_mask, self.mean_, self.scale_, out=buffer[: raw.shape[0]])
-            t = np.matmul(block, loadings, out=scores[start:stop])
-            total = np.einsum("ij,ij->i", block, block)
-            q = total - np.einsum("ia,ia->i", t, t)
-            fragile = q < CANCELLATION_GUARD * total
-            if fragile.any():
-                e = block[fragile] - t[fragile] @ loadings.T
-                q[fragile] = np.einsum("ij,ij->i", e, e)
-            spe[start:stop] = q
-        return scores, spe
-
     # ------------------------------------------------------------- new data
     def _log_mask(self) -> np.ndarray:
         log10 = [self.log10] if isinstance(self.log10, str) else [str(v) for v in self.log10]
         return np.isin(np.asarray(self.variable_names_, dtype=object), log10)
 
-    def _matrix(self, X) -> tuple[np.ndarray, list[str]]:
-        """Raw values of X in the model's variable order, and sample ids."""
+    def _matrix(self, X) -> tuple[np.ndarray, list[str] | None, bool]:
+        """Raw values of X in the model's variable order, sample ids (None for arrays) and completeness."""
         if isinstance(X, pd.Series):
             X = X.to_frame().T
         if isinstance(X, pd.DataFrame):
@@ -299,8 +292,8 @@ class PCAModel:
                 raise InputError(f"variable(s) missing from the data: {', '.join(absent[:10])}")
             label = dict(zip(columns, X.columns))
             frame = X[[label[v] for v in self.variable_names_]]
-            values, ids, _ = as_matrix(frame, variable_names=self.variable_names_)
-            return values, ids
+            values, ids, _, complete, _ = validated(frame, variable_names=self.variable_names_)
+            return values, ids, complete
         values = np.asarray(X, dtype=np.float64) if not isinstance(X, np.ndarray) else X
         if values.ndim == 1:
             values = values[None, :]
@@ -312,73 +305,38 @@ class PCAModel:
                 + (f" (or the {p_input} it was fitted on)" if p_input != p_model else "")
             )
         names = self.variable_names_ if values.shape[1] == p_model else self.feature_names_in_
-        values, ids, _ = as_matrix(values, variable_names=names, default_ids=False)
+        values, ids, _, complete, _ = validated(values, variable_names=names, default_ids=False)
         if values.shape[1] != p_model:
             keep = [names.index(v) for v in self.variable_names_]
             values = values[:, keep]
-        return values, ids
+            complete = complete or not np.isnan(values).any()
+        return values, ids, complete
 
     def _one_row(self, x) -> np.ndarray:
         if isinstance(x, pd.DataFrame) and len(x) != 1:
             raise InputError(f"expected one sample, got {len(x)}")
-        values, _ = self._matrix(x)
+        values, _, _ = self._matrix(x)
         if values.shape[0] != 1:
             raise InputError(f"expected one sample, got {values.shape[0]}")
         return values
 
     def preprocess(self, X) -> np.ndarray:
         """log10, centring and scaling learned at fit, applied to X (NaN kept) -> (m, p)."""
-        values, ids = self._matrix(X)
+        values, ids, _ = self._matrix(X)
         log_mask = self._log_mask()
         check_log10(values, log_mask, ids, self.variable_names_)
         return scale_block(values, log_mask, self.mean_, self.scale_)
 
     def _scores_of(self, z: np.ndarray) -> np.ndarray:
         """Scores of preprocessed rows; incomplete rows by projection to the model plane."""
-        p = self.loadings_
-        if np.isfinite(z.sum()):
-            return z @ p
-        missing = np.isnan(z)
-        incomplete = missing.any(axis=1)
-        scores = np.empty((z.shape[0], p.shape[1]))
-        complete = ~incomplete
-        scores[complete] = z[complete] @ p
-        if incomplete.any():
-            patterns, inverse = np.unique(missing[incomplete], axis=0, return_inverse=True)
-            rows = np.flatnonzero(incomplete)
-            for k, pattern in enumerate(patterns):
-                obs = ~pattern
-                if not obs.any():
-                    raise InputError("a sample with no values cannot be scored")
-                members = rows[inverse.ravel() == k]
-                # Nelson, Taylor & MacGregor (1996): t = (P_o'P_o)^+ P_o' z_o.
-                sol, *_ = np.linalg.lstsq(p[obs], z[np.ix_(members, obs)].T, rcond=None)
-                scores[members] = sol.T
-        return scores
+        return _project(z, self.loadings_)
 
     def _scores_and_spe(self, X) -> tuple[np.ndarray, np.ndarray]:
         """Scores (m, A) and SPE (m,) of new samples, computed in row blocks (no full copy)."""
-        values, ids = self._matrix(X)
+        values, ids, complete = self._matrix(X)
         log_mask = self._log_mask()
-        m = values.shape[0]
-        scores = np.empty((m, self.n_components_))
-        spe = np.zeros(m)
-        full_span = self.n_components_ == len(self.variable_names_)
         check_log10(values, log_mask, ids, self.variable_names_)
-        step = block_rows(values.shape[1])
-        buffer = np.empty((min(step, m), values.shape[1]))
-        for start in range(0, m, step):
-            stop = min(start + step, m)
-            z = scale_block(values[start:stop], log_mask, self.mean_, self.scale_, out=buffer[: stop - start])
-            t = self._scores_of(z)
-            scores[start:stop] = t
-            if not full_span:  # with every direction in the model the residual is 0
-                z -= t @ self.loadings_.T
-                if np.isfinite(z.sum()):
-                    spe[start:stop] = np.einsum("ij,ij->i", z, z)
-                else:
-                    spe[start:stop] = diagnostics.spe_contributions(z).sum(axis=1)
-        return scores, spe
+        return _scores_and_spe_blocks(values, log_mask, self.mean_, self.scale_, self.loadings_, complete)
 
     def transform(self, X) -> np.ndarray:
         """Scores (m, A) of new samples; incomplete rows by projection to the model plane."""
@@ -465,13 +423,80 @@ class _Decomposition:
         self.column_ss = column_ss
 
 
+def _project(z: np.ndarray, loadings: np.ndarray) -> np.ndarray:
+    """Scores of preprocessed rows z; incomplete rows by projection to the model plane."""
+    if np.isfinite(z.sum()):
+        return z @ loadings
+    missing = np.isnan(z)
+    incomplete = missing.any(axis=1)
+    scores = np.empty((z.shape[0], loadings.shape[1]))
+    complete = ~incomplete
+    scores[complete] = z[complete] @ loadings
+    if incomplete.any():
+        patterns, inverse = np.unique(missing[incomplete], axis=0, return_inverse=True)
+        rows = np.flatnonzero(incomplete)
+        for k, pattern in enumerate(patterns):
+            obs = ~pattern
+            if not obs.any():
+                raise InputError("a sample with no values cannot be scored")
+            members = rows[inverse.ravel() == k]
+            # Nelson, Taylor & MacGregor (1996): t = (P_o'P_o)^+ P_o' z_o.
+            sol, *_ = np.linalg.lstsq(loadings[obs], z[np.ix_(members, obs)].T, rcond=None)
+            scores[members] = sol.T
+    return scores
+
+
+def _scores_and_spe_blocks(values, log_mask, mean, scale, loadings, complete: bool):
+    """Scores (m, A) and SPE (m,) of raw rows, one row block at a time in one reused buffer.
+
+    Complete blocks: t = zP and SPE = ||z||^2 - ||t||^2 (P has orthonormal
+    columns), recomputed from the explicit residual z - tP' for rows where
+    that difference would lose digits to cancellation. Incomplete rows:
+    scores by projection to the model plane, SPE over the observed variables.
+    With as many components as variables the residual is 0.
+    """
+    m, p = values.shape
+    a = loadings.shape[1]
+    scores = np.empty((m, a))
+    spe = np.zeros(m)
+    step = block_rows(p)
+    buffer = block_buffer(values, step)
+    for start in range(0, m, step):
+        raw = values[start : start + step]
+        stop = start + raw.shape[0]
+        z = scale_block(raw, log_mask, mean, scale, out=buffer[: raw.shape[0]])
+        if complete or np.isfinite(z.sum()):
+            t = np.matmul(z, loadings, out=scores[start:stop])
+            if a < p:
+                spe[start:stop] = _residual_norms(z, t, loadings)
+        else:
+            t = scores[start:stop] = _project(z, loadings)
+            if a < p:
+                z -= t @ loadings.T
+                spe[start:stop] = diagnostics.spe_contributions(z).sum(axis=1)
+    return scores, spe
+
+
+def _residual_norms(z: np.ndarray, t: np.ndarray, loadings: np.ndarray) -> np.ndarray:
+    """||z - tP'||^2 per row as ||z||^2 - ||t||^2, explicit where fewer than 4 digits would survive."""
+    total = np.einsum("ij,ij->i", z, z)
+    q = total - np.einsum("ia,ia->i", t, t)
+    fragile = q < CANCELLATION_GUARD * total
+    if fragile.any():
+        e = z[fragile] - t[fragile] @ loadings.T
+        q[fragile] = np.einsum("ij,ij->i", e, e)
+    return q
+
+
 def _decompose_xtx_blocks(values, log_mask, mean, scale) -> _Decomposition:
-    """Eigendecomposition of Z'Z accumulated over row blocks of the preprocessed data."""
+    """Eigendecomposition of Z'Z accumulated over row blocks of the preprocessed data (one reused buffer)."""
     n, p = values.shape
     step = block_rows(p)
+    buffer = block_buffer(values, step)
     gram = np.zeros((p, p))
     for start in range(0, n, step):
-        block = scale_block(values[start : start + step], log_mask, mean, scale)
+        raw = values[start : start + step]
+        block = scale_block(raw, log_mask, mean, scale, out=buffer[: raw.shape[0]])
         gram += block.T @ block
     return _from_gram_features(gram, n)
 
