@@ -63,6 +63,10 @@ def test_analyst_proposes_reviewer_signs_log_shows_both(demo_server, new_page):
     _box_select_high_spe(analyst, above=15)
     expect(analyst.locator(f"#{ids.SELECTION_PANEL}")).to_contain_text("2 samples selected")
     expect(analyst.locator(f"#{ids.SELECTION_PANEL}")).to_contain_text(", ".join(PLANTED))
+    # The link is rebuilt by its own callback after the selection changes: wait for it.
+    for sample in PLANTED:
+        expect(analyst.locator("#review-propose-link")).to_have_attribute(
+            "href", re.compile(rf"sample={re.escape(sample)}"))
     analyst.click("#review-propose-link")
     analyst.wait_for_url("**/review/propose?**")
     assert all(f"sample={s}" in analyst.url for s in PLANTED), analyst.url

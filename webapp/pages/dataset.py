@@ -19,6 +19,7 @@ from typing import Any
 
 import dash
 from dash import Input, Output, State, callback, ctx, dcc, html, no_update
+from dash.exceptions import PreventUpdate
 from flask import has_app_context
 from flask_login import current_user
 
@@ -424,9 +425,15 @@ _FORM_FIELDS = [
         applied=Input(ids.SETTINGS_APPLIED, "data"),
         view_list=[Input(cid, prop) for cid, prop, _ in _VIEW_INPUTS],
         form_list=[State(cid, "value") for cid, _ in _FORM_FIELDS],
+        pathname=State(ids.DATASET_LOCATION, "pathname"),
+        dataset_id=State(ids.DATASET_ID, "data"),
     ),
 )
-def _sync(search, _clicks, applied, view_list, form_list):
+def _sync(search, _clicks, applied, view_list, form_list, pathname, dataset_id):
+    if pathname != url_state.dataset_url(dataset_id):
+        # A link to another page changed the address while this page is still mounted:
+        # its query string is that page's, not this view's state.
+        raise PreventUpdate
     view = {key: value for (_, _, key), value in zip(_VIEW_INPUTS, view_list)}
     form = {key: value for (_, key), value in zip(_FORM_FIELDS, form_list)}
     state, notes, set_controls = sync_state(ctx.triggered_id, search, view, applied, form)
