@@ -24,7 +24,12 @@ CHROMIUM = "/usr/bin/chromium"
 CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking",
                  "--disable-component-update", "--disable-sync", "--no-first-run"]
 IN_CI = os.environ.get("CI", "").lower() == "true"
-SCREENSHOTS = Path(__file__).resolve().parents[2] / "docs" / "images"
+# Screenshots land in test-results/screenshots/; set LATENTDESK_DOC_IMAGES=1 to refresh the
+# pictures of the user guide in docs/images/ instead (look at them before committing).
+_ROOT = Path(__file__).resolve().parents[2]
+SCREENSHOTS = (_ROOT / "docs" / "images" if os.environ.get("LATENTDESK_DOC_IMAGES") == "1"
+               else _ROOT / "test-results" / "screenshots")
+SCREENSHOTS.mkdir(parents=True, exist_ok=True)
 
 
 def pytest_collection_modifyitems(items):

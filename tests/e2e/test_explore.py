@@ -3,7 +3,7 @@
 Sign in, open the lab demo dataset, fit, colour by a group, click an outlier and read
 its explanation, box-select, download CSV, reload and go back (the URL holds the view),
 and check the upload page's intake report. Screenshots at 1280x800 and at a narrow
-width are saved into docs/images/ for the user guide.
+width are saved for the user guide (docs/images/ with LATENTDESK_DOC_IMAGES=1).
 """
 
 from __future__ import annotations

@@ -1,6 +1,6 @@
 """End to end in headless Chromium: sign in through the form, see the demo
 datasets, upload a file, see a bad file refused with the intake's message,
-sign out. Screenshots go to docs/images/."""
+sign out. Screenshots: see SCREENSHOTS in conftest."""
 
 from __future__ import annotations
 

@@ -1,7 +1,7 @@
 """End to end in headless Chromium: an analyst selects the demo's two out-of-model
 batches on the dataset page and proposes excluding them, a reviewer signs in another
 browser context, and the log page shows both actions with names and times.
-Screenshots go to docs/images/.
+Screenshots: see SCREENSHOTS in tests/e2e/conftest.py.
 
 The planted anomalies are those of the invented demo data (docs/scenarios.md, step 3).
 """
