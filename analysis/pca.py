@@ -204,7 +204,7 @@ class PCAModel:
             self.solver_ = solver
 
         eig = fit.eigenvalues
-        rank = _numerical_rank(eig, n, p, centred=self.scaling != "none")
+        rank = numerical_rank(eig, n, p, centred=self.scaling != "none")
         if a > rank:
             raise InputError(
                 f"n_components={a} exceeds the rank of the preprocessed data ({rank} components allowed)"
@@ -530,12 +530,14 @@ def _decompose_full(z: np.ndarray, solver: str) -> _Decomposition:
     return _Decomposition(w / (n - 1), loadings, total_ss, column_ss)
 
 
-def _numerical_rank(eigenvalues: np.ndarray, n: int, p: int, centred: bool) -> int:
+def numerical_rank(eigenvalues: np.ndarray, n: int, p: int, centred: bool = True) -> int:
     """Components above rounding level: lambda > lambda_max * 10 * max(n, p) * eps.
 
-    The Gram-matrix solvers resolve eigenvalues only to a few times
-    eps * lambda_max, so the same tolerance is used on every solver to give
-    the same count (common practice; cf. numpy.linalg.matrix_rank).
+    ``eigenvalues`` descending, of data with n rows and p columns (``centred``:
+    one degree of freedom went to the mean). The Gram-matrix solvers resolve
+    eigenvalues only to a few times eps * lambda_max, so the same tolerance is
+    used on every solver, and by analysis.rank, to give the same count
+    (common practice; cf. numpy.linalg.matrix_rank).
     """
     if eigenvalues.size == 0 or eigenvalues[0] <= 0:
         return 0

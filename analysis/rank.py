@@ -54,6 +54,7 @@ import pandas as pd
 from scipy import linalg
 
 from analysis.errors import InputError
+from analysis.pca import numerical_rank
 from analysis.preprocessing import Preprocessor, as_matrix, scale_block
 
 MAX_COMPONENTS = 20
@@ -193,7 +194,7 @@ def rank_table(Z, scaling, max_components=MAX_COMPONENTS, random_state=0) -> Ran
     eigenvalues = data_eigenvalues(imputed, max_components)
     total = float(np.einsum("ij,ij->", imputed, imputed)) / max(n - 1, 1)
     del imputed
-    rank = _numerical_rank(eigenvalues, Z.shape, centred=scaling != "none")
+    rank = numerical_rank(eigenvalues, n, p, centred=scaling != "none")
     n_rows = min(max_components, rank)
     if n_rows < 1:
         raise InputError("the data have no variance left after preprocessing; no component can be fitted")
@@ -316,16 +317,6 @@ def _top_eigh(gram: np.ndarray, k: int, vectors: bool = False):
         return linalg.eigh(gram, eigvals_only=True, subset_by_index=wanted, driver="evr")[::-1], None
     values, vecs = linalg.eigh(gram, subset_by_index=wanted, driver="evr")
     return values[::-1], vecs[:, ::-1]
-
-
-def _numerical_rank(eigenvalues: np.ndarray, shape=None, centred=True) -> int:
-    """Components above rounding level, lambda > lambda_max * max(n, p) * eps (as PCAModel counts)."""
-    if eigenvalues.size == 0 or eigenvalues[0] <= 0:
-        return 0
-    n, p = shape if shape is not None else (eigenvalues.size, eigenvalues.size)
-    tolerance = eigenvalues[0] * max(n, p) * np.finfo(float).eps
-    rank = int(np.count_nonzero(eigenvalues > tolerance))
-    return min(rank, n - 1 if centred else n, p)
 
 
 def parallel_analysis(
@@ -499,7 +490,7 @@ def _fold_loadings(centred: np.ndarray, n_components: int) -> np.ndarray:
         keep = values > 0
         vectors = np.zeros((p, values.size))
         vectors[:, keep] = (centred.T @ left[:, keep]) / np.sqrt(values[keep])
-    kept = min(n_components, _numerical_rank(np.clip(values, 0.0, None), centred.shape))
+    kept = min(n_components, numerical_rank(np.clip(values, 0.0, None), n, p))
     return vectors[:, :kept]
 
 

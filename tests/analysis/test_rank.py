@@ -295,3 +295,25 @@ def test_uncentred_scaling_cross_validates_without_centring():
                 press[1] += (x[j] - vt[0, j] * t[0]) ** 2
     cv, _ = ekf_cross_validation(Z, 1, random_state=0, centre=False)
     np.testing.assert_allclose(cv, 1 - press[1:] / press[0], rtol=1e-9)
+
+
+def test_rank_table_and_model_share_one_rank_tolerance():
+    # One tolerance, lambda > lambda_max * 10 * max(n, p) * eps (common practice; cf.
+    # numpy.linalg.matrix_rank), in analysis.pca.numerical_rank; the table may not offer a
+    # component count that PCAModel then refuses. The last eigenvalue sits at 5x the unit
+    # rounding level: above max(n, p) * eps, below 10 * max(n, p) * eps.
+    from analysis.pca import PCAModel
+
+    rng = np.random.default_rng(8)
+    n, p = 200, 5
+    centred = rng.standard_normal((n, p))
+    centred -= centred.mean(axis=0)
+    basis = np.linalg.qr(centred)[0]  # orthonormal columns with mean 0: centring keeps the spectrum
+    ratio = 5 * max(n, p) * np.finfo(float).eps
+    singular = np.sqrt(np.array([1.0, 0.5, 0.25, 0.1, ratio]))
+    X = basis * singular @ np.linalg.qr(rng.standard_normal((p, p)))[0]
+    table = rank_table(X - X.mean(axis=0), "center").table
+    assert len(table) == 4
+    assert PCAModel(4, scaling="center").fit(X).eigenvalues_.size == 4
+    with pytest.raises(InputError, match="rank"):
+        PCAModel(5, scaling="center").fit(X)
