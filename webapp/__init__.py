@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import importlib
 import importlib.util
+import sys
 from pathlib import Path
 from typing import Any, Mapping
 
@@ -41,6 +42,15 @@ def _security_headers(response):
     return response
 
 
+def _assets_folder() -> Path:
+    """The CSS and icons: the checkout's top-level assets/, or the copy a non-editable
+    install puts under <prefix>/share/latentdesk/assets (pyproject data-files)."""
+    for folder in (PACKAGE.parent / "assets", Path(sys.prefix) / "share" / "latentdesk" / "assets"):
+        if folder.is_dir():
+            return folder
+    raise RuntimeError("LatentDesk's assets folder is missing; reinstall the package")
+
+
 def _mount_dash(server: Flask) -> None:
     import dash
 
@@ -52,7 +62,7 @@ def _mount_dash(server: Flask) -> None:
         server=server,
         use_pages=True,
         pages_folder=str(PACKAGE / "pages"),
-        assets_folder=str(PACKAGE / "assets"),
+        assets_folder=str(_assets_folder()),
         url_base_pathname="/",
         suppress_callback_exceptions=True,
         background_callback_manager=jobs.make_manager(server.config),
