@@ -253,6 +253,10 @@ def model_from_dict(document) -> PCAModel:
     if np.any(scale <= 0):
         raise ModelFileError("preprocessing 'scale' must be positive")
     scaling = _require(prep, "scaling", str, "preprocessing ")
+    sd = _vector(prep, "sd", p, "preprocessing ", allow_none=True)  # explain_sample's SD units
+    implied = {"autoscale": scale, "pareto": scale**2}.get(scaling)
+    if np.any(sd < 0) or (implied is not None and not np.allclose(sd, implied, rtol=1e-12, atol=0.0)):
+        raise ModelFileError(f"preprocessing 'sd' must be non-negative and agree with 'scale' ({scaling})")
     log10 = _names(prep, "log10")
     unknown = [v for v in log10 if v not in variables]
     if unknown:
@@ -284,7 +288,7 @@ def model_from_dict(document) -> PCAModel:
     model.warnings_ = _names(document, "warnings")
     model.mean_ = mean
     model.scale_ = scale
-    model.sd_ = _vector(prep, "sd", p, "preprocessing ", allow_none=True)
+    model.sd_ = sd
     model.n_samples_ = n
     model.n_missing_ = _require(document, "n_missing", int)
     model.n_iter_ = 0

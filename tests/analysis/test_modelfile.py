@@ -217,3 +217,28 @@ def test_dataframe_columns_are_matched_by_name_after_loading(tmp_path, wine):
     shuffled = wine[list(reversed(wine.columns))]
     np.testing.assert_array_equal(load_model(tmp_path / "m.json").transform(shuffled), model.transform(wine))
     assert isinstance(shuffled, pd.DataFrame)
+
+
+@pytest.mark.parametrize("scaling", ["autoscale", "pareto", "center", "none"])
+def test_loaded_model_keeps_the_training_sd(tmp_path, wine, scaling):
+    # explain_sample states values in SD units of the training data, so a loaded model needs sd_:
+    # the SD with ddof=1 (numpy.std) of each variable after log10, whatever the scaling.
+    original = PCAModel(n_components=2, scaling=scaling, log10=["proline"]).fit(wine)
+    save_model(original, tmp_path / "m.json")
+    loaded = load_model(tmp_path / "m.json")
+    expected = wine.to_numpy().std(axis=0, ddof=1)
+    expected[list(wine.columns).index("proline")] = np.log10(wine["proline"]).std(ddof=1)
+    np.testing.assert_allclose(original.sd_, expected, rtol=1e-12)
+    np.testing.assert_array_equal(loaded.sd_, original.sd_)
+    row = wine.iloc[[7]]
+    assert explain_sample(loaded, row) == explain_sample(original, row)
+
+
+def test_missing_or_inconsistent_sd_is_refused(document):
+    with pytest.raises(ModelFileError, match="missing key preprocessing 'sd'"):
+        model_from_dict(_broken(document, lambda d: d["preprocessing"].pop("sd")))
+    with pytest.raises(ModelFileError, match="'sd' must be non-negative and agree with 'scale'"):
+        model_from_dict(_broken(document, lambda d: d["preprocessing"]["sd"].__setitem__(0, -1.0)))
+    # Autoscaled: the divisor is the SD, so a changed SD means a changed file.
+    with pytest.raises(ModelFileError, match=r"agree with 'scale' \(autoscale\)"):
+        model_from_dict(_broken(document, lambda d: d["preprocessing"]["sd"].__setitem__(3, 2.0)))
