@@ -323,3 +323,24 @@ def test_failed_fit_leaves_the_model_unchanged():
             np.testing.assert_array_equal(model.__dict__[key], value)
         else:
             assert model.__dict__[key] == value
+
+
+def test_memory_layout_and_ids_do_not_change_the_fit():
+    # Row-major, column-major (what pandas hands out) and DataFrame input are the same data; a refit
+    # without ids names rows by number again. New-sample SPE against the explicit residual z - zPP'
+    # (Jolliffe 2002, section 10.1) computed with numpy, with means far larger than the SDs.
+    rng = np.random.default_rng(31)
+    X = rng.standard_normal((900, 7)) @ rng.standard_normal((7, 7)) + [1e6, 0, 5, -30, 0, 1e3, 2]
+    model = PCAModel(n_components=3).fit(X, sample_ids=[f"r{i}" for i in range(900)])
+    assert model.sample_ids_[:2] == ["r0", "r1"]
+    model.fit(X)
+    assert model.sample_ids_[:2] == ["1", "2"]
+    for same in (np.asfortranarray(X), pd.DataFrame(X, columns=[f"x{j + 1}" for j in range(7)])):
+        other = PCAModel(n_components=3).fit(same)
+        np.testing.assert_allclose(other.eigenvalues_, model.eigenvalues_, rtol=1e-12)
+        np.testing.assert_allclose(other.scores_, model.scores_, rtol=0, atol=1e-9)
+        np.testing.assert_allclose(other.spe_, model.spe_, rtol=1e-9)
+    new = X[:50] * rng.uniform(0.99, 1.01, size=(50, 7))
+    Z = (new - X.mean(axis=0)) / X.std(axis=0, ddof=1)
+    P = model.loadings_
+    np.testing.assert_allclose(model.spe(new), np.sum((Z - Z @ P @ P.T) ** 2, axis=1), rtol=1e-9)
