@@ -13,8 +13,8 @@ from typing import Any, Mapping
 
 from webapp.accounts import user_line
 from webapp.config import load_config
-from webapp.store import make_engine, migrate
-from webapp.store.engine import database_url
+from webapp.store import datasets, files, make_engine, migrate
+from webapp.store.engine import database_url, engine_session
 
 # Invented demo accounts: (name, role, printed name).
 DEMO_USERS = (
@@ -49,11 +49,17 @@ def _gunicorn(overrides: Mapping[str, Any], host: str, port: int, workers: int, 
 
 
 def _prepare(overrides: Mapping[str, Any]) -> None:
-    """Check the configuration (ConfigError names the problem) and migrate once."""
+    """Check the configuration (ConfigError names the problem), migrate once and
+    sweep upload files left unrecorded by a killed process."""
     config = load_config(overrides)
     engine = make_engine(database_url(config))
     try:
         migrate(engine)
+        with engine_session(engine) as session:
+            recorded = datasets.all_sha256(session)
+        removed = files.remove_unrecorded(config["HOME"], recorded)
+        if removed:
+            print(f"removed {len(removed)} upload file(s) that no dataset records", flush=True)
     finally:
         engine.dispose()
 

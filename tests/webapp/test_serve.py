@@ -90,3 +90,20 @@ def test_serve_without_a_secret_key_says_so(tmp_path):
     )
     assert result.returncode == 2
     assert "LATENTDESK_SECRET_KEY is not set" in result.stderr and "Traceback" not in result.stderr
+
+
+def test_start_up_sweeps_upload_files_no_dataset_records(tmp_path, capsys):
+    # A process killed between writing an upload and committing its row leaves a complete but
+    # unrecorded file; the next start removes it, sparing files younger than an hour.
+    from webapp import serve
+    from webapp.store import files
+
+    home = tmp_path / "home"
+    stray = files.store_bytes(home, b"sample,x,y\na,1,2\n")
+    fresh = files.store_bytes(home, b"sample,x,y\nb,3,4\n")
+    old = time.time() - 2 * 3600
+    os.utime(files.absolute_path(home, stray.stored_path), (old, old))
+    serve._prepare({"HOME": str(home), "SECRET_KEY": "sweep-test"})
+    assert not files.absolute_path(home, stray.stored_path).exists()
+    assert files.absolute_path(home, fresh.stored_path).exists()
+    assert "removed 1 upload file(s)" in capsys.readouterr().out

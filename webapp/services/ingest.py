@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import time
 from contextlib import contextmanager
 from pathlib import Path, PurePosixPath, PureWindowsPath
 from typing import Any, Iterator
@@ -195,26 +194,10 @@ def _remove_unreferenced_blob(sha256: str) -> None:
 
 
 def remove_orphan_files(min_age_seconds: float = 3600.0) -> list[str]:
-    """Delete stored files (and temp files) no dataset refers to; returns their names.
-
-    Only a process killed between writing a file and committing its row leaves
-    such a file; it is complete but unlisted. ``min_age_seconds`` spares
-    uploads that are in progress right now.
-    """
-    root = home_folder() / files.FILES_FOLDER
-    if not root.is_dir():
-        return []
-    now = time.time()
-    removed = []
+    """Delete stored files no dataset refers to (see ``files.remove_unrecorded``)."""
     with session_scope() as session:
         known = store.all_sha256(session)
-    for path in sorted(root.glob("*/*")):
-        if not path.is_file() or now - path.stat().st_mtime < min_age_seconds:
-            continue
-        if path.name.startswith(".") or path.name not in known:
-            path.unlink(missing_ok=True)
-            removed.append(path.name)
-    return removed
+    return files.remove_unrecorded(home_folder(), known, min_age_seconds)
 
 
 def dataset_info(dataset_id: int) -> dict[str, Any]:

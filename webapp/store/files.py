@@ -13,6 +13,7 @@ import hashlib
 import os
 import re
 import tempfile
+import time
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -68,3 +69,24 @@ def store_bytes(home: str | os.PathLike, raw: bytes) -> StoredFile:
 
 def read_bytes(home: str | os.PathLike, stored_path: str) -> bytes:
     return absolute_path(home, stored_path).read_bytes()
+
+
+def remove_unrecorded(home: str | os.PathLike, recorded: set[str], min_age_seconds: float = 3600.0) -> list[str]:
+    """Delete stored files (and temp files) whose SHA-256 is not in ``recorded``.
+
+    Only a process killed between writing a file and committing its row leaves
+    such a file; it is complete but unlisted. ``min_age_seconds`` spares
+    uploads in progress right now. Returns the names removed.
+    """
+    root = Path(home) / FILES_FOLDER
+    if not root.is_dir():
+        return []
+    now = time.time()
+    removed = []
+    for path in sorted(root.glob("*/*")):
+        if not path.is_file() or now - path.stat().st_mtime < min_age_seconds:
+            continue
+        if path.name.startswith(".") or path.name not in recorded:
+            path.unlink(missing_ok=True)
+            removed.append(path.name)
+    return removed
