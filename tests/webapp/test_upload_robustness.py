@@ -104,7 +104,7 @@ def test_crash_between_file_write_and_commit_leaves_no_half_dataset(app, client,
     seen = {}
 
     def insert_then_crash(session, **fields):
-        row = real_insert(session, **fields)  # row flushed, file already written
+        real_insert(session, **fields)  # row flushed, file already written
         seen["path"] = Path(app.config["HOME"]) / fields["stored_path"]
         seen["written"] = seen["path"].exists()
         raise RuntimeError("simulated crash before commit")

@@ -14,7 +14,6 @@ changing colours, axes or labels never refits) and draws with
 from __future__ import annotations
 
 import html as html_text
-from typing import Any
 
 import dash_ag_grid as dag
 import numpy as np
