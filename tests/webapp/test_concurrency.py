@@ -10,82 +10,27 @@ one model exactly one fits while the rest hit the cache shared by both workers.
 
 from __future__ import annotations
 
-import os
-import signal
-import socket
-import subprocess
-import sys
-import time
 from concurrent.futures import ThreadPoolExecutor
-from pathlib import Path
 
 import pytest
 import requests
 from sqlalchemy import create_engine, func, select
 
-from webapp import create_app
-from webapp.store import accounts, session_scope
+from live_server import prepared_home, running_server
 from webapp.store.tables import Dataset, Model
 from wine_data import wine_csv, wine_frame
 
-ROOT = Path(__file__).resolve().parents[2]
 pytestmark = pytest.mark.slow
-
-
-def _free_port() -> int:
-    with socket.socket() as sock:
-        sock.bind(("127.0.0.1", 0))
-        return sock.getsockname()[1]
 
 
 @pytest.fixture
 def server(tmp_path, database_url):
-    """(base URL, analyst token, home folder, database URL) of a two-worker gunicorn server."""
+    """(base URL, analyst headers, home folder, database URL) of a two-worker gunicorn server."""
     home = tmp_path / "home"
-    config = {"SECRET_KEY": "concurrency-test", "HOME": str(home), "DATABASE_URL": database_url}
-    app = create_app(config)  # migrate once before the workers start
-    with app.app_context(), session_scope() as s:
-        from webapp import auth
-
-        user = accounts.add_user(s, "loader", "analyst", auth.hash_password("x" * 16))
-        token = auth.create_token(s, user.id, "concurrency")
-    app.extensions["latentdesk.engine"].dispose()
-
-    port = _free_port()
-    env = {
-        **os.environ,
-        "LATENTDESK_HOME": str(home),
-        "LATENTDESK_SECRET_KEY": "concurrency-test",
-        "LATENTDESK_DATABASE_URL": database_url,
-        "PYTHONPATH": os.pathsep.join(filter(None, [str(ROOT), os.environ.get("PYTHONPATH")])),
-    }
-    env.pop("LATENTDESK_REDIS_URL", None)
-    process = subprocess.Popen(
-        [sys.executable, "-m", "gunicorn", "-w", "2", "--threads", "2", "-b", f"127.0.0.1:{port}",
-         "--timeout", "120", "--graceful-timeout", "5", "--log-level", "warning", "webapp:create_app()"],
-        cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
-    )
-    base = f"http://127.0.0.1:{port}"
-    try:
-        deadline = time.monotonic() + 45
-        while True:
-            try:
-                if requests.get(f"{base}/health", timeout=5).status_code == 200:
-                    break
-            except requests.RequestException:  # not listening yet, or a worker still booting
-                pass
-            if process.poll() is not None or time.monotonic() > deadline:
-                output = process.stdout.read().decode(errors="replace") if process.poll() is not None else ""
-                pytest.fail(f"gunicorn did not start: {output[-2000:]}")
-            time.sleep(0.2)
-        yield base, {"Authorization": f"Bearer {token}"}, home, database_url
-    finally:
-        process.send_signal(signal.SIGTERM)
-        try:
-            process.wait(timeout=20)
-        except subprocess.TimeoutExpired:
-            process.kill()
-            process.wait()
+    users = prepared_home(home, database_url, [("loader", "analyst", "Loader")])
+    users["_app"].extensions["latentdesk.engine"].dispose()  # migrated once, before the workers start
+    with running_server(home, database_url, threads=2) as base:
+        yield base, users["loader"]["headers"], home, database_url
 
 
 def _upload(base, headers, raw: bytes, name: str) -> dict:
