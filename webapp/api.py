@@ -85,14 +85,21 @@ def _is_api_path() -> bool:
 # --- errors -----------------------------------------------------------------
 
 
-@bp.errorhandler(InputError)
 def _input_error(exc: InputError):
     return json_error("bad_input", str(exc), 400)
 
 
-@bp.errorhandler(ingest.DatasetNotFound)
 def _no_dataset(exc):
     return json_error("not_found", f"no dataset with id {exc.args[0]}", 404)
+
+
+def register_common_errors(blueprint: Blueprint) -> None:
+    """Errors every JSON blueprint answers alike: bad input (400), unknown dataset (404)."""
+    blueprint.register_error_handler(InputError, _input_error)
+    blueprint.register_error_handler(ingest.DatasetNotFound, _no_dataset)
+
+
+register_common_errors(bp)
 
 
 @bp.errorhandler(modelling.ModelNotFound)

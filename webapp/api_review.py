@@ -13,7 +13,7 @@ from typing import Any
 from flask import Blueprint, Response, request
 
 from analysis.errors import InputError
-from webapp.api import _json_body, json_error, json_ok, requires
+from webapp.api import _json_body, json_error, json_ok, register_common_errors, requires
 from webapp.services import ingest, review, views
 from webapp.services.context import session_scope
 from webapp.services.exports import to_csv_bytes
@@ -22,16 +22,12 @@ from webapp.services.review_rules import ReviewRefused
 bp = Blueprint("api_review", __name__)
 API = "/api/v1"
 LOG_FILTERS = ("action", "actor", "since", "until")
+register_common_errors(bp)
 
 
 @bp.errorhandler(ReviewRefused)
 def _refused(exc: ReviewRefused):
     return json_error(exc.code, str(exc), exc.status)
-
-
-@bp.errorhandler(InputError)
-def _bad_input(exc: InputError):
-    return json_error("bad_input", str(exc), 400)
 
 
 @bp.errorhandler(review.ProposalNotFound)
@@ -42,11 +38,6 @@ def _no_proposal(exc):
 @bp.errorhandler(views.ViewNotFound)
 def _no_view(exc):
     return json_error("not_found", f"no saved view with id {exc.args[0]!r}", 404)
-
-
-@bp.errorhandler(ingest.DatasetNotFound)
-def _no_dataset(exc):
-    return json_error("not_found", f"no dataset with id {exc.args[0]}", 404)
 
 
 def _user():
