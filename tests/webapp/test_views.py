@@ -131,3 +131,105 @@ def test_saving_a_view_is_logged(client, people, dataset_id):
     view = _save(client, people["analyst"], dataset_id).get_json()["view"]
     entries = client.get(f"/api/v1/datasets/{dataset_id}/review-log", headers=people["viewer"].headers).get_json()
     assert [(e["action"], e["payload"]["view_id"]) for e in entries["entries"]] == [("save_view", view["id"])]
+
+
+# ---------------------------------------------- reopening restores the selection
+def test_view_links_name_the_view_and_round_trip_through_the_query_string():
+    from urllib.parse import parse_qs
+
+    from webapp.ui import url_state as U
+
+    state = U.ViewState(components=3, pcx=1, pcy=3, colour="cultivar", exclude=("W-010",))
+    for view_id in ("Ab-_9xYz0123456789", "odd id&=/?"):
+        url = U.dataset_url(4, state, view_id=view_id)
+        path, query = url.split("?", 1)
+        assert path == "/datasets/4"
+        assert U.view_id_from_query(query) == view_id
+        assert U.parse_query(query) == (state, [])  # the view key is not part of the view state
+        # Dash hands a page layout(**query): one value -> str (dash/_pages.py _parse_query_string)
+        kwargs = {k: v[0] if len(v) == 1 else v for k, v in parse_qs(query, keep_blank_values=True).items()}
+        assert U.view_id_from_query(kwargs) == view_id and U.from_query(kwargs) == state
+        assert U.page_query(state, view_id) == query
+    assert U.dataset_url(4, view_id="v1") == "/datasets/4?view=v1"
+    assert U.dataset_url(4, state) == U.dataset_url(4, state, view_id=None)
+    assert U.view_id_from_query("tab=scores") is None and U.view_id_from_query("view=") is None
+    assert U.view_id_from_query(None) is None
+
+
+def test_view_links_open_the_dataset_page_with_the_view(client, people, dataset_id):
+    from webapp.ui import url_state as U
+
+    view = _save(client, people["analyst"], dataset_id).get_json()["view"]
+    body = client.get(f"/api/v1/views/{view['id']}", headers=people["viewer"].headers).get_json()
+    for link in (body["links"]["as_saved"], body["links"]["current"]):
+        path, query = link.split("?", 1)
+        assert path == f"/datasets/{dataset_id}"
+        assert U.view_id_from_query(query) == view["id"]
+    as_saved = U.from_query(body["links"]["as_saved"].split("?", 1)[1])
+    assert (as_saved.components, as_saved.pcx, as_saved.pcy, as_saved.colour) == (3, 1, 3, "cultivar")
+
+
+def _dataset_page():
+    import importlib
+
+    # Dash's page loader runs the page modules when the app is built; take that module.
+    return importlib.import_module("webapp.pages.dataset")
+
+
+def test_dataset_page_starts_with_the_saved_selection_for_another_user(app, client, people, dataset_id):
+    view = _save(client, people["analyst"], dataset_id).get_json()["view"]
+    page = _dataset_page()
+    with app.app_context():
+        store, notes = page.initial_selection(dataset_id, {"a": "3", "view": view["id"]}, people["viewer"])
+        assert (store, notes) == ({"dataset_id": dataset_id, "sample_ids": ["W-002", "W-005"]}, [])
+        # no view in the link: nothing selected, nothing to say
+        assert page.initial_selection(dataset_id, {"a": "3"}, people["viewer"]) == (
+            {"dataset_id": dataset_id, "sample_ids": []}, [])
+
+
+def test_selection_reaches_the_panel_and_the_propose_link(app, client, people, dataset_id):
+    import importlib
+
+    from webapp.ui import url_state as U
+
+    view = _save(client, people["analyst"], dataset_id).get_json()["view"]
+    page, samples = _dataset_page(), importlib.import_module("webapp.pages.dataset_samples")
+    links = importlib.import_module("webapp.pages.review_links")
+    search = "?" + U.page_query(U.from_query(QUERY), view["id"])
+    with app.app_context():
+        store, _ = page.initial_selection(dataset_id, search, people["analyst"])
+    panel = str(samples.selection_view(store))
+    assert "2 samples selected" in panel and "W-002, W-005" in panel
+    propose_href, style, save_href = links.links_for(dataset_id, search, store, can_act=True)
+    assert style is None and "sample=W-002" in propose_href and "sample=W-005" in propose_href
+    assert "sel=W-002" in save_href and "view=" not in propose_href
+
+
+@pytest.mark.parametrize("case", ["unknown", "other dataset", "signed out"])
+def test_dataset_page_refuses_a_view_it_cannot_use(app, client, people, dataset_id, case):
+    from flask_login import AnonymousUserMixin
+
+    from webapp.services import views
+    from webapp.services.review_rules import ReviewRefused
+
+    view = _save(client, people["analyst"], dataset_id).get_json()["view"]
+    view_id, target, user = view["id"], dataset_id, people["viewer"]
+    if case == "unknown":
+        view_id = "no-such-view"
+    elif case == "other dataset":
+        raw = wine_csv(wine_frame().head(20))
+        other = client.post("/api/v1/datasets", data={"file": (io.BytesIO(raw), "wine20.csv"), "id_column": "sample"},
+                            headers=people["analyst"].headers, content_type="multipart/form-data")
+        target = other.get_json()["dataset"]["id"]
+    else:
+        user = AnonymousUserMixin()
+    with app.app_context():
+        store, notes = _dataset_page().initial_selection(target, {"view": view_id}, user)
+        assert store == {"dataset_id": target, "sample_ids": []}
+        expected = {"unknown": "There is no saved view 'no-such-view'", "other dataset": "belongs to another dataset",
+                    "signed out": "sign in to open a saved view"}[case]
+        assert len(notes) == 1 and expected in notes[0]
+        if case == "signed out":
+            with pytest.raises(ReviewRefused) as refused:
+                views.saved_selection(view_id, target, user)
+            assert refused.value.status == 403

@@ -170,6 +170,24 @@ def sync_state(trigger: str | None, search: str | None, view: dict, applied: dic
     return state_from_controls(view, applied), [], False
 
 
+def initial_selection(dataset_id: int, query, user) -> tuple[dict[str, Any], list[str]]:
+    """The selection store's first value, and notes: the selection of the saved view the
+    link names (``view=<id>``, ``webapp.services.views.saved_selection``), else nothing."""
+    from webapp.services import views
+
+    empty = {"dataset_id": dataset_id, "sample_ids": []}
+    view_id = url_state.view_id_from_query(query)
+    if view_id is None:
+        return empty, []
+    try:
+        chosen = views.saved_selection(view_id, dataset_id, user)
+    except views.ViewNotFound:
+        return empty, [f"There is no saved view {view_id!r}; nothing is selected."]
+    except InputError as exc:
+        return empty, [f"The selection of the saved view was not restored: {exc}."]
+    return {"dataset_id": dataset_id, "sample_ids": chosen}, []
+
+
 def fit_summary(dataset_id: int, applied: dict | None, user_id: int | None = None) -> dict[str, Any]:
     """Fit (or fetch from the cache) the model the applied settings describe.
 
@@ -349,6 +367,8 @@ def layout(dataset_id=None, **query) -> html.Div:
     if dataset is None:
         return _not_found(dataset_id)
     state, notes = url_state.parse_query(query)
+    selection, selection_notes = initial_selection(dataset["id"], query, current_user)
+    notes += selection_notes
     can_fit = current_user.is_authenticated and auth.has_role(current_user.role, "analyst")
     return html.Div(
         [
@@ -357,7 +377,7 @@ def layout(dataset_id=None, **query) -> html.Div:
             dcc.Store(id=ids.SETTINGS_APPLIED, data=applied_settings(state)),
             dcc.Store(id=ids.FIT_RESULT),
             dcc.Store(id=ids.VIEW_SAMPLE, data=state.sample),
-            dcc.Store(id=ids.SELECTION_STORE, data={"dataset_id": dataset["id"], "sample_ids": []}),
+            dcc.Store(id=ids.SELECTION_STORE, data=selection),
             html.Div(
                 [
                     html.Div(
@@ -437,7 +457,7 @@ def _sync(search, _clicks, applied, view_list, form_list, pathname, dataset_id):
     view = {key: value for (_, _, key), value in zip(_VIEW_INPUTS, view_list)}
     form = {key: value for (_, key), value in zip(_FORM_FIELDS, form_list)}
     state, notes, set_controls = sync_state(ctx.triggered_id, search, view, applied, form)
-    query = url_state.to_query(state)
+    query = url_state.page_query(state, url_state.view_id_from_query(search))  # keeps view=<id>
     new_search = f"?{query}" if query else ""
     new_applied = applied_settings(state)
     out = {

@@ -6,8 +6,10 @@ it showed and the exclusions that model used.  Reopening refits (or reads from
 the cache) the model with exactly those settings and exclusions; equal
 fingerprints prove the same numbers (DESIGN.md 3).  When the dataset's
 approved exclusions changed since, the view says so and offers both "as saved"
-and "current".  The id is a random URL-safe slug (``secrets.token_urlsafe``),
-so links cannot be guessed from one another.
+and "current".  Both links to the dataset page name the view (``view=<id>``),
+and the page starts with the saved selection (``saved_selection``).  The id is
+a random URL-safe slug (``secrets.token_urlsafe``), so links cannot be guessed
+from one another.
 """
 
 from __future__ import annotations
@@ -162,7 +164,7 @@ def _as_saved_link(view: Mapping[str, Any], as_saved: url_state.ViewState, curre
     which shows the numbers as saved."""
     if not view["excluded"] and current:
         return url_state.view_url(view["id"])
-    return url_state.dataset_url(view["dataset_id"], as_saved)
+    return url_state.dataset_url(view["dataset_id"], as_saved, view_id=view["id"])
 
 
 def open_view(view_id: str, *, user_id: int | None = None) -> dict[str, Any]:
@@ -171,7 +173,8 @@ def open_view(view_id: str, *, user_id: int | None = None) -> dict[str, Any]:
     Returns ``view``, ``model`` (summary of the model refitted with the saved
     settings and exclusions), ``reproduced`` (its fingerprint equals the saved
     one), ``exclusions_changed``, ``excluded_as_saved``, ``excluded_current`` and
-    ``links`` (``as_saved`` and ``current`` dataset-page URLs).
+    ``links`` (``as_saved`` and ``current`` dataset-page URLs; both name the view,
+    so the dataset page starts with its selection, see ``saved_selection``).
     """
     from webapp.services import ingest, modelling
 
@@ -198,7 +201,24 @@ def open_view(view_id: str, *, user_id: int | None = None) -> dict[str, Any]:
         "excluded_current": current,
         "links": {
             "as_saved": _as_saved_link(view, as_saved, current),
-            "current": url_state.dataset_url(view["dataset_id"], current_state),
+            "current": url_state.dataset_url(view["dataset_id"], current_state, view_id=view["id"]),
         },
     }
 
+
+def saved_selection(view_id: str, dataset_id: int, user) -> list[str]:
+    """The sample ids selected when a view of ``dataset_id`` was saved, for its dataset page.
+
+    Anyone signed in may open a view (as through the API); a view of another
+    dataset is refused, so a link cannot carry one dataset's selection to another.
+    Raises ``ViewNotFound`` for an unknown id, ``forbidden`` without a signed-in user.
+    """
+    from webapp.auth import ROLE_RANK
+
+    signed_in = user is not None and getattr(user, "is_authenticated", True)
+    if not signed_in or getattr(user, "role", None) not in ROLE_RANK:
+        raise forbidden("sign in to open a saved view")
+    view = get_view(view_id)
+    if int(view["dataset_id"]) != int(dataset_id):
+        raise InputError(f"the saved view {view_id!r} belongs to another dataset")
+    return [str(s) for s in view["state"].get("selection") or []]

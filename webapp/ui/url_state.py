@@ -84,6 +84,8 @@ _KEYS = {
     "shape": "shape", "labels": "labels", "loadings": "loadings", "sample": "sample", "order": "order",
 }
 _LIST_FIELDS = ("log10", "drop", "exclude")
+# Not part of the view state: names the saved view whose selection the dataset page starts with.
+VIEW_KEY = "view"
 DEFAULT = ViewState()
 
 
@@ -223,10 +225,26 @@ def dataset_path_template() -> str:
     return "/datasets/<dataset_id>"
 
 
-def dataset_url(dataset_id, state: ViewState | None = None) -> str:
-    """The dataset page, optionally in a given view state."""
-    path = f"/datasets/{_path_part(dataset_id)}"
+def page_query(state: ViewState | None = None, view_id: str | None = None) -> str:
+    """A dataset page's query string: the view state, then ``view=<id>`` when the page
+    was opened from a saved view (its selection is restored, ``webapp.services.views``)."""
     query = to_query(state) if state is not None else ""
+    if not view_id:
+        return query
+    named = urlencode([(VIEW_KEY, str(view_id))], quote_via=quote)
+    return f"{query}&{named}" if query else named
+
+
+def view_id_from_query(query: str | Mapping[str, Any] | None) -> str | None:
+    """The saved view a dataset page's query string names (``view=<id>``), or None."""
+    values = [v for v in _as_lists(query).get(VIEW_KEY, []) if v]
+    return values[-1] if values else None
+
+
+def dataset_url(dataset_id, state: ViewState | None = None, view_id: str | None = None) -> str:
+    """The dataset page, optionally in a given view state and with a saved view's selection."""
+    path = f"/datasets/{_path_part(dataset_id)}"
+    query = page_query(state, view_id)
     return f"{path}?{query}" if query else path
 
 
