@@ -239,7 +239,7 @@ def test_errors_are_json(client, analyst, dataset, method, path, status, code):
 
 
 def test_internal_faults_are_json_500(app_factory, monkeypatch):
-    from conftest import AuthActions
+    from tests.webapp.conftest import AuthActions
     from webapp.services import ingest
 
     app = app_factory(TESTING=False)

@@ -85,7 +85,7 @@ def test_missing_file_field_is_400(app, client, auth):
     ],
 )
 def test_too_large_is_413_and_stores_nothing(app_factory, n_rows):
-    from conftest import AuthActions
+    from tests.webapp.conftest import AuthActions
 
     app = app_factory(MAX_UPLOAD_MB=1)
     client = app.test_client()
