@@ -336,7 +336,8 @@ def test_large_score_plot_recolours_and_changes_axes_by_patch(fitted, monkeypatc
     monkeypatch.setattr(figures, "WEBGL_THRESHOLD", 100)  # treat the 178 wine samples as "many"
     with app.app_context():
         fig, drawn = views.score_update(result, pcx=1, pcy=2, colour=None, shape=None, labels=False)
-        assert drawn["large"] and drawn["n_legend"] == 0 and fig.data[0].type == "scattergl"
+        assert drawn["large"] and drawn["n_points"] == 1 and drawn["n_legend"] == 0
+        assert fig.data[0].type == "scattergl"
         patch, drawn2 = views.score_update(result, pcx=1, pcy=2, colour="cultivar", shape=None, labels=False,
                                            drawn=drawn)
         patch3, drawn3 = views.score_update(result, pcx=1, pcy=3, colour="cultivar", shape=None, labels=True,
@@ -345,15 +346,20 @@ def test_large_score_plot_recolours_and_changes_axes_by_patch(fitted, monkeypatc
                                      drawn=drawn3)
     assert isinstance(patch, Patch) and isinstance(patch3, Patch) and not isinstance(full, Patch)
     ops = patch.to_plotly_json()["operations"]
-    colour = next(o for o in ops if o["location"] == ["data", 0, "marker", "color"])["params"]["value"]
+    # the one uncoloured point trace is replaced by one flat-coloured trace per cultivar
+    assert [o["location"] for o in ops if o["operation"] == "Delete"] == [["data", 0]]
+    inserted = [o["params"]["value"] for o in ops if o["operation"] == "Insert"]
+    assert [t["name"] for t in inserted] == ["cultivar 1", "cultivar 2", "cultivar 3"] and drawn2["n_points"] == 3
     cultivar = wine_frame()["cultivar"].to_numpy()
-    expected_codes = np.searchsorted(np.array(["cultivar 1", "cultivar 2", "cultivar 3"]), cultivar)
-    np.testing.assert_array_equal(_decode(colour), expected_codes)
-    appended = [o["params"]["value"]["name"] for o in ops if o["operation"] == "Append"]
-    assert appended == ["cultivar 1", "cultivar 2", "cultivar 3"] and drawn2["n_legend"] == 3
+    for trace in inserted:
+        rows = _decode(trace["customdata"])
+        assert (cultivar[rows] == trace["name"]).all() and isinstance(trace["marker"]["color"], str)
+    assert sorted(np.concatenate([_decode(t["customdata"]) for t in inserted]).tolist()) == list(range(178))
     ops3 = patch3.to_plotly_json()["operations"]
-    y = next(o for o in ops3 if o["location"] == ["data", 0, "y"])["params"]["value"]
     u, s, _ = np.linalg.svd(_autoscaled_wine(), full_matrices=False)
-    np.testing.assert_allclose(np.abs(_decode(y)), np.abs(u[:, 2] * s[2]), rtol=1e-8, atol=1e-10)
-    assert {"operation": "Assign", "location": ["data", 0, "mode"], "params": {"value": "markers+text"}} in ops3
-    assert not any(o["location"][:2] == ["data", 0] and o["location"][-1] == "color" for o in ops3)
+    for i, trace in enumerate(inserted):
+        y = next(o for o in ops3 if o["location"] == ["data", i, "y"])["params"]["value"]
+        rows = _decode(trace["customdata"])
+        np.testing.assert_allclose(np.abs(_decode(y)), np.abs(u[rows, 2] * s[2]), rtol=1e-8, atol=1e-10)
+        assert {"operation": "Assign", "location": ["data", i, "mode"], "params": {"value": "markers+text"}} in ops3
+    assert not any(o["operation"] in ("Delete", "Insert") for o in ops3)

@@ -285,7 +285,7 @@ def _decode(spec):
     return np.frombuffer(base64.b64decode(spec["bdata"]), dtype=np.dtype(spec["dtype"]).newbyteorder("<"))
 
 
-def test_large_score_plot_has_a_fixed_trace_order_and_group_codes():
+def test_large_score_plot_has_one_flat_coloured_trace_per_group():
     rng = np.random.default_rng(3)
     n = F.WEBGL_THRESHOLD + 500
     scores = rng.normal(size=(n, 3))
@@ -294,28 +294,35 @@ def test_large_score_plot_has_a_fixed_trace_order_and_group_codes():
     limits = {0.95: 6.0, 0.99: 9.2}
     fig = F.score_figure(scores, [0.5, 0.3, 0.2], colour_values=groups, colour_name="grp", eigenvalues=eig,
                          t2_limits=limits, highlight=[7])
-    assert [t.name for t in fig.data] == ["samples", "T² 95% limit", "T² 99% limit", "picked", "a", "b", "c"]
-    main = fig.data[0]
-    assert isinstance(main, go.Scattergl) and main.showlegend is False
-    # codes follow the sorted group order and map onto the Okabe-Ito colours through a stepped scale
-    np.testing.assert_array_equal(np.asarray(main.marker.color), np.searchsorted(["a", "b", "c"], groups))
-    scale = [tuple(step) for step in main.marker.colorscale]
-    assert (scale[0][1], scale[2][1], scale[4][1]) == tuple(s.lower() for s in OKABE_ITO_PUBLISHED[:3]) or \
-        (scale[0][1], scale[2][1], scale[4][1]) == tuple(OKABE_ITO_PUBLISHED[:3])
-    assert (main.marker.cmin, main.marker.cmax) == (-0.5, 2.5)
-    assert list(fig.data[3].customdata) == [7]
+    assert [t.name for t in fig.data] == ["a", "b", "c", "T² 95% limit", "T² 99% limit", "picked"]
+    rows = []
+    for trace, group, colour in zip(fig.data[:3], ["a", "b", "c"], OKABE_ITO_PUBLISHED):
+        assert isinstance(trace, go.Scattergl) and trace.showlegend is True
+        # one flat colour per group, in sorted group order (Okabe & Ito 2008 palette)
+        assert trace.marker.color.lower() == colour.lower()
+        members = np.asarray(trace.customdata)
+        assert (groups[members] == group).all()
+        np.testing.assert_array_equal(np.asarray(trace.x), scores[members, 0])
+        assert list(trace.text) == [str(i + 1) for i in members]
+        rows.append(members)
+    np.testing.assert_array_equal(np.sort(np.concatenate(rows)), np.arange(n))  # every sample exactly once
+    assert list(fig.data[5].customdata) == [7]
+    plain_fig = F.score_figure(scores, [0.5, 0.3, 0.2])
+    assert [t.name for t in plain_fig.data] == ["samples", "picked"] and plain_fig.data[0].showlegend is False
 
 
 def test_large_numeric_colour_keeps_missing_values_grey():
     values = np.linspace(0.0, 10.0, 40).astype(object)
     values[3] = None
     enc = F.score_colours(values, "temperature")
-    colour = enc["marker"]["color"]
-    assert colour[3] < enc["marker"]["cmin"] + 1e-12 and enc["marker"]["cmin"] < 0.0
-    assert enc["marker"]["colorscale"][0][1] == F.MISSING_COLOUR
+    (part,) = enc["parts"]
+    colour = part["marker"]["color"]
+    assert part["rows"] is None
+    assert colour[3] < part["marker"]["cmin"] + 1e-12 and part["marker"]["cmin"] < 0.0
+    assert part["marker"]["colorscale"][0][1] == F.MISSING_COLOUR
     assert [t.name for t in enc["legend"]] == ["(missing)"]
     full = F.score_colours(np.linspace(0.0, 10.0, 40), "temperature")
-    assert full["marker"]["colorscale"] == F.CONTINUOUS_SCALE and full["legend"] == []
+    assert full["parts"][0]["marker"]["colorscale"] == F.CONTINUOUS_SCALE and full["legend"] == []
 
 
 def test_typed_array_round_trip():

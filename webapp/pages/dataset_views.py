@@ -162,8 +162,10 @@ def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None,
 
     ``drawn`` describes the plot on screen. When it shows many samples of the
     same model without shapes, a new colouring, axis pair or label switch is sent
-    as a Patch of the point trace (typed arrays: colour codes or coordinates)
-    instead of the whole figure; anything else draws the figure again.
+    as a Patch (typed arrays): a recolour replaces the point traces (one per
+    group) and the legend, an axis change sends new coordinates; the T2 ellipses
+    and picked points are only touched when the axes change. Anything else draws
+    the figure again.
     """
     if not result or not result.get("ok"):
         return score_view(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=labels)[0], None
@@ -174,44 +176,57 @@ def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None,
              "labels": bool(labels), "large": model.n_samples_ > figures.WEBGL_THRESHOLD,
              "n_ellipses": len(LIMIT_LEVELS)}
     patchable = (drawn and drawn.get("large") and drawn.get("model") == state["model"] and not shape
-                 and not drawn.get("shape") and n_comp >= 2 and max(x, y) < n_comp)
+                 and not drawn.get("shape") and "n_points" in drawn and n_comp >= 2 and max(x, y) < n_comp)
     if not patchable:
         fig, _ = score_view(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=labels, sample=sample)
-        first_legend = 1 + len(LIMIT_LEVELS) + 1
-        state["n_legend"] = max(0, len(fig.data) - first_legend) if state["large"] else 0
-        return fig, state if state["large"] and fig.data else None
+        if not (state["large"] and fig.data):
+            return fig, None
+        n_points = sum(1 for t in fig.data if t.type == "scattergl")
+        state["n_points"] = n_points
+        state["n_legend"] = len(fig.data) - n_points - len(LIMIT_LEVELS) - 1
+        return fig, state
     patch = Patch()
-    state["n_legend"] = drawn.get("n_legend", 0)
-    if colour != drawn.get("colour"):
+    state["n_points"], state["n_legend"] = drawn["n_points"], drawn.get("n_legend", 0)
+    recolour = colour != drawn.get("colour")
+    new_axes = (pcx, pcy) != (drawn.get("pcx"), drawn.get("pcy"))
+    if recolour or new_axes:
+        axes = figures.score_axes(model.scores_, model.explained_variance_ratio_, x, y, model.eigenvalues_,
+                                  ellipse_limits(model.n_samples_), _picked(model, sample))
         encoding = figures.score_colours(training_column(result, model, colour), colour)
-        for key, value in encoding["marker"].items():
-            if isinstance(value, np.ndarray):
-                value = figures.typed_array(value, "f4" if value.dtype == np.float32 else "f8")
-            patch["data"][0]["marker"][key] = value
-        first_legend = 1 + drawn["n_ellipses"] + 1
+    if recolour:
+        # new point traces (one per group) and legend; the ellipses and the picked points stay
+        traces = figures.score_point_traces(axes, figures.id_text(model.sample_ids_, model.n_samples_), encoding,
+                                            labels=bool(labels))
+        first_legend = drawn["n_points"] + drawn["n_ellipses"] + 1
         for i in reversed(range(first_legend, first_legend + drawn.get("n_legend", 0))):
             del patch["data"][i]
+        for _ in range(drawn["n_points"]):
+            del patch["data"][0]
+        for i, trace in enumerate(traces):
+            patch["data"].insert(i, figures.patch_json(trace))
         for entry in encoding["legend"]:
             patch["data"].append(entry.to_plotly_json())
         patch["layout"]["legend"]["title"]["text"] = encoding["title"]
-        state["n_legend"] = len(encoding["legend"])
-    if (pcx, pcy) != (drawn.get("pcx"), drawn.get("pcy")):
-        axes = figures.score_axes(model.scores_, model.explained_variance_ratio_, x, y, model.eigenvalues_,
-                                  ellipse_limits(model.n_samples_), _picked(model, sample))
-        patch["data"][0]["x"] = figures.typed_array(axes["x"])
-        patch["data"][0]["y"] = figures.typed_array(axes["y"])
-        patch["data"][0]["hovertemplate"] = axes["hover"]
+        state["n_points"], state["n_legend"] = len(traces), len(encoding["legend"])
+    elif new_axes:
+        for i, part in enumerate(encoding["parts"]):
+            rows = slice(None) if part["rows"] is None else part["rows"]
+            patch["data"][i]["x"] = figures.typed_array(axes["x"][rows])
+            patch["data"][i]["y"] = figures.typed_array(axes["y"][rows])
+            patch["data"][i]["hovertemplate"] = figures.point_hover(axes, part)
+    if new_axes:
         for i, (ex, ey) in enumerate(axes["ellipses"]):
-            patch["data"][1 + i]["x"] = figures.typed_array(ex)
-            patch["data"][1 + i]["y"] = figures.typed_array(ey)
-        picked = 1 + drawn["n_ellipses"]
+            patch["data"][state["n_points"] + i]["x"] = figures.typed_array(ex)
+            patch["data"][state["n_points"] + i]["y"] = figures.typed_array(ey)
+        picked = state["n_points"] + drawn["n_ellipses"]
         patch["data"][picked]["x"] = list(axes["picked"][0])
         patch["data"][picked]["y"] = list(axes["picked"][1])
         for axis, title in (("xaxis", axes["xtitle"]), ("yaxis", axes["ytitle"])):
             patch["layout"][axis]["title"]["text"] = title
             patch["layout"][axis]["autorange"] = True
-    if bool(labels) != drawn.get("labels"):
-        patch["data"][0]["mode"] = "markers+text" if labels else "markers"
+    if bool(labels) != drawn.get("labels") and not recolour:
+        for i in range(state["n_points"]):
+            patch["data"][i]["mode"] = "markers+text" if labels else "markers"
     return patch, state
 
 

@@ -107,7 +107,7 @@ def _as_float(values) -> np.ndarray:
     return np.asarray(values, dtype=np.float64)
 
 
-def _as_text(values, n: int) -> np.ndarray:
+def id_text(values, n: int) -> np.ndarray:
     """Labels as an object array, escaped for Plotly (vectorised: 100,000 ids are common)."""
     if values is None:
         return np.arange(1, n + 1).astype(str).astype(object)
@@ -297,7 +297,7 @@ def score_figure(
                                   colour_name=colour_name, symbol_values=symbol_values, symbol_name=symbol_name,
                                   labels=labels, eigenvalues=eigenvalues, t2_limits=t2_limits, highlight=highlight)
     tx, ty = np.ascontiguousarray(t[:, x]), np.ascontiguousarray(t[:, y])
-    ids = _as_text(sample_ids, n)
+    ids = id_text(sample_ids, n)
     rows = np.arange(n, dtype=np.int32)
     meta_text = _hover_metadata(metadata, n)
     Scatter = scatter_class(n)
@@ -397,48 +397,81 @@ def _legend_entry(name: str, colour: str, symbol: str = "circle", group: str | N
                       marker=dict(color=colour, size=8, symbol=symbol), hoverinfo="skip", showlegend=True)
 
 
-def _stepped_scale(colours: Sequence[str]) -> list:
-    """A colour scale of equal steps, one flat colour per integer code 0..k-1."""
-    k = len(colours)
-    scale = []
-    for i, c in enumerate(colours):
-        scale += [[i / k, c], [(i + 1) / k, c]]
-    return scale
-
-
 def score_colours(colour_values, colour_name: str | None) -> dict:
-    """Marker colour settings and legend entries of the point trace of a large score plot.
+    """How the points of a large score plot are split into WebGL traces and coloured.
 
-    Groups become integer codes drawn through a stepped Okabe-Ito scale; numbers
-    use the continuous scale, with missing values drawn grey below its bottom.
-    Returns {"marker": dict, "legend": [traces], "title": str}.
+    Groups get one trace each in a flat Okabe-Ito colour, and those traces are the
+    legend: plotly.js draws a flat colour without turning a value into a colour per
+    point, which for 100,000 points is most of a redraw without a graphics card.
+    Numbers use one trace through the continuous scale, with missing values drawn
+    grey below its bottom; no colouring is one trace in the neutral colour.
+    Returns {"parts": [{"name", "rows" (index array, None for all rows), "marker",
+    "showlegend"}], "legend": [extra legend traces], "title": legend title}.
     """
     if colour_values is None:
-        return {"marker": {"color": POINT_COLOUR, "showscale": False}, "legend": [], "title": ""}
+        return {"parts": [{"name": "samples", "rows": None, "marker": {"color": POINT_COLOUR}, "showlegend": False}],
+                "legend": [], "title": ""}
     title = plain(colour_name or "")
     if is_numeric_column(colour_values):
         numbers = pd.to_numeric(pd.Series(colour_values, dtype=object), errors="coerce").to_numpy(dtype=np.float64)
         missing = np.isnan(numbers)
         lo, hi = float(np.nanmin(numbers)), float(np.nanmax(numbers))
         bar = dict(title=dict(text=title, side="right"), thickness=14, len=0.8)
-        if not missing.any():
-            return {"marker": {"color": numbers, "colorscale": CONTINUOUS_SCALE, "cmin": lo, "cmax": hi,
-                               "showscale": True, "colorbar": bar}, "legend": [], "title": ""}
-        floor = lo - 0.04 * ((hi - lo) or 1.0)
-        numbers = np.where(missing, floor, numbers)
-        steps = pcolors.get_colorscale(CONTINUOUS_SCALE)
-        cut = (lo - floor) / (hi - floor)
-        scale = [[0.0, MISSING_COLOUR], [cut * 0.999, MISSING_COLOUR]] + [
-            [cut + (1 - cut) * float(pos), colour] for pos, colour in steps]
-        return {"marker": {"color": numbers, "colorscale": scale, "cmin": floor, "cmax": hi, "showscale": True,
-                           "colorbar": bar},
-                "legend": [_legend_entry("(missing)", MISSING_COLOUR)], "title": ""}
+        legend = []
+        marker = {"color": numbers, "colorscale": CONTINUOUS_SCALE, "cmin": lo, "cmax": hi, "showscale": True,
+                  "colorbar": bar}
+        if missing.any():
+            floor = lo - 0.04 * ((hi - lo) or 1.0)
+            steps = pcolors.get_colorscale(CONTINUOUS_SCALE)
+            cut = (lo - floor) / (hi - floor)
+            scale = [[0.0, MISSING_COLOUR], [cut * 0.999, MISSING_COLOUR]] + [
+                [cut + (1 - cut) * float(pos), colour] for pos, colour in steps]
+            marker.update(color=np.where(missing, floor, numbers), colorscale=scale, cmin=floor)
+            legend = [_legend_entry("(missing)", MISSING_COLOUR)]
+        return {"parts": [{"name": title or "samples", "rows": None, "marker": marker, "showlegend": False}],
+                "legend": legend, "title": ""}
     labels, groups = _group_labels(colour_values)
     colours = group_colours(groups)
-    codes = pd.Categorical(labels, categories=groups).codes.astype(np.float32)
-    return {"marker": {"color": codes, "colorscale": _stepped_scale([colours[g] for g in groups]), "cmin": -0.5,
-                       "cmax": len(groups) - 0.5, "showscale": False},
-            "legend": [_legend_entry(plain(g), colours[g]) for g in groups], "title": title}
+    codes = pd.Categorical(labels, categories=groups).codes
+    return {"parts": [{"name": plain(g), "rows": np.flatnonzero(codes == i), "marker": {"color": colours[g]},
+                       "showlegend": True} for i, g in enumerate(groups)],
+            "legend": [], "title": title}
+
+
+def score_point_traces(axes: dict, ids, colours: dict, *, labels: bool = False, symbols=None) -> list:
+    """The WebGL point traces of a large score plot, one per part of ``score_colours``;
+    every point carries its row index in ``customdata`` and its sample id in ``text``."""
+    n = axes["x"].size
+    traces = []
+    for part in colours["parts"]:
+        rows = np.arange(n) if part["rows"] is None else part["rows"]
+        marker = dict(size=4, opacity=0.8, **part["marker"])
+        if symbols is not None:
+            marker["symbol"] = symbols[rows]
+        traces.append(go.Scattergl(
+            x=axes["x"][rows], y=axes["y"][rows], mode="markers+text" if labels else "markers",
+            text=ids[rows], customdata=rows.astype(np.int32), marker=marker, name=part["name"],
+            showlegend=part["showlegend"], textposition="top center", textfont=dict(size=10, color="#3d4852"),
+            hovertemplate=point_hover(axes, part)))
+    return traces
+
+
+def point_hover(axes: dict, part: dict) -> str:
+    """Hover of a point trace: sample id, both scores and, for a group, its name."""
+    return axes["hover"] + ("<extra>%{fullData.name}</extra>" if part["showlegend"] else "<extra></extra>")
+
+
+def patch_json(trace) -> dict:
+    """A trace as JSON for a partial figure update, numeric arrays as typed arrays
+    (a dash.Patch sends numpy arrays as number lists otherwise)."""
+    def walk(value):
+        if isinstance(value, np.ndarray) and value.dtype.kind in "fiu":
+            kind = "i4" if value.dtype.kind in "iu" else "f4" if value.dtype == np.float32 else "f8"
+            return typed_array(value, kind)
+        if isinstance(value, dict):
+            return {k: walk(v) for k, v in value.items()}
+        return value
+    return walk(trace.to_plotly_json())
 
 
 def score_axes(scores, explained_ratio, x: int, y: int, eigenvalues=None,
@@ -457,7 +490,7 @@ def score_axes(scores, explained_ratio, x: int, y: int, eigenvalues=None,
         "x": tx, "y": ty, "picked": (tx[h], ty[h]), "ellipses": ellipses,
         "xtitle": component_label(x, explained_ratio), "ytitle": component_label(y, explained_ratio),
         "hover": "<b>%{text}</b><br>" + f"{component_label(x)}: " + "%{x:.3g}<br>" + f"{component_label(y)}: "
-                 + "%{y:.3g}<extra></extra>",
+                 + "%{y:.3g}",
     }
 
 
@@ -465,30 +498,29 @@ def large_score_figure(scores, explained_ratio, *, x: int = 0, y: int = 1, sampl
                        colour_name: str | None = None, symbol_values=None, symbol_name: str | None = None,
                        labels: bool = False, eigenvalues=None, t2_limits: Mapping[float, float] | None = None,
                        highlight: Sequence[int] = ()) -> go.Figure:
-    """Score plot for many samples: one WebGL trace coloured by per-point codes.
+    """Score plot for many samples: WebGL point traces (``score_point_traces``).
 
     Trace order is fixed so a recolour or an axis change can be sent as a small
-    update (``score_colours`` / ``score_axes``): 0 the points, then one trace per
-    T2 ellipse, then the picked points, then the legend entries.
+    update (``score_colours`` / ``score_axes``): first the point traces (one per
+    group, else one), then one trace per T2 ellipse, then the picked points, then
+    the extra legend entries.
     """
     t = np.asarray(scores, dtype=np.float64)
     n = t.shape[0]
-    ids = _as_text(sample_ids, n)
+    ids = id_text(sample_ids, n)
     axes = score_axes(t, explained_ratio, x, y, eigenvalues, t2_limits, highlight)
     colours = score_colours(colour_values, colour_name)
-    marker = dict(size=4, opacity=0.8, **colours["marker"])
     legend = list(colours["legend"])
+    symbols = None
     if symbol_values is not None:
         sym_labels, symbol_groups = _group_labels(symbol_values)
         sym_map = {g: SYMBOLS[i % len(SYMBOLS)] for i, g in enumerate(symbol_groups)}
-        marker["symbol"] = np.array([sym_map[s] for s in sym_labels], dtype=object)
+        symbols = np.array([sym_map[s] for s in sym_labels], dtype=object)
         legend += [_legend_entry(f"{plain(symbol_name or 'shape')}: {plain(g)}", "#5b6570", sym_map[g], "symbols")
                    for g in symbol_groups]
     fig = _base_figure(None, height=520)
-    fig.add_trace(go.Scattergl(x=axes["x"], y=axes["y"], mode="markers+text" if labels else "markers",
-                               text=ids, customdata=np.arange(n, dtype=np.int32), marker=marker,
-                               textposition="top center", textfont=dict(size=10, color="#3d4852"),
-                               hovertemplate=axes["hover"], showlegend=False, name="samples"))
+    for trace in score_point_traces(axes, ids, colours, labels=labels, symbols=symbols):
+        fig.add_trace(trace)
     for conf, (ex, ey) in zip(sorted(t2_limits or {}), axes["ellipses"]):
         fig.add_trace(go.Scatter(x=ex, y=ey, mode="lines", name=f"T² {_confidence_text(conf)} limit",
                                  line=dict(color="#5b6570", width=1.3, dash=_LIMIT_STYLES.get(conf, "dot")),
@@ -629,7 +661,7 @@ def t2_spe_figure(t2, spe, t2_limits: Mapping[float, float], spe_limits: Mapping
     t2 = _as_float(t2)
     spe = _as_float(spe)
     n = t2.size
-    ids = _as_text(sample_ids, n)
+    ids = id_text(sample_ids, n)
     rows = np.arange(n, dtype=np.int32)
     regions = classify_regions(t2, spe, t2_limits[confidence], spe_limits[confidence])
     Scatter = scatter_class(n)
@@ -673,7 +705,7 @@ def control_chart_figure(values, limits: Mapping[float, float], *, name: str, or
     given as ``order``; samples beyond the highest limit are drawn in vermillion."""
     v = _as_float(values)
     n = v.size
-    ids = _as_text(sample_ids, n)
+    ids = id_text(sample_ids, n)
     rows = np.arange(n, dtype=np.int32)
     if order is None:
         xs = np.arange(1, n + 1, dtype=np.float64)
