@@ -123,11 +123,13 @@ def is_numeric_column(values) -> bool:
     MAX_NUMERIC_GROUPS distinct values (few distinct codes read better as groups).
     Common practice."""
     series = pd.Series(values, dtype=object)
+    # A text value among the first few rows settles it without converting every row.
+    head = series.iloc[:400]
+    head = head[head.notna() & (head.astype(str).str.strip() != "")]
+    if pd.to_numeric(head.iloc[:200], errors="coerce").isna().any():
+        return False
     present = series[series.notna() & (series.astype(str).str.strip() != "")]
     if present.empty:
-        return False
-    # A text value among the first few settles it without converting every row.
-    if pd.to_numeric(present.iloc[:200], errors="coerce").isna().any():
         return False
     numbers = pd.to_numeric(present, errors="coerce")
     if numbers.isna().any():
