@@ -302,7 +302,7 @@ def test_large_score_plot_has_one_flat_coloured_trace_per_group():
         assert trace.marker.color.lower() == colour.lower()
         members = np.asarray(trace.customdata)
         assert (groups[members] == group).all()
-        np.testing.assert_array_equal(np.asarray(trace.x), scores[members, 0])
+        np.testing.assert_allclose(np.asarray(trace.x), scores[members, 0], rtol=1e-6)  # sent as float32
         assert list(trace.text) == [str(i + 1) for i in members]
         rows.append(members)
     np.testing.assert_array_equal(np.sort(np.concatenate(rows)), np.arange(n))  # every sample exactly once

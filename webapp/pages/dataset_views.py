@@ -211,8 +211,8 @@ def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None,
     elif new_axes:
         for i, part in enumerate(encoding["parts"]):
             rows = slice(None) if part["rows"] is None else part["rows"]
-            patch["data"][i]["x"] = figures.typed_array(axes["x"][rows])
-            patch["data"][i]["y"] = figures.typed_array(axes["y"][rows])
+            patch["data"][i]["x"] = figures.typed_array(axes["x"][rows], "f4")
+            patch["data"][i]["y"] = figures.typed_array(axes["y"][rows], "f4")
             patch["data"][i]["hovertemplate"] = figures.point_hover(axes, part)
     if new_axes:
         for i, (ex, ey) in enumerate(axes["ellipses"]):

@@ -442,7 +442,9 @@ def score_colours(colour_values, colour_name: str | None) -> dict:
 
 def score_point_traces(axes: dict, ids, colours: dict, *, labels: bool = False, symbols=None) -> list:
     """The WebGL point traces of a large score plot, one per part of ``score_colours``;
-    every point carries its row index in ``customdata`` and its sample id in ``text``."""
+    every point carries its row index in ``customdata`` and its sample id in ``text``.
+    Coordinates go as 32-bit floats (seven significant digits, far finer than a pixel
+    or the three digits of the hover), which halves what a redraw sends."""
     n = axes["x"].size
     traces = []
     for part in colours["parts"]:
@@ -451,7 +453,8 @@ def score_point_traces(axes: dict, ids, colours: dict, *, labels: bool = False, 
         if symbols is not None:
             marker["symbol"] = symbols[rows]
         traces.append(go.Scattergl(
-            x=axes["x"][rows], y=axes["y"][rows], mode="markers+text" if labels else "markers",
+            x=axes["x"][rows].astype(np.float32), y=axes["y"][rows].astype(np.float32),
+            mode="markers+text" if labels else "markers",
             text=ids[rows], customdata=rows.astype(np.int32), marker=marker, name=part["name"],
             showlegend=part["showlegend"], textposition="top center", textfont=dict(size=10, color="#3d4852"),
             hovertemplate=point_hover(axes, part)))
