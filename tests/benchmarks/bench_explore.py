@@ -278,8 +278,10 @@ def write_doc(rows: int, cols: int, results: dict, refs: dict) -> str:
         f"{all(c['binary'] for c in checks)}.",
         "",
         "*Data in the browser*: from the click until the new figure (or the partial update) is handed "
-        "to plotly.js, i.e. server work plus transfer. A recolour or an axis change of a large plot is "
-        "sent as a partial update (colour codes or coordinates as typed arrays), never a refit. The rest "
+        "to plotly.js, i.e. server work plus transfer. A recolour of a large plot is sent as a partial "
+        "update that replaces the point traces by one flat-coloured WebGL trace per group (plotly.js then "
+        "converts no colour per point, which was most of a redraw when groups were colour codes on one "
+        "trace); an axis change sends only the new coordinates as typed arrays; neither refits. The rest "
         "of *Drawn* is plotly.js redrawing 100,000 WebGL points in a browser without a GPU (software "
         "rendering; a machine with a graphics card was not measured). Leaving "
         "*Components* at *Recommended* adds the component-choice table (cross-validation, parallel "
