@@ -16,8 +16,10 @@ not. The targets of issue 2 are read accordingly:
   to the estimation time;
 - peak memory of a fit <= 3 x the input matrix + 100 MB (tracemalloc; numpy reports its buffers).
 
-The estimation time is the whole fit minus its diagnostics stage, timed on its own with the same
-code the fit runs. The whole fit against scikit-learn's fit is printed too.
+The estimation is timed as the whole fit with its scores/T2/SPE block pass handed the result of an
+earlier run (everything else, validation and bookkeeping included, runs as usual); the diagnostics
+stage is that block pass plus T2 and the limits, timed on its own. The whole fit against
+scikit-learn's fit is printed too.
 Timings are the best of several interleaved repeats, so a busy machine hurts both sides alike.
 """
 
@@ -28,12 +30,13 @@ import os
 import platform
 import time
 import tracemalloc
+from unittest import mock
 
 import numpy as np
 from sklearn.decomposition import PCA
 from threadpoolctl import threadpool_info, threadpool_limits
 
-from analysis import diagnostics
+from analysis import diagnostics, pca
 from analysis.pca import PCAModel, _scores_and_spe_blocks
 
 
@@ -78,6 +81,13 @@ def training_diagnostics(model: PCAModel, X: np.ndarray) -> None:
     model.spe_limit(method="box")
 
 
+def estimation_only(fit, model: PCAModel, X: np.ndarray):
+    """``fit`` run with the diagnostics block pass replaced by the finished result of ``model``."""
+    done = (model.scores_, model.spe_)
+    with mock.patch.object(pca, "_scores_and_spe_blocks", lambda *args, **kwargs: done):
+        return fit()
+
+
 def new_sample_diagnostics(model: PCAModel, X: np.ndarray) -> None:
     """The public route for new data: diagnose(X) (validation, scores, T2, SPE) plus the limits."""
     model.diagnose(X)
@@ -93,10 +103,10 @@ def case(name, X, n_components, solver_name, target, repeats, reference_eigenval
     ours = lambda: PCAModel(n_components, scaling="center").fit(X)  # noqa: E731
     theirs = lambda: PCA(n_components, svd_solver=solver_name).fit(X)  # noqa: E731
     model = ours()
-    (t_fit, t_sk, t_stage, t_new), (model, ref, _, _) = best_of(
-        repeats, ours, theirs, lambda: training_diagnostics(model, X), lambda: new_sample_diagnostics(model, X)
+    (t_fit, t_sk, t_est, t_stage, t_new), (model, ref, _, _, _) = best_of(
+        repeats, ours, theirs, lambda: estimation_only(ours, model, X),
+        lambda: training_diagnostics(model, X), lambda: new_sample_diagnostics(model, X),
     )
-    t_est = t_fit - t_stage
     est_ratio, fit_ratio, share = t_est / t_sk, t_fit / t_sk, t_stage / t_est
     rel = np.max(np.abs(model.explained_variance_ratio_ / ref.explained_variance_ratio_ - 1))
     rel_eig = np.max(np.abs(model.eigenvalues_[:n_components] / ref.explained_variance_ - 1))
@@ -104,7 +114,7 @@ def case(name, X, n_components, solver_name, target, repeats, reference_eigenval
     rel_svd = np.max(np.abs(model.eigenvalues_[:n_components] / lapack - 1))
     exact = max(rel, rel_eig, rel_svd) <= 1e-8
     print(f"{'sklearn PCA(' + repr(solver_name) + ').fit:':55s}{t_sk:8.3f} s")
-    print(f"{'PCAModel estimation (fit minus its diagnostics stage):':55s}{t_est:8.3f} s  ratio {est_ratio:.2f} "
+    print(f"{'PCAModel estimation (fit without its diagnostics pass):':55s}{t_est:8.3f} s  ratio {est_ratio:.2f} "
           f"(target <= {target}) {verdict(est_ratio <= target)}")
     print(f"{'PCAModel.fit incl. training scores/T2/SPE:':55s}{t_fit:8.3f} s  ratio {fit_ratio:.2f}  "
           f"solver {model.solver_}")
