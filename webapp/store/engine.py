@@ -90,7 +90,19 @@ def init_app(app) -> None:
 
 
 @contextmanager
-def session_scope(app=None) -> Iterator[Session]:
+def _unit_of_work(session: Session) -> Iterator[Session]:
+    """Commit ``session`` on success, roll back on error, always close it."""
+    try:
+        yield session
+        session.commit()
+    except BaseException:
+        session.rollback()
+        raise
+    finally:
+        session.close()
+
+
+def session_scope(app=None):
     """A session that commits on success and rolls back on error.
 
     ``app`` defaults to the Flask app of the current application context.
@@ -99,27 +111,9 @@ def session_scope(app=None) -> Iterator[Session]:
         from flask import current_app
 
         app = current_app
-    factory = app.extensions[SESSIONMAKER_KEY]
-    session = factory()
-    try:
-        yield session
-        session.commit()
-    except BaseException:
-        session.rollback()
-        raise
-    finally:
-        session.close()
+    return _unit_of_work(app.extensions[SESSIONMAKER_KEY]())
 
 
-@contextmanager
-def engine_session(engine: Engine) -> Iterator[Session]:
+def engine_session(engine: Engine):
     """Like ``session_scope`` but for a bare engine (CLI, tests)."""
-    session = Session(engine, expire_on_commit=False)
-    try:
-        yield session
-        session.commit()
-    except BaseException:
-        session.rollback()
-        raise
-    finally:
-        session.close()
+    return _unit_of_work(Session(engine, expire_on_commit=False))
