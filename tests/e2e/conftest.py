@@ -11,6 +11,7 @@
 from __future__ import annotations
 
 import os
+import re
 import shutil
 import socket
 import threading
@@ -110,3 +111,29 @@ def sign_in(page, server: LiveServer, name: str, path: str = "/"):
     page.fill("#name", name)
     page.fill("#password", server.users[name][1])
     page.click("button[type=submit]")
+
+
+def lab_dataset_id(page, server: LiveServer) -> int:
+    """The id of the demo's lab dataset, read from its link on the start page."""
+    from webapp.demo_data import LAB_FILENAME
+
+    page.goto(server.url + "/")
+    href = page.get_by_role("link", name=LAB_FILENAME).get_attribute("href")
+    return int(re.search(r"/datasets/(\d+)", href).group(1))
+
+
+def drag_box(page, x0: float, y0: float, x1: float, y1: float, steps: int = 5) -> None:
+    """Drag the mouse from (x0, y0) to (x1, y1) through the middle, as a box selection."""
+    page.mouse.move(x0, y0)
+    page.mouse.down()
+    page.mouse.move((x0 + x1) / 2, (y0 + y1) / 2, steps=steps)
+    page.mouse.move(x1, y1, steps=steps)
+    page.mouse.up()
+
+
+def box_select_right_of_scores(page, timeout: float) -> None:
+    """Drag a box over the right part of the score plot (its drag mode is select)."""
+    page.wait_for_selector("#graph-scores .scatterlayer .point", timeout=timeout)
+    box = page.locator("#graph-scores .nsewdrag").first.bounding_box()
+    drag_box(page, box["x"] + box["width"] * 0.55, box["y"] + 5,
+             box["x"] + box["width"] - 5, box["y"] + box["height"] - 5, steps=8)

@@ -15,7 +15,7 @@ from urllib.parse import parse_qs, urlsplit
 
 from playwright.sync_api import expect
 
-from tests.e2e.conftest import SCREENSHOTS, sign_in
+from tests.e2e.conftest import SCREENSHOTS, box_select_right_of_scores, sign_in
 from webapp.demo_data import LAB_FILENAME, lab_scenario
 
 FIT_WAIT = 60_000
@@ -102,14 +102,7 @@ def test_lab_demo_from_fit_to_explained_outliers(demo_server, new_page, tmp_path
 
     # box-select on the score plot fills the selection panel
     _tab(page, "Scores")
-    page.wait_for_selector("#graph-scores .scatterlayer .point", timeout=FIT_WAIT)
-    area = page.locator("#graph-scores .nsewdrag").first
-    box = area.bounding_box()
-    page.mouse.move(box["x"] + box["width"] * 0.55, box["y"] + 5)
-    page.mouse.down()
-    page.mouse.move(box["x"] + box["width"] * 0.8, box["y"] + box["height"] * 0.5, steps=8)
-    page.mouse.move(box["x"] + box["width"] - 5, box["y"] + box["height"] - 5, steps=8)
-    page.mouse.up()
+    box_select_right_of_scores(page, FIT_WAIT)
     expect(page.locator("#selection-panel")).to_contain_text("selected")
     count = int(re.search(r"(\d+) samples? selected", page.locator("#selection-panel").inner_text()).group(1))
     assert 0 < count < 150

@@ -12,20 +12,12 @@ import re
 
 from playwright.sync_api import expect
 
-from tests.e2e.conftest import SCREENSHOTS, sign_in
-from webapp.demo_data import LAB_FILENAME
+from tests.e2e.conftest import SCREENSHOTS, drag_box, lab_dataset_id, sign_in
 from webapp.serve import DEMO_USERS
 from webapp.ui import ids, url_state
 
 PLANTED = ["B26-042", "B26-070"]
 PRINTED = {name: printed for name, _role, printed in DEMO_USERS}
-
-
-def _lab_dataset_id(page, server) -> int:
-    page.goto(server.url + "/")
-    link = page.get_by_role("link", name=LAB_FILENAME)
-    href = link.get_attribute("href")
-    return int(re.search(r"/datasets/(\d+)", href).group(1))
 
 
 def _box_select_high_spe(page, above: float) -> None:
@@ -42,18 +34,14 @@ def _box_select_high_spe(page, above: float) -> None:
         }""",
         [graph, above],
     )
-    page.mouse.move(box["x0"], box["y0"])
-    page.mouse.down()
-    page.mouse.move((box["x0"] + box["x1"]) / 2, (box["y0"] + box["y1"]) / 2, steps=5)
-    page.mouse.move(box["x1"], box["y1"], steps=5)
-    page.mouse.up()
+    drag_box(page, box["x0"], box["y0"], box["x1"], box["y1"])
 
 
 def test_analyst_proposes_reviewer_signs_log_shows_both(demo_server, new_page):
     analyst = new_page()
     sign_in(analyst, demo_server, "ana")
     analyst.wait_for_url(demo_server.url + "/")
-    dataset_id = _lab_dataset_id(analyst, demo_server)
+    dataset_id = lab_dataset_id(analyst, demo_server)
 
     # On the dataset page: three components, the T2-SPE plot, a box around the two batches far
     # above the SPE limit (SPE about 22, limit about 6; docs/scenarios.md step 3).
@@ -132,7 +120,7 @@ def test_saved_view_opens_for_another_user_with_the_same_model(demo_server, new_
     analyst = new_page()
     sign_in(analyst, demo_server, "ana")
     analyst.wait_for_url(demo_server.url + "/")
-    dataset_id = _lab_dataset_id(analyst, demo_server)
+    dataset_id = lab_dataset_id(analyst, demo_server)
     state = url_state.ViewState(components=3, colour="Line", tab="scores")
     analyst.goto(demo_server.url + url_state.save_view_url(dataset_id, state, ["B26-054"]))
     analyst.fill("#view-save-title", "Line B apart on the rheology component")

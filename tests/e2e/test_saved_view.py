@@ -12,8 +12,7 @@ import re
 
 from playwright.sync_api import expect
 
-from tests.e2e.conftest import SCREENSHOTS, sign_in
-from tests.e2e.test_review_flow import _lab_dataset_id
+from tests.e2e.conftest import SCREENSHOTS, box_select_right_of_scores, lab_dataset_id, sign_in
 from webapp.ui import ids, url_state
 
 FIT_WAIT = 90_000
@@ -26,27 +25,16 @@ def _fingerprint_shown(page) -> str:
     return re.search(r"model ([0-9a-f]{10})", source.inner_text()).group(1)
 
 
-def _box_select_right_of_scores(page) -> None:
-    """Drag a box over the right part of the score plot (dragmode select, as the page draws it)."""
-    page.wait_for_selector(f"#{ids.GRAPH_SCORES} .scatterlayer .point", timeout=FIT_WAIT)
-    box = page.locator(f"#{ids.GRAPH_SCORES} .nsewdrag").first.bounding_box()
-    page.mouse.move(box["x"] + box["width"] * 0.55, box["y"] + 5)
-    page.mouse.down()
-    page.mouse.move(box["x"] + box["width"] * 0.8, box["y"] + box["height"] * 0.5, steps=8)
-    page.mouse.move(box["x"] + box["width"] - 5, box["y"] + box["height"] - 5, steps=8)
-    page.mouse.up()
-
-
 def test_saved_view_restores_the_selection_for_another_user(demo_server, new_page):
     analyst = new_page()
     sign_in(analyst, demo_server, "ana")
     analyst.wait_for_url(demo_server.url + "/")
-    dataset_id = _lab_dataset_id(analyst, demo_server)
+    dataset_id = lab_dataset_id(analyst, demo_server)
     state = url_state.ViewState(components=3, colour="Line", tab="scores")
     analyst.goto(demo_server.url + url_state.dataset_url(dataset_id, state))
     fingerprint = _fingerprint_shown(analyst)
 
-    _box_select_right_of_scores(analyst)
+    box_select_right_of_scores(analyst, FIT_WAIT)
     panel = analyst.locator(f"#{ids.SELECTION_PANEL}")
     expect(panel).to_contain_text("selected")
     count = int(re.search(r"(\d+) samples? selected", panel.inner_text()).group(1))
