@@ -7,15 +7,13 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from webapp.store.engine import add_and_flush
 from webapp.store.tables import Dataset, Model
 
 
 def insert_dataset(session: Session, **fields: Any) -> Dataset:
     """Add a dataset row and flush it (so it has an id); the caller commits."""
-    row = Dataset(**fields)
-    session.add(row)
-    session.flush()
-    return row
+    return add_and_flush(session, Dataset(**fields))
 
 
 def find_dataset(session: Session, sha256: str, intake_options: dict[str, Any]) -> Dataset | None:
@@ -113,6 +111,4 @@ def record_model(
         summary=summary,
         created_by=created_by,
     )
-    session.add(row)
-    session.flush()
-    return row
+    return add_and_flush(session, row)

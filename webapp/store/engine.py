@@ -89,6 +89,13 @@ def init_app(app) -> None:
     app.extensions[SESSIONMAKER_KEY] = sessionmaker(engine, expire_on_commit=False)
 
 
+def add_and_flush(session: Session, row):
+    """Add ``row`` and flush it, so it has its id and constraints are checked; the caller commits."""
+    session.add(row)
+    session.flush()
+    return row
+
+
 @contextmanager
 def _unit_of_work(session: Session) -> Iterator[Session]:
     """Commit ``session`` on success, roll back on error, always close it."""

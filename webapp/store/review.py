@@ -15,6 +15,7 @@ from typing import Any, Iterator
 from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
+from webapp.store.engine import add_and_flush
 from webapp.store.tables import (
     Dataset,
     ExclusionProposal,
@@ -63,10 +64,7 @@ def move_chain_head(session: Session, old_seq: int, new_seq: int, new_hash: str)
 
 
 def insert_log_entry(session: Session, **fields: Any) -> ReviewLogEntry:
-    row = ReviewLogEntry(**fields)
-    session.add(row)
-    session.flush()
-    return row
+    return add_and_flush(session, ReviewLogEntry(**fields))
 
 
 def iter_log(session: Session, batch: int = 1000) -> Iterator[ReviewLogEntry]:
@@ -132,10 +130,7 @@ def count_log(session: Session) -> int:
 
 
 def insert_proposal(session: Session, **fields: Any) -> ExclusionProposal:
-    row = ExclusionProposal(**fields)
-    session.add(row)
-    session.flush()
-    return row
+    return add_and_flush(session, ExclusionProposal(**fields))
 
 
 def get_proposal(session: Session, proposal_id: int) -> ExclusionProposal | None:
@@ -171,10 +166,7 @@ def close_proposal(session: Session, proposal_id: int, state: str, decided_at: d
 
 def insert_sign_off(session: Session, **fields: Any) -> SignOff:
     """Add a sign-off; the UNIQUE(proposal_id) constraint refuses a second one."""
-    row = SignOff(**fields)
-    session.add(row)
-    session.flush()
-    return row
+    return add_and_flush(session, SignOff(**fields))
 
 
 def sign_off_of(session: Session, proposal_id: int) -> SignOff | None:
@@ -221,10 +213,7 @@ def get_dataset(session: Session, dataset_id: int) -> Dataset | None:
 
 
 def insert_view(session: Session, **fields: Any) -> SavedView:
-    row = SavedView(**fields)
-    session.add(row)
-    session.flush()
-    return row
+    return add_and_flush(session, SavedView(**fields))
 
 
 def get_view(session: Session, view_id: str) -> SavedView | None:
