@@ -238,9 +238,9 @@ def test_control_chart_against_dates_flags_points_beyond_limit():
     dates = ["2024-03-04", "2024-01-02", "2024-02-01", "2024-05-06"]
     fig = F.control_chart_figure(values, {0.95: 6.0, 0.99: 10.0}, name="T²", order=dates, order_name="run date",
                                  sample_ids=list("abcd"))
-    beyond = _traces(fig, "beyond limit")[0]
+    beyond = _traces(fig, "beyond 99% limit")[0]
     assert list(beyond.text) == ["b"] and list(beyond.customdata) == [1]
-    within = _traces(fig, "within")[0]
+    within = _traces(fig, "within 99% limit")[0]
     assert list(within.text) == ["c", "a", "d"]  # sorted by date
     assert fig.layout.xaxis.title.text == "run date"
     assert sorted(s.y0 for s in fig.layout.shapes) == [6.0, 10.0]

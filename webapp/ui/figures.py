@@ -727,11 +727,14 @@ def control_chart_figure(values, limits: Mapping[float, float], *, name: str, or
     v_sorted, ids_sorted, rows_sorted = v[sort], ids[sort], rows[sort]
     top = max(limits.values()) if limits else np.inf
     beyond = v_sorted > top
+    # Name the limit the colours follow: the charts draw two, and "beyond limit" alone reads as the 95% one.
+    top_label = f"{100 * max(limits, key=limits.get):g}% limit" if limits else "limit"
     Scatter = scatter_class(n)
     fig = _base_figure(None, height=340)
     fig.add_trace(Scatter(x=xs, y=v_sorted, mode="lines", line=dict(color="#c3cad1", width=1),
                           hoverinfo="skip", showlegend=False))
-    for mask, label, colour in ((~beyond, "within", POINT_COLOUR), (beyond, "beyond limit", FLAG_COLOUR)):
+    for mask, label, colour in ((~beyond, f"within {top_label}", POINT_COLOUR),
+                                 (beyond, f"beyond {top_label}", FLAG_COLOUR)):
         if mask.any():
             fig.add_trace(Scatter(
                 x=xs[mask], y=v_sorted[mask], mode="markers", name=f"{label} ({int(mask.sum())})",
