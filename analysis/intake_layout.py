@@ -97,6 +97,11 @@ def find_header(rows: list[list], filename: str) -> int:
     return candidates[0]
 
 
+def _is_missing(cell) -> bool:
+    """Blank, or a missing-value marker ("NA", "ND", "-", ...): says nothing about a column's type."""
+    return _is_blank(cell) or str(cell).strip().lower() in MISSING_MARKERS
+
+
 def find_units_row(rows: list[list], header: int, decimal: str) -> int | None:
     """Index of a units row just under the header ("mg/L", "%", "°C"), or None.
 
@@ -110,7 +115,7 @@ def find_units_row(rows: list[list], header: int, decimal: str) -> int | None:
     width = max(len(rows[i]) for i in [cand, *data])
     numeric_cols = []
     for j in range(0, width, max(1, width // 2000)):  # wide tables: about 2000 columns decide
-        cells = [rows[i][j] for i in data if j < len(rows[i]) and not _is_blank(rows[i][j])]
+        cells = [rows[i][j] for i in data if j < len(rows[i]) and not _is_missing(rows[i][j])]
         if cells and sum(looks_numeric(c, decimal) for c in cells) >= 0.8 * len(cells):
             numeric_cols.append(j)
     if not numeric_cols:

@@ -88,6 +88,16 @@ def test_survey_export_with_units_row_and_missing_markers():
         read_table(raw_bad, "survey.csv")
 
 
+def test_units_row_found_when_many_cells_below_are_missing_markers():
+    # Missing markers say nothing about a column's type (common practice in lab exports): a third of
+    # the cells being "NA" must not hide the units row. Found by the fuzz test of lab export habits.
+    rows = [f"W{i:02d},1.00,1.00" for i in range(8)] + [f"W{i:02d},NA,NA" for i in range(8, 12)]
+    raw = "\n".join(["Sample,P0,P1", ",mg/L,mg/L", *rows]).encode()
+    table, report = read_table(raw, "habits.csv")
+    assert report.units == {"P0": "mg/L", "P1": "mg/L"}
+    assert table.n_samples == 8 and np.all(table.values == 1.0)
+
+
 def test_spreadsheet_title_row_above_header_counts_in_row_numbers():
     lines = ["Water quality, quarter 3,,,,", ",,,,", "Sample ID,Site," + ",".join(VARIABLES)]
     for sid, site, row in zip(IDS, SITES, VALUES):
