@@ -61,3 +61,87 @@ def test_worker_entry_point_registers_the_background_callbacks(tmp_path, monkeyp
     assert any(name.startswith("background_callback_") for name in worker_app.tasks)
     assert worker_app is jobs.make_celery("redis://127.0.0.1:1/0")
     jobs.make_celery.cache_clear()
+
+
+# -- ThreadJobManager: jobs in a thread of the web process, never a forked child ---------
+
+def _manager(tmp_path):
+    return jobs.make_manager({"HOME": str(tmp_path), "REDIS_URL": None})
+
+
+def _wait_until(predicate, timeout=10.0):
+    import time
+
+    deadline = time.monotonic() + timeout
+    while not predicate():
+        assert time.monotonic() < deadline, "the job did not finish in time"
+        time.sleep(0.01)
+
+
+def test_jobs_run_in_a_thread_with_the_starting_apps_context(tmp_path):
+    import threading
+
+    import flask
+    import psutil
+
+    manager = _manager(tmp_path)
+    assert isinstance(manager, jobs.ThreadJobManager)
+    release = threading.Event()
+    seen = {}
+
+    def callback(label):
+        release.wait(10)
+        seen["app"] = flask.current_app.name
+        seen["thread"] = threading.current_thread().name
+        return f"done {label}"
+
+    job_fn = manager.make_job_fn(callback, progress=False)
+    app = flask.Flask("starting-app")
+    children_before = {p.pid for p in psutil.Process().children()}
+    with app.app_context():
+        job = manager.call_job_fn("result-key", job_fn, ["A"], {})
+    assert {p.pid for p in psutil.Process().children()} == children_before  # no fork
+    assert manager.job_running(job)
+    release.set()
+    _wait_until(lambda: not manager.job_running(job))
+    assert manager.get_result("result-key", job) == "done A"
+    assert seen == {"app": "starting-app", "thread": f"latentdesk-job-{job}"}
+
+
+def test_a_failing_job_reports_its_error_and_stops_running(tmp_path):
+    manager = _manager(tmp_path)
+
+    def callback():
+        raise ValueError("bad settings")
+
+    job = manager.call_job_fn("failing", manager.make_job_fn(callback, progress=False), [], {})
+    _wait_until(lambda: not manager.job_running(job))
+    result = manager.get_result("failing", job)
+    assert result["background_callback_error"]["msg"] == "bad settings"
+
+
+def test_a_cancelled_job_leaves_no_result(tmp_path):
+    import threading
+
+    manager = _manager(tmp_path)
+    release = threading.Event()
+    job = manager.call_job_fn("cancelled", manager.make_job_fn(lambda: release.wait(10) and "late",
+                                                               progress=False), [], {})
+    manager.terminate_job(job)  # e.g. the user left the page
+    release.set()
+    _wait_until(lambda: not manager.job_running(job))
+    assert manager.get_result("cancelled", job) is manager.UNDEFINED
+
+
+def test_a_job_of_a_dead_worker_is_not_running(tmp_path):
+    import subprocess
+
+    manager = _manager(tmp_path)
+    gone = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
+                          capture_output=True, text=True, check=True).stdout.strip()
+    job = f"{gone}-0123abcd"
+    manager.handle.set(jobs._running_key(job), True)  # left behind by a killed worker
+    assert not manager.job_running(job)
+    assert manager.terminate_unhealthy_job(job)
+    assert manager.handle.get(jobs._running_key(job)) is None
+    assert not manager.job_running("not-a-job-id")

@@ -183,3 +183,17 @@ def test_files_are_stored_under_their_sha256(tmp_path):
 def test_only_content_addressed_paths_are_accepted(tmp_path, bad):
     with pytest.raises(ValueError):
         files.absolute_path(tmp_path, bad)
+
+
+def test_a_connection_opened_before_a_fork_is_never_reused(engine, monkeypatch):
+    """SQLAlchemy docs, "Using Connection Pools with Multiprocessing or os.fork()":
+    a pooled connection checked out in another process is discarded, not shared."""
+    with engine.connect() as conn:
+        first = conn.connection.dbapi_connection
+    with engine.connect() as conn:
+        assert conn.connection.dbapi_connection is first  # same process: pooled
+    real_pid = os.getpid()
+    monkeypatch.setattr(os, "getpid", lambda: real_pid + 1)  # as in a forked child
+    with engine.connect() as conn:
+        assert conn.connection.dbapi_connection is not first
+        assert conn.exec_driver_sql("SELECT 1").scalar() == 1

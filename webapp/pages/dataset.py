@@ -228,19 +228,14 @@ def rank_summary(dataset_id: int, settings: dict[str, Any], user_id: int | None 
 
 
 def job_context():
-    """The Flask app context a background job needs (it runs outside the request).
+    """The Flask app context a background job needs outside a request.
 
-    The diskcache job manager forks the web process; a database pool inherited
-    through a fork may hold a lock another thread took, so the job gets a fresh
-    pool first (SQLAlchemy docs, "Using Connection Pools with Multiprocessing").
+    ``webapp.jobs.ThreadJobManager`` pushes the starting app's context itself; a
+    Celery worker has the one app it built.
     """
     if has_app_context():
         return nullcontext()
-    server = dash.get_app().server
-    from webapp.store import get_engine
-
-    get_engine(server).dispose(close=False)
-    return server.app_context()
+    return dash.get_app().server.app_context()
 
 
 # ------------------------------------------------------------------ layout

@@ -8,11 +8,12 @@ Alembic (``webapp/migrations``), at start-up.
 
 from __future__ import annotations
 
+import os
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any, Iterator, Mapping
 
-from sqlalchemy import Engine, create_engine, event
+from sqlalchemy import Engine, create_engine, event, exc
 from sqlalchemy.orm import Session, sessionmaker
 
 ENGINE_KEY = "latentdesk.engine"
@@ -36,13 +37,31 @@ def _sqlite_pragmas(dbapi_connection, _record) -> None:
     cursor.close()
 
 
+def _remember_pid(_dbapi_connection, record) -> None:
+    record.info["pid"] = os.getpid()
+
+
+def _refuse_inherited(_dbapi_connection, record, proxy) -> None:
+    """A connection opened before a fork (a Celery prefork child) is never shared.
+
+    SQLAlchemy docs, "Using Connection Pools with Multiprocessing or os.fork()":
+    the pool then discards it and connects afresh in this process.
+    """
+    if record.info.get("pid") != os.getpid():
+        record.dbapi_connection = proxy.dbapi_connection = None
+        raise exc.DisconnectionError("connection was opened in another process")
+
+
 def make_engine(url: str) -> Engine:
     """A new engine for ``url`` with the per-connection settings LatentDesk needs."""
     if url.startswith("sqlite"):
         engine = create_engine(url, connect_args={"timeout": 30})
         event.listen(engine, "connect", _sqlite_pragmas)
-        return engine
-    return create_engine(url, pool_pre_ping=True)
+    else:
+        engine = create_engine(url, pool_pre_ping=True)
+    event.listen(engine, "connect", _remember_pid)
+    event.listen(engine, "checkout", _refuse_inherited)
+    return engine
 
 
 def get_engine(app_or_url) -> Engine:
