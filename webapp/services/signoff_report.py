@@ -6,8 +6,10 @@ the model fingerprints before and after, explained variance before and after
 the reason, and every signature with printed name, UTC time and meaning
 (21 CFR Part 11, 11.50), plus the review-log chain head at printing time so a
 later rewrite of the log can be noticed against the paper.  Every piece of
-user text is escaped (shown as text, never as HTML).  For a PDF, use the
-browser's print dialog: no PDF library is bundled.
+user text is escaped (shown as text, never as HTML).
+
+``report_data`` gathers the content once; ``report_html`` renders it as a
+page, ``webapp.services.signoff_pdf.report_pdf`` as a PDF file.
 """
 
 from __future__ import annotations
@@ -39,8 +41,30 @@ def _e(value: Any) -> str:
     return escape("" if value is None else str(value))
 
 
-def _pct(value) -> str:
+def percent(value) -> str:
+    """A ratio as a percentage with two decimals; empty for a missing value."""
     return "" if value is None else f"{100 * float(value):.2f}%"
+
+
+def number(value) -> str:
+    """A statistic or limit with three significant digits; a dash for a missing value."""
+    return "–" if value is None else f"{float(value):.3g}"
+
+
+def points(delta) -> str:
+    """A change of explained variance in percentage points."""
+    return "" if delta is None else f"{100 * delta:+.2f} points"
+
+
+def angles_text(angles: list[float]) -> str:
+    return ", ".join(f"{a:.2f}°" for a in angles) or "none"
+
+
+def chain_status(chain: Mapping[str, Any]) -> str:
+    """The verification result of the review log as one sentence."""
+    if chain["intact"]:
+        return str(chain["reason"])
+    return f"BROKEN at entry {chain['broken_at']}: {chain['reason']}"
 
 
 def variance_svg(explained: list[Mapping[str, Any]], width: int = 420, height: int = 180) -> str:
@@ -67,7 +91,7 @@ def variance_svg(explained: list[Mapping[str, Any]], width: int = 420, height: i
             h = plot_h * float(value) / top
             parts.append(
                 f'<rect x="{x0 + j * bar:.1f}" y="{height - bottom - h:.1f}" width="{bar:.1f}" '
-                f'height="{h:.1f}" fill="{colour}"><title>PC{row["component"]} {key}: {_pct(value)}</title></rect>'
+                f'height="{h:.1f}" fill="{colour}"><title>PC{row["component"]} {key}: {percent(value)}</title></rect>'
             )
         parts.append(
             f'<text x="{x0 + bar:.1f}" y="{height - 8}" font-size="10" text-anchor="middle">PC{row["component"]}</text>'
@@ -81,10 +105,91 @@ def variance_svg(explained: list[Mapping[str, Any]], width: int = 420, height: i
     return "".join(parts)
 
 
+def _comparison(stored: Mapping[str, Any] | None) -> dict[str, Any] | None:
+    """The parts of a proposal's stored comparison (``review.preview``) that go on paper."""
+    if not stored:
+        return None
+    compared = stored.get("compare") or {}
+
+    def side(info):
+        return {"fingerprint": info["fingerprint"], "n_samples": info["n_samples"], "excluded": list(info["excluded"])}
+
+    return {
+        "before": side(stored["before"]),
+        "after": side(stored["after"]),
+        "explained": list(compared.get("explained", [])),
+        "principal_angles": list(compared.get("principal_angles") or []),
+        "crossings": list(compared.get("crossings") or []),
+    }
+
+
+def _entries_by_proposal(entries: list[Mapping[str, Any]]) -> dict[int, list[dict[str, Any]]]:
+    found: dict[int, list[dict[str, Any]]] = {}
+    for e in entries:
+        pid = (e.get("payload") or {}).get("proposal_id")
+        if pid is not None:
+            found.setdefault(pid, []).append(
+                {"seq": e["seq"], "at": e["at"], "actor_name": e["actor_name"], "action": e["action"],
+                 "summary": e.get("summary")}
+            )
+    return found
+
+
+def report_data(dataset_id: int, proposal_id: int | None = None, *, printed_by: str | None = None) -> dict[str, Any]:
+    """Everything the report shows, gathered once for the HTML page and the PDF file.
+
+    Keys: ``dataset`` (id, name, sha256, n_samples, n_variables), ``approved_exclusions``,
+    ``chain`` (intact, broken_at, reason, head_seq, head_hash), ``printed_at`` (UTC),
+    ``printed_by``, ``caution`` and ``proposals``: the decided proposals of the dataset
+    (or the one asked for), each with id, action, samples, state, proposed_by_name,
+    created_at, reason_category, reason, ``comparison`` (before/after fingerprint,
+    n_samples and excluded; explained, principal_angles, crossings; None if none was
+    stored), ``sign_off`` (printed_name, signed_at, meaning, comment; None if unsigned)
+    and ``entries`` (its review-log entries: seq, at, actor_name, action, summary).
+
+    Raises ``ingest.DatasetNotFound`` and ``review.ProposalNotFound`` (also for a
+    proposal of another dataset).
+    """
+    from webapp.services import ingest
+
+    dataset = ingest.dataset_info(dataset_id)
+    if proposal_id is not None:
+        proposal = review.get_proposal(proposal_id)
+        if proposal["dataset_id"] != dataset_id:
+            raise review.ProposalNotFound(proposal_id)
+        proposals = [proposal]
+    else:
+        proposals = [p for p in review.list_proposals(dataset_id) if p["state"] in ("approved", "rejected")]
+    by_proposal = _entries_by_proposal(review.log_for_dataset(dataset_id))
+    with session_scope() as session:
+        intact, broken, reason = audit.verify_chain(session)
+        head = audit.chain_head_summary(session)
+    keep = ("id", "action", "samples", "state", "proposed_by_name", "created_at", "reason_category", "reason",
+            "sign_off")
+    return {
+        "dataset": {"id": dataset_id, "name": dataset["name"], "sha256": dataset["sha256"],
+                    "n_samples": dataset["n_samples"], "n_variables": dataset["n_variables"]},
+        "approved_exclusions": review.approved_exclusions(dataset_id),
+        "chain": {"intact": intact, "broken_at": broken, "reason": reason,
+                  "head_seq": head["seq"], "head_hash": head["hash"]},
+        "printed_at": audit.utc_iso(audit.now_utc()),
+        "printed_by": printed_by,
+        "caution": CAUTION,
+        "proposals": [
+            {**{k: p[k] for k in keep}, "comparison": _comparison(p.get("comparison")),
+             "entries": by_proposal.get(p["id"], [])}
+            for p in proposals
+        ],
+    }
+
+
+# --- HTML ---------------------------------------------------------------------------------
+
+
 def _comparison_html(comparison: Mapping[str, Any] | None) -> str:
     if not comparison:
         return '<p class="muted">No comparison was stored with this proposal.</p>'
-    before, after, compared = comparison["before"], comparison["after"], comparison.get("compare") or {}
+    before, after = comparison["before"], comparison["after"]
     out = [
         "<table><tr><th></th><th>before</th><th>after</th></tr>",
         f'<tr><td>model fingerprint</td><td class="mono">{_e(before["fingerprint"])}</td>'
@@ -96,30 +201,27 @@ def _comparison_html(comparison: Mapping[str, Any] | None) -> str:
         "</table>",
         "<table><tr><th>component</th><th>explained before</th><th>after</th><th>change</th></tr>",
     ]
-    for row in compared.get("explained", []):
-        delta = row.get("delta")
+    for row in comparison["explained"]:
         out.append(
-            f'<tr><td>PC{row["component"]}</td><td class="num">{_pct(row.get("before"))}</td>'
-            f'<td class="num">{_pct(row.get("after"))}</td>'
-            f'<td class="num">{"" if delta is None else f"{100 * delta:+.2f} points"}</td></tr>'
+            f'<tr><td>PC{row["component"]}</td><td class="num">{percent(row.get("before"))}</td>'
+            f'<td class="num">{percent(row.get("after"))}</td>'
+            f'<td class="num">{points(row.get("delta"))}</td></tr>'
         )
     out.append("</table>")
-    out.append(variance_svg(compared.get("explained", [])))
-    angles = compared.get("principal_angles") or []
+    out.append(variance_svg(comparison["explained"]))
     out.append(
         "<p>Principal angles between the loading subspaces (Björck &amp; Golub 1973): "
-        + _e(", ".join(f"{a:.2f}°" for a in angles) or "none")
+        + _e(angles_text(comparison["principal_angles"]))
         + "</p>"
     )
-    crossings = compared.get("crossings") or []
-    if crossings:
+    if comparison["crossings"]:
         out.append("<table><tr><th>sample</th><th>statistic</th><th>before / limit</th><th>after / limit</th>"
                    "<th>change</th></tr>")
-        for c in crossings:
+        for c in comparison["crossings"]:
             out.append(
                 f'<tr><td>{_e(c["sample"])}</td><td>{_e(c["statistic"].upper())}</td>'
-                f'<td class="num">{_num(c.get("before"))} / {_num(c.get("before_limit"))}</td>'
-                f'<td class="num">{_num(c.get("after"))} / {_num(c.get("after_limit"))}</td>'
+                f'<td class="num">{number(c.get("before"))} / {number(c.get("before_limit"))}</td>'
+                f'<td class="num">{number(c.get("after"))} / {number(c.get("after_limit"))}</td>'
                 f'<td>{_e(c["change"])}</td></tr>'
             )
         out.append("</table>")
@@ -128,11 +230,7 @@ def _comparison_html(comparison: Mapping[str, Any] | None) -> str:
     return "".join(out)
 
 
-def _num(value) -> str:
-    return "–" if value is None else f"{float(value):.3g}"
-
-
-def _proposal_html(p: Mapping[str, Any], entries: list[Mapping[str, Any]]) -> str:
+def _proposal_html(p: Mapping[str, Any]) -> str:
     sig = p.get("sign_off")
     if sig:
         signature = (
@@ -145,14 +243,14 @@ def _proposal_html(p: Mapping[str, Any], entries: list[Mapping[str, Any]]) -> st
     trail = "".join(
         f'<tr><td class="num">{e["seq"]}</td><td>{_e(e["at"])}</td><td>{_e(e["actor_name"])}</td>'
         f'<td>{_e(e["action"])}</td><td>{_e(e.get("summary"))}</td></tr>'
-        for e in entries
+        for e in p["entries"]
     )
     return (
         f'<section class="proposal"><h2>Proposal {p["id"]}: {_e(p["action"])} '
         f'{_e(", ".join(p["samples"]))}</h2>'
         f'<p>Proposed by {_e(p["proposed_by_name"])} at {_e(p["created_at"])} (UTC).<br>'
         f'Reason category: {_e(p["reason_category"])}<br>Reason: {_e(p["reason"])}</p>'
-        + _comparison_html(p.get("comparison"))
+        + _comparison_html(p["comparison"])
         + signature
         + "<table><tr><th>log entry</th><th>UTC</th><th>person</th><th>action</th><th>what</th></tr>"
         + trail
@@ -162,42 +260,24 @@ def _proposal_html(p: Mapping[str, Any], entries: list[Mapping[str, Any]]) -> st
 
 def report_html(dataset_id: int, proposal_id: int | None = None, *, printed_by: str | None = None) -> str:
     """The whole report as an HTML document (decided proposals, or the one asked for)."""
-    from webapp.services import ingest
-
-    dataset = ingest.dataset_info(dataset_id)
-    if proposal_id is not None:
-        proposal = review.get_proposal(proposal_id)
-        if proposal["dataset_id"] != dataset_id:
-            raise review.ProposalNotFound(proposal_id)
-        proposals = [proposal]
-    else:
-        proposals = [p for p in review.list_proposals(dataset_id) if p["state"] in ("approved", "rejected")]
-    entries = review.log_for_dataset(dataset_id)
-    with session_scope() as session:
-        intact, broken, reason = audit.verify_chain(session)
-        head = audit.chain_head_summary(session)
-    by_proposal: dict[int, list] = {}
-    for e in entries:
-        pid = (e.get("payload") or {}).get("proposal_id")
-        if pid is not None:
-            by_proposal.setdefault(pid, []).append(e)
-    body = "".join(_proposal_html(p, by_proposal.get(p["id"], [])) for p in proposals) or (
+    data = report_data(dataset_id, proposal_id, printed_by=printed_by)
+    dataset, chain = data["dataset"], data["chain"]
+    body = "".join(_proposal_html(p) for p in data["proposals"]) or (
         '<p class="muted">No decided proposals for this dataset yet.</p>'
     )
-    printed = audit.utc_iso(audit.now_utc())
     return (
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
         f"<title>Sign-off report · {_e(dataset['name'])}</title><style>{_STYLE}</style></head><body>"
-        f"<h1>Sign-off report</h1><p class='muted'>LatentDesk · printed {printed} (UTC)"
-        + (f" by {_e(printed_by)}" if printed_by else "")
+        f"<h1>Sign-off report</h1><p class='muted'>LatentDesk · printed {data['printed_at']} (UTC)"
+        + (f" by {_e(data['printed_by'])}" if data["printed_by"] else "")
         + "</p>"
-        f"<table><tr><th>dataset</th><td>{_e(dataset['name'])} (id {dataset_id})</td></tr>"
+        f"<table><tr><th>dataset</th><td>{_e(dataset['name'])} (id {dataset['id']})</td></tr>"
         f"<tr><th>dataset SHA-256</th><td class='mono'>{_e(dataset['sha256'])}</td></tr>"
         f"<tr><th>samples × variables</th><td>{dataset['n_samples']} × {dataset['n_variables']}</td></tr>"
-        f"<tr><th>approved exclusions now</th><td>{_e(', '.join(review.approved_exclusions(dataset_id)) or 'none')}</td></tr>"
-        f"<tr><th>review log</th><td>{_e(reason) if intact else 'BROKEN at entry ' + _e(broken) + ': ' + _e(reason)}<br>"
-        f"chain head: entry {_e(head['seq'])}, <span class='mono'>{_e(head['hash'])}</span></td></tr></table>"
-        f"<p class='caution'>{_e(CAUTION)}</p>"
+        f"<tr><th>approved exclusions now</th><td>{_e(', '.join(data['approved_exclusions']) or 'none')}</td></tr>"
+        f"<tr><th>review log</th><td>{_e(chain_status(chain))}<br>"
+        f"chain head: entry {_e(chain['head_seq'])}, <span class='mono'>{_e(chain['head_hash'])}</span></td></tr></table>"
+        f"<p class='caution'>{_e(data['caution'])}</p>"
         + body
         + "<p class='noprint muted'>Use the browser's Print command to print or save as PDF.</p></body></html>"
     )
