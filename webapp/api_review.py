@@ -2,7 +2,7 @@
 
 Same shapes as ``webapp.api`` (``json_ok`` / ``json_error``); routes call
 ``webapp.services.review``, ``audit`` and ``views`` only.  Also serves the
-printable sign-off report (HTML) under the app's reserved ``/-/`` prefix.
+printable sign-off report (HTML and PDF) under the app's reserved ``/-/`` prefix.
 """
 
 from __future__ import annotations
@@ -234,3 +234,20 @@ def signoff_report(dataset_id: int):
     except (ingest.DatasetNotFound, review.ProposalNotFound):
         return Response("not found", status=404, mimetype="text/plain")
     return Response(html, mimetype="text/html", headers={"Cache-Control": "no-store"})
+
+
+@bp.get("/-/review/datasets/<int:dataset_id>/report.pdf")
+@requires("viewer")
+def signoff_report_pdf(dataset_id: int):
+    from webapp.services.signoff_pdf import report_pdf
+
+    proposal = request.args.get("proposal")
+    if proposal is not None and not proposal.isdigit():
+        return Response("proposal must be a whole number", status=400, mimetype="text/plain")
+    try:
+        pdf = report_pdf(dataset_id, int(proposal) if proposal else None, printed_by=_user().display_name)
+    except (ingest.DatasetNotFound, review.ProposalNotFound):
+        return Response("not found", status=404, mimetype="text/plain")
+    disposition = f'attachment; filename="signoff-report-dataset-{dataset_id}.pdf"'
+    return Response(pdf, mimetype="application/pdf",
+                    headers={"Cache-Control": "no-store", "Content-Disposition": disposition})

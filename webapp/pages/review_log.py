@@ -100,6 +100,8 @@ def layout(dataset=None, action=None, actor=None, **_query) -> html.Div:
                                    className="ld-button ld-button-quiet"),
                             html.A("Printable sign-off report", href=url_state.signoff_report_url(dataset_id),
                                    target="_blank", className="ld-button ld-button-quiet"),
+                            html.A("Sign-off report as PDF", href=url_state.signoff_report_pdf_url(dataset_id),
+                                   className="ld-button ld-button-quiet"),
                         ],
                         className="ld-filter-row",
                     ),

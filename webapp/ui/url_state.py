@@ -275,6 +275,12 @@ def signoff_report_url(dataset_id, proposal_id=None) -> str:
     return f"{path}?proposal={_path_part(proposal_id)}" if proposal_id is not None else path
 
 
+def signoff_report_pdf_url(dataset_id, proposal_id=None) -> str:
+    """The sign-off report of a dataset, or of one proposal, as a PDF file."""
+    path = f"/-/review/datasets/{_path_part(dataset_id)}/report.pdf"
+    return f"{path}?proposal={_path_part(proposal_id)}" if proposal_id is not None else path
+
+
 def review_log_csv_url(dataset_id) -> str:
     return f"/api/v1/datasets/{_path_part(dataset_id)}/review-log.csv"
 
