@@ -52,10 +52,10 @@ MARGIN = 18 * mm
 WIDTH = A4[0] - 2 * MARGIN
 
 
-def fonts(families=FONT_FAMILIES) -> tuple[str, str]:
-    """Register the first TrueType family found (once per process); return its regular and bold names."""
+def fonts() -> tuple[str, str]:
+    """Register the first family of ``FONT_FAMILIES`` found (once per process); return its regular and bold names."""
     registered = set(pdfmetrics.getRegisteredFontNames())
-    for family, *files in families:
+    for family, *files in FONT_FAMILIES:
         names = [family, f"{family}-Bold", f"{family}-Italic", f"{family}-BoldItalic"]
         if family not in registered:
             try:
