@@ -210,3 +210,17 @@ def test_report_data_is_what_both_formats_print(app, client, team, signed):
     assert only["comparison"]["after"]["excluded"] == ["W-003"]
     head = client.get("/api/v1/review-log/verify", headers=team["viewer"].headers).get_json()["head"]
     assert (data["chain"]["head_seq"], data["chain"]["head_hash"]) == (head["seq"], head["hash"])
+
+
+@pytest.mark.parametrize("query", ["", "?proposal={pid}"])
+def test_html_report_links_to_its_pdf_twin(client, team, signed, query):
+    from urllib.parse import urljoin
+
+    dataset_id, proposal, _ = signed
+    page_url = f"/-/review/datasets/{dataset_id}/report" + query.format(pid=proposal["id"])
+    page = client.get(page_url, headers=team["viewer"].headers)
+    href = re.search(r"<a href='([^']+)'>download the report as PDF</a>", page.get_data(as_text=True)).group(1)
+    target = urljoin(page_url, href)  # RFC 3986, 5.2: how the browser resolves the relative link
+    assert target == url_state.signoff_report_pdf_url(dataset_id, proposal["id"] if query else None)
+    response = client.get(target, headers=team["viewer"].headers)
+    assert response.status_code == 200 and response.get_data().startswith(b"%PDF")

@@ -279,5 +279,11 @@ def report_html(dataset_id: int, proposal_id: int | None = None, *, printed_by: 
         f"chain head: entry {_e(chain['head_seq'])}, <span class='mono'>{_e(chain['head_hash'])}</span></td></tr></table>"
         f"<p class='caution'>{_e(data['caution'])}</p>"
         + body
-        + "<p class='noprint muted'>Use the browser's Print command to print or save as PDF.</p></body></html>"
+        + "<p class='noprint muted'>Use the browser's Print command to print this page, or "
+        f"<a href='{_pdf_href(proposal_id)}'>download the report as PDF</a>.</p></body></html>"
     )
+
+
+def _pdf_href(proposal_id: int | None) -> str:
+    """The PDF twin, relative to this page's URL (``.../report`` -> ``.../report.pdf``)."""
+    return "report.pdf" if proposal_id is None else f"report.pdf?proposal={int(proposal_id)}"
