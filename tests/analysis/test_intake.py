@@ -571,3 +571,174 @@ def test_empty_option_strings_mean_not_given():
     # Web forms send "" for an empty field.
     table, report = read_table(b"id,a,b\nx,1,2\ny,2,3\nz,4,6\n", "o.csv", sheet="", id_column="", group_columns=[""])
     assert report.roles == {"id": "id", "a": "variable", "b": "variable"}
+
+
+# --- quoted cells spanning several lines: a row is a record, not a physical line --------------
+# RFC 4180 ("Common Format and MIME Type for Comma-Separated Values (CSV) Files", Shafranovich 2005,
+# section 2 rule 6): a field enclosed in double quotes may contain line breaks. LIMS and survey tools
+# write comment cells that way; a spreadsheet shows such a record as ONE row (common practice), so
+# every expected row number below counts records: header = row 1, the first sample = row 2, and a
+# record whose comment cell spans two lines is still one row. Excel itself writes CRLF between
+# records and a bare LF inside a cell (common practice), hence the ("\r\n", "\n") case.
+
+
+def _multiline_records(delimiter=",", inner="\n", number=lambda v: repr(float(v)), comment_row=3):
+    """Records of a LIMS export (header = row 1) whose comment cell in spreadsheet row ``comment_row`` spans two lines."""
+    records = [delimiter.join(["Sample ID", "Comment", *VARIABLES])]
+    for row, (sid, values) in enumerate(zip(IDS, VALUES), start=2):
+        comment = f'"checked twice{delimiter}{inner}re-run"' if row == comment_row else "ok"
+        records.append(delimiter.join([sid, comment, *(number(v) for v in values)]))
+    return records
+
+
+LINE_ENDS = [("\n", "\n"), ("\r\n", "\r\n"), ("\r\n", "\n")]  # (between records, inside the quoted cell)
+
+
+@pytest.mark.parametrize("newline, inner", LINE_ENDS)
+def test_multiline_cell_row_3_then_bad_number_is_named_in_row_6(newline, inner):
+    records = _multiline_records(inner=inner)
+    table, report = read_table((newline.join(records) + newline).encode(), "comments.csv")
+    _check_table(table)
+    assert table.metadata["Comment"].iloc[1].splitlines() == ["checked twice,", "re-run"]
+    assert report.header_row == 1
+    records[5] = records[5].replace(",7.125,", ",12..5,")  # QC-005: record 6 (physical line 7)
+    raw = (newline.join(records) + newline).encode()
+    with pytest.raises(IntakeError, match=r"comments\.csv: .*row 6, column 'Lead µg/L' \(C\): '12\.\.5' \(not a number\)"):
+        read_table(raw, "comments.csv")
+    table, report = read_table(raw, "comments.csv", bad_cells="missing")
+    assert any("(first: row 6, '12..5')" in w for w in report.warnings), report.warnings
+    assert np.isnan(table.data.loc["QC-005", "Lead µg/L"])
+
+
+@pytest.mark.parametrize("newline, inner", LINE_ENDS)
+def test_multiline_cell_in_european_semicolon_decimal_comma_file(newline, inner):
+    # common practice: ';' delimiter and ',' decimal mark in European LIMS exports.
+    records = _multiline_records(delimiter=";", inner=inner, number=_eu)
+    table, report = read_table((newline.join(records) + newline).encode(), "eu.csv")
+    _check_table(table)
+    assert (report.delimiter, report.decimal) == (";", ",")
+    records[5] = records[5].replace(";7,125;", ";12,,5;")
+    with pytest.raises(IntakeError, match=r"eu\.csv: .*row 6, column 'Lead µg/L' \(C\): '12,,5'"):
+        read_table((newline.join(records) + newline).encode(), "eu.csv")
+
+
+def test_ragged_row_after_multiline_cells_is_named_by_record():
+    # Within the detection sample: the extra field shows up as a value beyond the header.
+    records = _multiline_records()
+    records[4] += ",7"  # QC-004, row 5
+    with pytest.raises(IntakeError, match=r"ragged\.csv: row 5 has a value \('7'\) in column F, beyond the 5 columns"):
+        read_table("\n".join(records).encode(), "ragged.csv")
+    # Past the sample: pandas' tokenizer finds it. Every tenth record holds a two-line comment.
+    records = ["id,comment,a,b,c"]
+    for k in range(300):
+        comment = '"line one\nline two"' if k % 10 == 3 else "ok"
+        records.append(f"S{k:03d},{comment},1.5,2.5,{k}")
+    records[281] += ",9"  # the sample with k = 280: row 282, physical line 282 + 28
+    with pytest.raises(IntakeError, match=r"late\.csv: row 282 has 6 fields but the header \(row 1\) has 5"):
+        read_table("\n".join(records).encode(), "late.csv")
+
+
+@pytest.mark.parametrize("newline", ["\n", "\r\n"])
+def test_unclosed_quote_after_multiline_cell_names_the_row_where_it_opened(newline):
+    records = _multiline_records()
+    records[4] = records[4].replace(",ok,", ',"never closed,')  # QC-004, row 5
+    with pytest.raises(IntakeError, match=r"open\.csv: a quote opened near row 5 is never closed"):
+        read_table(newline.join(records).encode(), "open.csv")
+
+
+def test_duplicate_id_after_multiline_cell_names_the_rows():
+    records = _multiline_records()
+    records[5] = records[5].replace("QC-005", "QC-001")
+    with pytest.raises(IntakeError, match=r"duplicate sample ids in column 'Sample ID' \(A\): 'QC-001' \(rows 2, 6\)"):
+        read_table("\n".join(records).encode(), "dup.csv")
+
+
+def _titled_records(newline="\n"):
+    """Title cell spanning two lines (row 1), two comment lines (rows 2-3), header (row 4), samples rows 5-9.
+
+    QC-002's comment (row 6) spans two lines and the second starts with '#': inside the quotes it is
+    cell text, not a comment line.
+    """
+    records = ['"Water quality report,\nquarter 3"', "# exported by the LIMS", "# units: see header"]
+    records.append(",".join(["Sample ID", "Comment", *VARIABLES]))
+    for sid, values in zip(IDS, VALUES):
+        comment = f'"checked twice,{newline}#2 re-run"' if sid == "QC-002" else "ok"
+        records.append(",".join([sid, comment, *(repr(float(v)) for v in values)]))
+    return records
+
+
+@pytest.mark.parametrize("newline", ["\n", "\r\n"])
+def test_title_and_comment_rows_above_header_with_multiline_cells(newline):
+    records = _titled_records(newline)
+    table, report = read_table(newline.join(records).encode(), "titled.csv")
+    _check_table(table)
+    assert report.header_row == 4
+    assert table.metadata["Comment"].iloc[1].splitlines() == ["checked twice,", "#2 re-run"]
+    records[8] = records[8].replace(",7.125,", ",12..5,")  # QC-005: row 9
+    with pytest.raises(IntakeError, match=r"titled\.csv: .*row 9, column 'Lead µg/L' \(C\): '12\.\.5'"):
+        read_table(newline.join(records).encode(), "titled.csv")
+
+
+@pytest.mark.parametrize("newline", ["\n", "\r\n"])
+def test_comment_line_between_samples_after_a_multiline_cell_keeps_its_row(newline):
+    records = _titled_records(newline)[3:]  # header row 1, QC-002 (row 3) spans two lines
+    records.insert(3, "# re-calibrated here")  # row 4: a comment row still counts as a row
+    table, report = read_table(newline.join(records).encode(), "recal.csv")
+    _check_table(table)
+    assert table.metadata["Comment"].iloc[1].splitlines() == ["checked twice,", "#2 re-run"]
+    records[6] = records[6].replace(",7.125,", ",12..5,")  # QC-005: row 7
+    with pytest.raises(IntakeError, match=r"recal\.csv: .*row 7, column 'Lead µg/L' \(C\): '12\.\.5'"):
+        read_table(newline.join(records).encode(), "recal.csv")
+
+def test_header_and_units_cells_spanning_lines():
+    # Wrapped header cells ("Lead" / "µg/L" in one cell) are common in spreadsheet exports (common practice).
+    header = 'Sample ID,"Lead\nlevel","Cadmium\nlevel",Turbidity'
+    units = ',µg/L,"micrograms\nper litre",NTU'
+    rows = [",".join([sid, *(repr(float(v)) for v in values)]) for sid, values in zip(IDS, VALUES)]
+    table, report = read_table("\n".join([header, units, *rows]).encode(), "wrapped.csv")
+    _check_table(table, variables=["Lead\nlevel", "Cadmium\nlevel", "Turbidity"])
+    assert report.header_row == 1
+    assert report.units == {"Lead\nlevel": "µg/L", "Cadmium\nlevel": "micrograms\nper litre", "Turbidity": "NTU"}
+    rows[3] = rows[3].replace("101.25", "1O1.25")  # QC-004: header row 1, units row 2, so row 6
+    with pytest.raises(IntakeError, match=r"row 6, column 'Lead\\nlevel' \(B\): '1O1\.25'"):
+        read_table("\n".join([header, units, *rows]).encode(), "wrapped.csv")
+
+
+def test_dropped_rows_and_row_ids_count_records():
+    # No id column: samples are named by their spreadsheet row.
+    raw = (
+        "a,note,b,c\n"
+        "1,ok,2,3\n"                 # row 2
+        '2,"two\nlines",3,4\n'       # row 3
+        "3,ok,4,5\n"                 # row 4
+        'NA,"all\nmissing",NA,NA\n'  # row 5: no numbers, left out
+        "4,ok,NA,NA\n"               # row 6: mostly missing
+        "5,ok,6,7\n"                 # row 7
+    ).encode()
+    table, report = read_table(raw, "rows.csv")
+    assert table.sample_ids == ["row 2", "row 3", "row 4", "row 6", "row 7"]
+    assert report.dropped_rows == [5]
+    assert any("(rows 5)" in w for w in report.warnings), report.warnings
+    assert any("of their values missing: 'row 6'" in w for w in report.warnings), report.warnings
+
+
+@pytest.mark.parametrize(
+    "make",
+    [
+        lambda: "\n".join(_multiline_records()),
+        lambda: "\r\n".join(_multiline_records(inner="\n")),
+        lambda: "\n".join(_multiline_records(comment_row=2)),
+        lambda: "\n".join(_titled_records()),
+        lambda: "\r\n".join(_titled_records("\r\n")),
+    ],
+)
+def test_file_with_multiline_cells_reads_like_its_clean_twin(make):
+    text = make()
+    twin = re.sub(r'"([^"]*)"', lambda m: m.group(1).replace(",", "").replace("\r", "").replace("\n", " "), text)
+    assert '"' not in twin and len(twin.splitlines()) < len(text.splitlines())
+    table, report = read_table(text.encode(), "multi.csv")
+    clean, clean_report = read_table(twin.encode(), "clean.csv")
+    np.testing.assert_array_equal(table.values, clean.values)
+    assert table.sample_ids == clean.sample_ids == IDS
+    assert table.variables == clean.variables
+    assert (report.header_row, report.units, report.roles) == (clean_report.header_row, clean_report.units, clean_report.roles)
