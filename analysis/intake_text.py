@@ -151,6 +151,37 @@ def detect_delimiter(lines: list[str], filename: str) -> str:
     return best
 
 
+def sample_records(sample: str, delimiter: str, truncated: bool, filename: str) -> list[list[str]]:
+    """The first records of the sample, split into fields: the rows as a spreadsheet counts them.
+
+    A quoted field may contain line breaks (RFC 4180, Shafranovich 2005, section 2 rule 6);
+    its record is still one row. Wide files: about SAMPLE_CELLS cells, 10 to SAMPLE_LINES
+    records. The last record of a truncated sample may be cut short and is left out.
+    """
+    reader = csv.reader(io.StringIO(sample, newline=""), delimiter=delimiter)
+    rows: list[list[str]] = []
+    try:
+        for row in reader:
+            rows.append(row)
+            if len(rows) > SAMPLE_LINES or (len(rows) >= 40 and len(rows) > _records_kept(rows)):
+                break
+        else:
+            if truncated and len(rows) > 1:
+                rows.pop()
+    except csv.Error as exc:  # e.g. a quote never closed makes an over-long field; pandas names it later
+        if not rows:
+            raise IntakeError(
+                f"{filename}: the first lines cannot be split into fields ({' '.join(str(exc).split())})."
+            ) from None
+    return rows[: _records_kept(rows)]
+
+
+def _records_kept(rows: list[list[str]]) -> int:
+    """Detection is cell by cell: wide samples keep about SAMPLE_CELLS cells (widths of the first 40 records)."""
+    widest = max((len(r) for r in rows[:40]), default=1)
+    return max(10, min(SAMPLE_LINES, SAMPLE_CELLS // max(1, widest)))
+
+
 def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns: int) -> Grid:
     """Read delimited text into a Grid (numbers typed by pandas, other cells as text)."""
     encoding, data, pandas_encoding, sample, truncated = decode(raw, filename)
@@ -158,16 +189,8 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
     lines = _LINE_BREAK.split(sample)
     if truncated and len(lines) > 1:
         lines = lines[:-1]  # the last line of a sample may be cut short
-    lines = lines[:SAMPLE_LINES]
-    try:
-        delimiter = detect_delimiter(lines[:40], filename)
-        rows = [next(csv.reader([ln], delimiter=delimiter), []) for ln in lines[:40]]
-        # Wide files: keep the sample near SAMPLE_CELLS cells, the detection below is cell by cell.
-        keep = max(10, min(SAMPLE_LINES, SAMPLE_CELLS // max(len(r) for r in rows)))
-        rows += [next(csv.reader([ln], delimiter=delimiter), []) for ln in lines[40:keep]]
-        rows = rows[:keep]
-    except csv.Error as exc:
-        raise IntakeError(f"{filename}: the first lines cannot be split into fields ({' '.join(str(exc).split())}).") from None
+    delimiter = detect_delimiter(lines[:40], filename)
+    rows = sample_records(sample, delimiter, truncated, filename)
     header = find_header(rows, filename)
     body = [c for r in rows[header + 1 :] if not is_comment_row(r) for c in r][:SAMPLE_CELLS]
     decimal = guess_decimal(body, delimiter)
@@ -183,7 +206,7 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
         units = {n: u.strip() for n, u in zip(names, rows[units_at]) if u.strip() and u.strip().lower() not in MISSING_MARKERS}
     skip = (units_at if units_at is not None else header) + 1
     if b"#" in data and b"\n#" in data:  # one fast byte scan first; most files have no '#'
-        data = _COMMENT_LINE.sub(b"", data)
+        data = _blank_comment_lines(data, delimiter)
     try:
         frame = pd.read_csv(
             io.BytesIO(data),
@@ -215,6 +238,45 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
         encoding=encoding,
         delimiter=delimiter,
     )
+
+
+def _blank_comment_lines(data: bytes, delimiter: str) -> bytes:
+    """Empty the '#' comment lines, keeping their line breaks so that row numbers stay put.
+
+    A line inside a quoted field that spans lines (RFC 4180 section 2 rule 6) is cell text even
+    when it starts with '#'; so, when the file has quotes, only lines that start a record are emptied.
+    """
+    if b'"' not in data:
+        return _COMMENT_LINE.sub(b"", data)
+    found, at, line, pos = [], [], 0, 0
+    for m in _COMMENT_LINE.finditer(data):
+        line += data.count(b"\n", pos, m.start())
+        pos = m.start()
+        found.append(m)
+        at.append(line)  # 0-based index of the physical line
+    if not found:
+        return data
+    wanted, starts = set(at), set()
+    # Only up to the last comment line; data is UTF-8 here (decode() re-encoded the other encodings).
+    text = data[: found[-1].end()].decode("utf-8", errors="replace")
+    reader = csv.reader(io.StringIO(text, newline="\n"), delimiter=delimiter)  # one item per '\n' line
+    start = 0
+    try:
+        for _ in reader:
+            if start in wanted:
+                starts.add(start)
+            if start >= at[-1]:
+                break
+            start = reader.line_num
+    except csv.Error:  # a stray '\r' or an over-long field: pandas' own reading will tell
+        return _COMMENT_LINE.sub(b"", data)
+    pieces, pos = [], 0
+    for m, line in zip(found, at):
+        if line in starts:
+            pieces.append(data[pos : m.start()])
+            pos = m.end()
+    pieces.append(data[pos:])
+    return b"".join(pieces)
 
 
 def _parser_error(exc: Exception, filename: str, delimiter: str, header_row: int, width: int) -> IntakeError:
