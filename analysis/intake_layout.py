@@ -29,7 +29,8 @@ class Grid:
 
     ``frame`` columns are the header names, each float64 (already numbers)
     or object (raw cells). ``row_numbers[i]`` is the spreadsheet row of
-    ``frame`` row i (header row counted as in the file, title lines included).
+    ``frame`` row i (header row counted as in the file, title lines included; a
+    record whose quoted cell spans several lines is one row, as in a spreadsheet).
     """
 
     frame: pd.DataFrame

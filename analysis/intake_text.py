@@ -280,6 +280,8 @@ def _blank_comment_lines(data: bytes, delimiter: str) -> bytes:
 
 
 def _parser_error(exc: Exception, filename: str, delimiter: str, header_row: int, width: int) -> IntakeError:
+    # pandas' tokenizer counts records, skipped ones included (a quoted line break does not start a new
+    # one): "line L" is 1-based, "row R" 0-based. The multi-line tests in test_intake.py hold it to that.
     text = str(exc)
     m = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", text)
     if m:
