@@ -40,6 +40,9 @@ ROLE_RANK = {role: rank for rank, role in enumerate(ROLES)}
 TOKEN_PREFIX = "ldt_"
 TOKEN_TOUCH_INTERVAL = timedelta(minutes=1)
 MIN_PASSWORD_LENGTH = 10
+# Sign-in attempts feed the lockout (minutes) and a security review (weeks); older ones are
+# deleted at every successful sign-in and at server start, so an attack cannot fill the database.
+LOGIN_ATTEMPT_RETENTION = timedelta(days=90)
 LOGIN_PATH = "/-/login"
 LOGOUT_PATH = "/-/logout"
 # Paths served without a session: the sign-in form, health check and styles.
@@ -221,6 +224,7 @@ def _try_login(name: str, password: str, address: str) -> CurrentUser | str:
             return BAD_CREDENTIALS
         accounts.record_login_attempt(s, name, address, ok=True)
         accounts.clear_failed_logins(s, row.id)
+        accounts.prune_login_attempts(s, now - LOGIN_ATTEMPT_RETENTION)
         return _from_row(row)
 
 

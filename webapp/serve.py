@@ -12,8 +12,9 @@ import multiprocessing
 from typing import Any, Mapping
 
 from webapp.accounts import user_line
+from webapp.auth import LOGIN_ATTEMPT_RETENTION
 from webapp.config import load_config
-from webapp.store import datasets, files, make_engine, migrate
+from webapp.store import accounts, datasets, files, make_engine, migrate, utcnow
 from webapp.store.engine import database_url, engine_session
 
 # Invented demo accounts: (name, role, printed name).
@@ -50,13 +51,15 @@ def _gunicorn(overrides: Mapping[str, Any], host: str, port: int, workers: int, 
 
 def _prepare(overrides: Mapping[str, Any]) -> None:
     """Check the configuration (ConfigError names the problem), migrate once and
-    sweep upload files left unrecorded by a killed process."""
+    sweep upload files left unrecorded by a killed process and sign-in attempts
+    past their retention."""
     config = load_config(overrides)
     engine = make_engine(database_url(config))
     try:
         migrate(engine)
         with engine_session(engine) as session:
             recorded = datasets.all_sha256(session)
+            accounts.prune_login_attempts(session, utcnow() - LOGIN_ATTEMPT_RETENTION)
         removed = files.remove_unrecorded(config["HOME"], recorded)
         if removed:
             print(f"removed {len(removed)} upload file(s) that no dataset records", flush=True)

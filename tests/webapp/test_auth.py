@@ -18,7 +18,7 @@ from sqlalchemy import select
 from tests.webapp.conftest import login
 from webapp import auth
 from webapp.cli import main
-from webapp.store import accounts, engine_session, make_engine, session_scope
+from webapp.store import accounts, engine_session, make_engine, session_scope, utcnow
 from webapp.store.tables import ApiToken
 
 
@@ -56,6 +56,34 @@ def test_every_attempt_is_recorded(app, client, make_user):
         rows = s.scalars(select(LoginAttempt).where(LoginAttempt.name == name).order_by(LoginAttempt.id)).all()
         assert [r.ok for r in rows] == [False, True]
         assert rows[0].client_addr == "127.0.0.1"
+
+
+def _age_attempts(app, name: str, days: int) -> None:
+    from datetime import timedelta
+
+    from sqlalchemy import update
+
+    from webapp.store.tables import LoginAttempt
+
+    with app.app_context(), session_scope() as s:
+        s.execute(update(LoginAttempt).where(LoginAttempt.name == name)
+                  .values(at=utcnow() - timedelta(days=days)))
+
+
+def test_old_attempts_are_forgotten_at_the_next_successful_sign_in(app, client, make_user):
+    from webapp.store.tables import LoginAttempt
+
+    old_name, _ = make_user("viewer")
+    login(client, old_name, "bad-password")
+    _age_attempts(app, old_name, days=auth.LOGIN_ATTEMPT_RETENTION.days + 1)
+    recent_name, _ = make_user("viewer")
+    login(client, recent_name, "bad-password")
+    _age_attempts(app, recent_name, days=auth.LOGIN_ATTEMPT_RETENTION.days - 1)
+    name, password = make_user("analyst")
+    login(client, name, password)
+    with app.app_context(), session_scope() as s:
+        kept = {r.name for r in s.scalars(select(LoginAttempt))}
+    assert kept == {recent_name, name}
 
 
 def test_disabling_a_user_ends_their_session(app, client, auth):

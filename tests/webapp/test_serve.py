@@ -107,3 +107,27 @@ def test_start_up_sweeps_upload_files_no_dataset_records(tmp_path, capsys):
     assert not files.absolute_path(home, stray.stored_path).exists()
     assert files.absolute_path(home, fresh.stored_path).exists()
     assert "removed 1 upload file(s)" in capsys.readouterr().out
+
+
+def test_start_up_forgets_sign_in_attempts_past_their_retention(tmp_path):
+    from datetime import timedelta
+
+    from sqlalchemy import select
+
+    from webapp import serve
+    from webapp.auth import LOGIN_ATTEMPT_RETENTION
+    from webapp.store import engine_session, make_engine, migrate, utcnow
+    from webapp.store.engine import database_url
+    from webapp.store.tables import LoginAttempt
+
+    home = tmp_path / "home"
+    engine = make_engine(database_url({"HOME": str(home)}))
+    home.mkdir()
+    migrate(engine)
+    with engine_session(engine) as s:
+        for name, age in (("old", LOGIN_ATTEMPT_RETENTION + timedelta(days=1)), ("recent", timedelta(days=1))):
+            s.add(LoginAttempt(name=name, client_addr="127.0.0.1", ok=False, at=utcnow() - age))
+    serve._prepare({"HOME": str(home), "SECRET_KEY": "prune-test"})
+    with engine_session(engine) as s:
+        assert [r.name for r in s.scalars(select(LoginAttempt))] == ["recent"]
+    engine.dispose()

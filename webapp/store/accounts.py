@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from datetime import datetime
 
-from sqlalchemy import func, select, update
+from sqlalchemy import delete, func, select, update
 from sqlalchemy.orm import Session
 
 from webapp.store.tables import ApiToken, LoginAttempt, User
@@ -55,6 +55,11 @@ def set_active(session: Session, user: User, active: bool) -> None:
 
 def record_login_attempt(session: Session, name: str, client_addr: str, ok: bool) -> None:
     session.add(LoginAttempt(name=name[:200], client_addr=client_addr[:64], ok=ok, at=utcnow()))
+
+
+def prune_login_attempts(session: Session, before: datetime) -> int:
+    """Forget sign-in attempts older than ``before``; returns how many."""
+    return session.execute(delete(LoginAttempt).where(LoginAttempt.at < before)).rowcount
 
 
 def failed_attempts_from(session: Session, client_addr: str, since: datetime) -> int:
