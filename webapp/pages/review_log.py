@@ -62,7 +62,8 @@ def _verify_banner() -> html.P:
         head = audit.chain_head_summary(session)
     if intact:
         return html.P(
-            f"Review log intact ({reason}); chain head {str(head['hash'])[:16]}…", className="ld-success",
+            f"Review log verified: the hash chain of all {head['seq']} entries (every dataset) is intact; "
+            f"chain head {str(head['hash'])[:16]}…", className="ld-success",
             title=str(head["hash"]),
         )
     return html.P(f"Review log BROKEN at entry {broken}: {reason}", className="ld-alert")
