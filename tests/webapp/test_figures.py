@@ -341,3 +341,67 @@ def test_score_axes_for_another_pair():
     assert axes["picked"][0].tolist() == [scores[4, 2]]
     ex, ey = axes["ellipses"][0]
     np.testing.assert_allclose(ex**2 / scores[:, 2].var(ddof=1) + ey**2 / scores[:, 0].var(ddof=1), 5.0)
+
+
+# ------------------------------------------------------------------ selection
+# Plotly's trace attribute ``selectedpoints`` (plotly.js reference, scatter / scattergl):
+# indices of the selected points within the trace; an empty array dims all of the trace's
+# points, and no value (None) means no selection at all, every point drawn as usual.
+def _expected_selected(trace, chosen: set) -> list[int]:
+    """Positions within the trace of the chosen ids, read off the trace's own point ids."""
+    return [i for i, text in enumerate(trace.text) if text in chosen]
+
+
+def test_selected_ids_map_to_selectedpoints_of_each_group_trace():
+    scores, _, _, ratio = _iris_pca()
+    species = np.array(load_iris().target_names)[load_iris().target]
+    ids = [f"iris-{i + 1}" for i in range(150)]
+    # two setosa (rows 0-49), one virginica (rows 100-149), none of versicolor; one unknown id
+    chosen = ["iris-3", "iris-120", "iris-41", "no-such-sample"]
+    fig = F.score_figure(scores, ratio, sample_ids=ids, colour_values=species, colour_name="species",
+                         selected=chosen)
+    groups = {t.name: t for t in fig.data if t.name in set(species)}
+    assert list(groups["setosa"].selectedpoints) == [2, 40]  # rows 2 and 40 in a trace of rows 0-49
+    assert list(groups["virginica"].selectedpoints) == [19]  # row 119 in a trace of rows 100-149
+    assert list(groups["versicolor"].selectedpoints) == []  # all dimmed, as after a drag
+    for trace in groups.values():
+        assert list(trace.selectedpoints) == _expected_selected(trace, set(chosen))
+    assert fig.layout.selectionrevision is False  # the figure's selection wins over an earlier drag
+
+
+def test_nothing_selected_or_only_unknown_ids_draw_every_point_as_usual():
+    scores, _, _, ratio = _iris_pca()
+    species = np.array(load_iris().target_names)[load_iris().target]
+    for chosen in (None, [], ["not-in-this-fit"]):
+        fig = F.score_figure(scores, ratio, colour_values=species, selected=chosen)
+        assert all(t.selectedpoints is None for t in fig.data)
+    # without sample ids the points are named 1..n, and the selection uses those names
+    fig = F.score_figure(scores, ratio, selected=["1", "150"])
+    assert list(fig.data[0].selectedpoints) == [0, 149]
+
+
+def test_selection_in_a_large_score_plot_and_the_diagnostics_plots():
+    rng = np.random.default_rng(5)
+    n = F.WEBGL_THRESHOLD + 300
+    ids = [f"s{i:05d}" for i in range(n)]
+    groups = rng.choice(["b", "a", "c"], size=n)
+    chosen = {ids[i] for i in rng.choice(n, size=60, replace=False)} | {"gone"}
+    fig = F.score_figure(rng.normal(size=(n, 2)), [0.6, 0.4], sample_ids=ids, colour_values=groups,
+                         selected=sorted(chosen))
+    points = [t for t in fig.data if t.type == "scattergl"]
+    assert len(points) == 3
+    for trace in points:
+        assert list(trace.selectedpoints) == _expected_selected(trace, chosen)
+    assert sum(len(t.selectedpoints) for t in points) == 60
+    assert fig.data[-1].name == "picked" and fig.data[-1].selectedpoints is None
+
+    t2, spe = rng.chisquare(2, n), rng.chisquare(3, n)
+    both = F.t2_spe_figure(t2, spe, {0.95: 6.0}, {0.95: 7.8}, sample_ids=ids, selected=sorted(chosen))
+    order = rng.permutation(n).astype(float)  # the chart sorts the points by this column
+    chart = F.control_chart_figure(t2, {0.95: 6.0, 0.99: 9.2}, name="T²", order=order, order_name="run",
+                                   sample_ids=ids, selected=sorted(chosen))
+    for fig in (both, chart):
+        marked = [t for t in fig.data if t.mode == "markers"]
+        assert marked and all(list(t.selectedpoints) == _expected_selected(t, chosen) for t in marked)
+        assert sum(len(t.selectedpoints) for t in marked) == 60
+    assert chart.data[0].mode == "lines" and chart.data[0].selectedpoints is None
