@@ -363,3 +363,93 @@ def test_large_score_plot_recolours_and_changes_axes_by_patch(fitted, monkeypatc
         np.testing.assert_allclose(np.abs(_decode(y)), np.abs(u[rows, 2] * s[2]), rtol=1e-6, atol=1e-6)  # float32
         assert {"operation": "Assign", "location": ["data", i, "mode"], "params": {"value": "markers+text"}} in ops3
     assert not any(o["operation"] in ("Delete", "Insert") for o in ops3)
+
+
+# ------------------------------------------------------- the selection on the plots
+# Plotly's ``selectedpoints`` (plotly.js reference): indices of the selected points within
+# a trace; an empty array dims all of the trace's points, no value draws none as selected.
+def _selected_ids(trace) -> set[str]:
+    return {trace.text[i] for i in trace.selectedpoints}
+
+
+def test_score_and_diagnostics_plots_draw_the_stored_selection(fitted):
+    app, result = fitted
+    _, views, _, _ = _pages()
+    # a selection made for another model names a sample this fit lacks: it is simply not drawn
+    store = {"dataset_id": result["dataset_id"], "fingerprint": "another-model",
+             "sample_ids": ["W-010", "W-120", "W-177", "X-999"]}
+    chosen = views.stored_selection(store)
+    drawn = {"W-010", "W-120", "W-177"}
+    with app.app_context():
+        scores, _ = views.score_update(result, pcx=2, pcy=3, colour="cultivar", shape=None, labels=False,
+                                       selected=chosen)
+        diagnostics = views.diagnostics_view(result, order="cultivar", selected=chosen)
+        cleared = views.diagnostics_view(result, order=None, selected=views.stored_selection(
+            {**store, "sample_ids": []}))
+    cultivar = dict(zip(wine_frame()["sample"], wine_frame()["cultivar"]))
+    groups = [t for t in scores.data if t.name and t.name.startswith("cultivar")]
+    for trace in groups:
+        # each cultivar trace marks exactly the chosen samples of that cultivar
+        assert _selected_ids(trace) == {s for s in drawn if cultivar[s] == trace.name}
+    assert set().union(*(_selected_ids(t) for t in groups)) == drawn
+    for fig in diagnostics:
+        marked = [t for t in fig.data if t.mode == "markers" and t.name]
+        assert set().union(*(_selected_ids(t) for t in marked)) == drawn
+    assert all(t.selectedpoints is None for fig in cleared for t in fig.data)
+
+
+def test_a_box_select_is_not_drawn_again_but_clear_and_saved_views_are(app):
+    _, views, _, _ = _pages()
+    event = {"points": [{"text": "W-002", "customdata": 1}, {"text": "W-001", "customdata": 0}]}
+    assert views.shows_selection(event, ["W-001", "W-002"])  # plotly.js already shows the drag
+    assert not views.shows_selection(event, [])  # "Clear"
+    assert not views.shows_selection(None, ["W-001"])  # a saved view opened, or another plot's drag
+    assert views.shows_selection(None, [])
+    assert views.stored_selection(None) == []
+
+
+def test_large_score_plot_sends_the_selection_by_patch(fitted, monkeypatch):
+    app, result = fitted
+    _, views, _, _ = _pages()
+    from dash import Patch
+
+    from webapp.ui import figures
+
+    monkeypatch.setattr(figures, "WEBGL_THRESHOLD", 100)  # treat the 178 wine samples as "many"
+    sample_ids = list(wine_frame()["sample"])
+    chosen = ["W-003", "W-060", "W-150", "X-999"]
+    rows = sorted(sample_ids.index(s) for s in chosen[:3])
+    with app.app_context():
+        fig, drawn = views.score_update(result, pcx=1, pcy=2, colour=None, shape=None, labels=False,
+                                        selected=chosen)
+        selected, drawn2 = views.score_update(result, pcx=1, pcy=2, colour=None, shape=None, labels=False,
+                                              selected=chosen[:1], drawn=drawn)
+        recoloured, drawn3 = views.score_update(result, pcx=1, pcy=2, colour="cultivar", shape=None, labels=False,
+                                                selected=chosen, drawn=drawn2)
+        cleared, _ = views.score_update(result, pcx=1, pcy=3, colour="cultivar", shape=None, labels=False,
+                                        selected=[], drawn=drawn3)
+    # the whole figure: one point trace in model order, so positions are rows
+    assert drawn["n_points"] == 1 and list(fig.data[0].selectedpoints) == rows
+    # the same view with another selection: only the selected points of the point trace change
+    assert isinstance(selected, Patch)
+    ops = selected.to_plotly_json()["operations"]
+    assert {tuple(o["location"]) for o in ops} == {("data", 0, "selectedpoints"), ("data", 3, "selectedpoints")}
+    point_op = next(o for o in ops if o["location"] == ["data", 0, "selectedpoints"])
+    assert _decode(point_op["params"]["value"]).tolist() == [sample_ids.index("W-003")]
+    picked_op = next(o for o in ops if o["location"] == ["data", 3, "selectedpoints"])  # 1 point trace + 2 ellipses
+    assert picked_op["params"]["value"] is None
+    # a recolour inserts one trace per cultivar, each carrying its part of the selection
+    ops = recoloured.to_plotly_json()["operations"]
+    inserted = [o["params"]["value"] for o in ops if o["operation"] == "Insert"]
+    assert drawn3["n_points"] == 3 == len(inserted)
+    marked = []
+    for trace in inserted:
+        members = _decode(trace["customdata"])
+        marked += members[_decode(trace["selectedpoints"])].tolist()
+    assert sorted(marked) == rows
+    assert next(o for o in ops if o["location"] == ["data", 5, "selectedpoints"])["params"]["value"] is None
+    # "Clear" (with an axis change): every point trace back to no selection
+    ops = cleared.to_plotly_json()["operations"]
+    for i in range(3):
+        assert {"operation": "Assign", "location": ["data", i, "selectedpoints"], "params": {"value": None}} in ops
+    assert not any(o["operation"] in ("Delete", "Insert") for o in ops)

@@ -18,7 +18,7 @@ import html as html_text
 import dash_ag_grid as dag
 import numpy as np
 import pandas as pd
-from dash import ALL, Input, Output, Patch, State, callback, clientside_callback, dcc, html, no_update
+from dash import ALL, Input, Output, Patch, State, callback, clientside_callback, ctx, dcc, html, no_update
 
 from analysis import diagnostics
 from webapp.ui import figures, ids
@@ -157,15 +157,17 @@ def ellipse_limits(n_samples: int) -> dict[float, float]:
 
 
 def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None, shape: str | None,
-                 labels: bool, sample: str | None = None, drawn: dict | None = None):
+                 labels: bool, sample: str | None = None, drawn: dict | None = None,
+                 selected: list[str] | None = None):
     """The score plot, or only what changed: (figure or dash.Patch, drawn state).
 
     ``drawn`` describes the plot on screen. When it shows many samples of the
-    same model without shapes, a new colouring, axis pair or label switch is sent
-    as a Patch (typed arrays): a recolour replaces the point traces (one per
-    group) and the legend, an axis change sends new coordinates; the T2 ellipses
-    and picked points are only touched when the axes change. Anything else draws
-    the figure again.
+    same model without shapes, a new colouring, axis pair, label switch or
+    selection is sent as a Patch (typed arrays): a recolour replaces the point
+    traces (one per group) and the legend, an axis change sends new coordinates;
+    the T2 ellipses and picked points are only touched when the axes change. Every
+    patch sets the selected points (``selected`` sample ids) of the point traces.
+    Anything else draws the figure again.
     """
     if not result or not result.get("ok"):
         return score_view(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=labels)[0], None
@@ -178,7 +180,8 @@ def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None,
     patchable = (drawn and drawn.get("large") and drawn.get("model") == state["model"] and not shape
                  and not drawn.get("shape") and "n_points" in drawn and n_comp >= 2 and max(x, y) < n_comp)
     if not patchable:
-        fig, _ = score_view(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=labels, sample=sample)
+        fig, _ = score_view(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=labels, sample=sample,
+                            selected=selected)
         if not (state["large"] and fig.data):
             return fig, None
         n_points = sum(1 for t in fig.data if t.type == "scattergl")
@@ -189,14 +192,15 @@ def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None,
     state["n_points"], state["n_legend"] = drawn["n_points"], drawn.get("n_legend", 0)
     recolour = colour != drawn.get("colour")
     new_axes = (pcx, pcy) != (drawn.get("pcx"), drawn.get("pcy"))
+    chosen = figures.selection_mask(model.sample_ids_, selected, model.n_samples_)
+    encoding = figures.score_colours(training_column(result, model, colour), colour)
     if recolour or new_axes:
         axes = figures.score_axes(model.scores_, model.explained_variance_ratio_, x, y, model.eigenvalues_,
                                   ellipse_limits(model.n_samples_), _picked(model, sample))
-        encoding = figures.score_colours(training_column(result, model, colour), colour)
     if recolour:
         # new point traces (one per group) and legend; the ellipses and the picked points stay
         traces = figures.score_point_traces(axes, figures.id_text(model.sample_ids_, model.n_samples_), encoding,
-                                            labels=bool(labels))
+                                            labels=bool(labels), chosen=chosen)
         first_legend = drawn["n_points"] + drawn["n_ellipses"] + 1
         for i in reversed(range(first_legend, first_legend + drawn.get("n_legend", 0))):
             del patch["data"][i]
@@ -208,12 +212,18 @@ def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None,
             patch["data"].append(entry.to_plotly_json())
         patch["layout"]["legend"]["title"]["text"] = encoding["title"]
         state["n_points"], state["n_legend"] = len(traces), len(encoding["legend"])
-    elif new_axes:
+    else:
         for i, part in enumerate(encoding["parts"]):
             rows = slice(None) if part["rows"] is None else part["rows"]
-            patch["data"][i]["x"] = figures.typed_array(axes["x"][rows], "f4")
-            patch["data"][i]["y"] = figures.typed_array(axes["y"][rows], "f4")
-            patch["data"][i]["hovertemplate"] = figures.point_hover(axes, part)
+            if new_axes:
+                patch["data"][i]["x"] = figures.typed_array(axes["x"][rows], "f4")
+                patch["data"][i]["y"] = figures.typed_array(axes["y"][rows], "f4")
+                patch["data"][i]["hovertemplate"] = figures.point_hover(axes, part)
+            # plotly.js writes a drag's selection into the figure it was given: always say which is meant
+            points = figures.selected_points(chosen, rows)
+            patch["data"][i]["selectedpoints"] = None if points is None else figures.typed_array(points, "i4")
+    # a drag also marks the picked points; they are never drawn as selected
+    patch["data"][state["n_points"] + drawn["n_ellipses"]]["selectedpoints"] = None
     if new_axes:
         for i, (ex, ey) in enumerate(axes["ellipses"]):
             patch["data"][state["n_points"] + i]["x"] = figures.typed_array(ex)
@@ -231,7 +241,7 @@ def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None,
 
 
 def score_view(result: dict | None, *, pcx: int, pcy: int, colour: str | None, shape: str | None,
-               labels: bool, sample: str | None = None):
+               labels: bool, sample: str | None = None, selected: list[str] | None = None):
     """The whole score plot for a fit result and view settings; (figure, cache_hit)."""
     if not result or not result.get("ok"):
         return figures.empty_figure("No model yet: choose settings and press Fit model."), None
@@ -252,6 +262,7 @@ def score_view(result: dict | None, *, pcx: int, pcy: int, colour: str | None, s
         symbol_values=training_column(result, model, shape),
         symbol_name=shape, labels=bool(labels), eigenvalues=model.eigenvalues_,
         t2_limits=ellipse_limits(model.n_samples_), metadata=meta, highlight=_picked(model, sample),
+        selected=selected,
     )
     fig.update_layout(meta={"model": info["fingerprint"]})  # which model a drawn plot shows
     return fig, info["cache_hit"]
@@ -282,8 +293,10 @@ def limits_of(model) -> tuple[dict[float, float], dict[float, float]]:
     return ({c: model.t2_limit(c) for c in LIMIT_LEVELS}, {c: model.spe_limit(c) for c in LIMIT_LEVELS})
 
 
-def diagnostics_view(result: dict | None, *, order: str | None, sample: str | None = None):
-    """(T2-vs-SPE figure, T2 chart, SPE chart) for a fit result."""
+def diagnostics_view(result: dict | None, *, order: str | None, sample: str | None = None,
+                     selected: list[str] | None = None):
+    """(T2-vs-SPE figure, T2 chart, SPE chart) for a fit result, the ``selected`` sample ids
+    drawn as selected on each."""
     if not result or not result.get("ok"):
         empty = figures.empty_figure("No model yet.")
         return empty, empty, empty
@@ -297,11 +310,11 @@ def diagnostics_view(result: dict | None, *, order: str | None, sample: str | No
     ids_ = model.sample_ids_
     order_values = training_column(result, model, order)
     both = figures.t2_spe_figure(model.t2_, model.spe_, t2_limits, spe_limits, sample_ids=ids_,
-                                 confidence=confidence, highlight=picked)
+                                 confidence=confidence, highlight=picked, selected=selected)
     t2_chart = figures.control_chart_figure(model.t2_, t2_limits, name="Hotelling's T²", order=order_values,
-                                            order_name=order, sample_ids=ids_, highlight=picked)
+                                            order_name=order, sample_ids=ids_, highlight=picked, selected=selected)
     spe_chart = figures.control_chart_figure(model.spe_, spe_limits, name="SPE", order=order_values,
-                                             order_name=order, sample_ids=ids_, highlight=picked)
+                                             order_name=order, sample_ids=ids_, highlight=picked, selected=selected)
     return both, t2_chart, spe_chart
 
 
@@ -424,6 +437,17 @@ def clicked_sample(event: dict | None) -> str | None:
     return None
 
 
+def stored_selection(selection: dict | None) -> list[str]:
+    """The sample ids of the selection store (any model's: ids the fit lacks are not drawn)."""
+    return list((selection or {}).get("sample_ids") or [])
+
+
+def shows_selection(event: dict | None, chosen: list[str]) -> bool:
+    """True when a plot's last box or lasso selection is exactly these samples: plotly.js
+    already draws it, so the figure need not be sent again."""
+    return set(selected_samples(event)) == set(chosen)
+
+
 def selected_samples(event: dict | None) -> list[str]:
     """Sample ids of a box or lasso selection (unique, in the order received)."""
     seen: dict[str, None] = {}
@@ -444,12 +468,17 @@ def selected_samples(event: dict | None) -> list[str]:
     Input(ids.VIEW_COLOUR, "value"),
     Input(ids.VIEW_SHAPE, "value"),
     Input(ids.VIEW_LABELS, "value"),
+    Input(ids.SELECTION_STORE, "data"),
     State(ids.VIEW_SAMPLE, "data"),
     State(ids.SCORE_DRAWN, "data"),
+    State(ids.GRAPH_SCORES, "selectedData"),
 )
-def _scores(result, pcx, pcy, colour, shape, labels, sample, drawn):
+def _scores(result, pcx, pcy, colour, shape, labels, selection, sample, drawn, event):
+    chosen = stored_selection(selection)
+    if ctx.triggered_id == ids.SELECTION_STORE and shows_selection(event, chosen):
+        return no_update, no_update
     return score_update(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=bool(labels), sample=sample,
-                        drawn=drawn)
+                        drawn=drawn, selected=chosen)
 
 
 @callback(
@@ -470,10 +499,19 @@ def _loadings(result, pcx, pcy, mode, colour):
     Output(ids.GRAPH_SPE_CHART, "figure"),
     Input(ids.FIT_RESULT, "data"),
     Input(ids.VIEW_ORDER, "value"),
+    Input(ids.SELECTION_STORE, "data"),
     State(ids.VIEW_SAMPLE, "data"),
+    State(ids.GRAPH_T2_SPE, "selectedData"),
+    State(ids.GRAPH_T2_CHART, "selectedData"),
+    State(ids.GRAPH_SPE_CHART, "selectedData"),
 )
-def _diagnostics(result, order, sample):
-    return diagnostics_view(result, order=order, sample=sample)
+def _diagnostics(result, order, selection, sample, *events):
+    chosen = stored_selection(selection)
+    figs = diagnostics_view(result, order=order, sample=sample, selected=chosen)
+    if ctx.triggered_id != ids.SELECTION_STORE:
+        return figs
+    # a new selection: the plot it was drawn on already shows it, the other two are drawn again
+    return tuple(no_update if shows_selection(event, chosen) else fig for fig, event in zip(figs, events))
 
 
 @callback(
