@@ -16,6 +16,10 @@ from tests.e2e.conftest import SCREENSHOTS, box_select_right_of_scores, lab_data
 from webapp.ui import ids, url_state
 
 FIT_WAIT = 90_000
+# how many points the score plot draws as selected, and how many of its SVG points are dimmed
+SELECTED_POINTS = (f"() => document.querySelector('#{ids.GRAPH_SCORES} .js-plotly-plot')._fullData"
+                   ".reduce((n, t) => n + (Array.isArray(t.selectedpoints) ? t.selectedpoints.length : 0), 0)")
+DIMMED = "points => points.filter(p => parseFloat(getComputedStyle(p).opacity) < 0.5).length"
 
 
 def _fingerprint_shown(page) -> str:
@@ -64,7 +68,14 @@ def test_saved_view_restores_the_selection_for_another_user(demo_server, new_pag
     viewer_panel = viewer.locator(f"#{ids.SELECTION_PANEL}")
     expect(viewer_panel).to_contain_text(f"{count} sample{'s' if count != 1 else ''} selected")
     expect(viewer_panel.locator(".ld-selection-ids")).to_have_text(selected_text)
+    # the score plot draws the same samples as selected (plotly's selectedpoints), the rest dimmed
+    viewer.wait_for_function(SELECTED_POINTS + f" === {count}", timeout=FIT_WAIT)
+    assert viewer.locator(f"#{ids.GRAPH_SCORES} .scatterlayer .point").evaluate_all(DIMMED) > 0
     viewer.screenshot(path=str(SCREENSHOTS / "saved-view-dataset.png"), full_page=True)
+    viewer_panel.get_by_role("button", name="Clear").click()
+    viewer.wait_for_function(SELECTED_POINTS + " === 0")
+    viewer.wait_for_function(f"() => !document.querySelector('#{ids.GRAPH_SCORES} .js-plotly-plot')"
+                             "._fullData.some(t => Array.isArray(t.selectedpoints))")
 
     # A reviewer given the dataset-page address: the address still names the view, so the
     # same selection is listed and the proposal link carries it.

@@ -244,8 +244,10 @@ def test_clicks_and_selections_give_the_sample_ids_back(app):
     assert views.clicked_sample({"points": [{"x": 1}]}) is None
     event = {"points": [{"text": "W-002"}, {"text": "W-001"}, {"text": "W-002"}]}
     assert views.selected_samples(event) == ["W-002", "W-001"]
-    store = views.selection_data(event, {"dataset_id": 5, "sample_ids": []}, {"fingerprint": "f", "dataset_id": 5})
-    assert store == {"dataset_id": 5, "fingerprint": "f", "sample_ids": ["W-002", "W-001"]}
+    store = views.selection_data(event, {"dataset_id": 5, "sample_ids": []}, {"fingerprint": "f", "dataset_id": 5},
+                                 ids.GRAPH_SCORES)
+    assert store == {"dataset_id": 5, "fingerprint": "f", "sample_ids": ["W-002", "W-001"],
+                     "drawn_on": ids.GRAPH_SCORES}
     applied = {"exclude": ["W-009"], "components": 2}
     assert samples.leave_out(applied, store)["exclude"] == ["W-009", "W-002", "W-001"]
     assert samples.leave_out(applied, {"sample_ids": []}) is None
@@ -399,12 +401,21 @@ def test_score_and_diagnostics_plots_draw_the_stored_selection(fitted):
 
 
 def test_a_box_select_is_not_drawn_again_but_clear_and_saved_views_are(app):
-    _, views, _, _ = _pages()
+    _, views, samples, _ = _pages()
     event = {"points": [{"text": "W-002", "customdata": 1}, {"text": "W-001", "customdata": 0}]}
-    assert views.shows_selection(event, ["W-001", "W-002"])  # plotly.js already shows the drag
-    assert not views.shows_selection(event, [])  # "Clear"
-    assert not views.shows_selection(None, ["W-001"])  # a saved view opened, or another plot's drag
-    assert views.shows_selection(None, [])
+    dragged = views.selection_data(event, None, {"dataset_id": 5, "fingerprint": "f"}, ids.GRAPH_T2_SPE)
+    assert views.shows_selection(ids.GRAPH_T2_SPE, event, dragged)  # plotly.js already shows the drag
+    assert not views.shows_selection(ids.GRAPH_T2_CHART, None, dragged)  # the other plots are drawn again
+    # "Clear" keeps the plot's last drag event but the store no longer names that plot
+    cleared = samples.cleared_selection(dragged)
+    assert cleared["sample_ids"] == [] and cleared["dataset_id"] == 5
+    assert not views.shows_selection(ids.GRAPH_T2_SPE, event, cleared)
+    # an empty box on the plot, then Clear: still drawn again, plotly.js dimmed every point
+    empty = views.selection_data({"points": []}, None, None, ids.GRAPH_SCORES)
+    assert views.shows_selection(ids.GRAPH_SCORES, {"points": []}, empty)
+    assert not views.shows_selection(ids.GRAPH_SCORES, {"points": []}, samples.cleared_selection(empty))
+    # a saved view opened: nothing was dragged, every plot draws the selection
+    assert not views.shows_selection(ids.GRAPH_SCORES, None, {"dataset_id": 5, "sample_ids": ["W-001"]})
     assert views.stored_selection(None) == []
 
 

@@ -165,6 +165,12 @@ def leave_out(applied: dict | None, selection: dict | None) -> dict | None:
     return {**(applied or {}), "exclude": merged}
 
 
+def cleared_selection(selection: dict | None) -> dict:
+    """The selection store after "Clear": no samples, and no plot that already shows
+    that (so every plot is drawn again without the old selection)."""
+    return {**(selection or {}), "sample_ids": [], "drawn_on": None}
+
+
 def download_payload(result: dict | None, which: str, fmt: str) -> tuple[bytes, str] | None:
     """(file bytes, file name) of one table of the fit on screen, or None without a model."""
     if not result or not result.get("ok"):
@@ -213,7 +219,7 @@ def _selection(selection):
 def _clear(clicks, selection):
     if not clicks:
         return no_update
-    return {**(selection or {}), "sample_ids": []}
+    return cleared_selection(selection)
 
 
 @callback(

@@ -442,10 +442,13 @@ def stored_selection(selection: dict | None) -> list[str]:
     return list((selection or {}).get("sample_ids") or [])
 
 
-def shows_selection(event: dict | None, chosen: list[str]) -> bool:
-    """True when a plot's last box or lasso selection is exactly these samples: plotly.js
-    already draws it, so the figure need not be sent again."""
-    return set(selected_samples(event)) == set(chosen)
+def shows_selection(graph_id: str, event: dict | None, selection: dict | None) -> bool:
+    """True when the selection store holds the box or lasso selection just made on this
+    plot (``event``, its ``selectedData``): plotly.js already draws it, so the figure
+    need not be sent again. Any other store (Clear, a saved view, another plot's drag)
+    has to be drawn."""
+    return ((selection or {}).get("drawn_on") == graph_id
+            and set(selected_samples(event)) == set(stored_selection(selection)))
 
 
 def selected_samples(event: dict | None) -> list[str]:
@@ -474,11 +477,10 @@ def selected_samples(event: dict | None) -> list[str]:
     State(ids.GRAPH_SCORES, "selectedData"),
 )
 def _scores(result, pcx, pcy, colour, shape, labels, selection, sample, drawn, event):
-    chosen = stored_selection(selection)
-    if ctx.triggered_id == ids.SELECTION_STORE and shows_selection(event, chosen):
+    if ctx.triggered_id == ids.SELECTION_STORE and shows_selection(ids.GRAPH_SCORES, event, selection):
         return no_update, no_update
     return score_update(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=bool(labels), sample=sample,
-                        drawn=drawn, selected=chosen)
+                        drawn=drawn, selected=stored_selection(selection))
 
 
 @callback(
@@ -506,12 +508,13 @@ def _loadings(result, pcx, pcy, mode, colour):
     State(ids.GRAPH_SPE_CHART, "selectedData"),
 )
 def _diagnostics(result, order, selection, sample, *events):
-    chosen = stored_selection(selection)
-    figs = diagnostics_view(result, order=order, sample=sample, selected=chosen)
+    figs = diagnostics_view(result, order=order, sample=sample, selected=stored_selection(selection))
     if ctx.triggered_id != ids.SELECTION_STORE:
         return figs
     # a new selection: the plot it was drawn on already shows it, the other two are drawn again
-    return tuple(no_update if shows_selection(event, chosen) else fig for fig, event in zip(figs, events))
+    graphs = (ids.GRAPH_T2_SPE, ids.GRAPH_T2_CHART, ids.GRAPH_SPE_CHART)
+    return tuple(no_update if shows_selection(graph, event, selection) else fig
+                 for graph, fig, event in zip(graphs, figs, events))
 
 
 @callback(
@@ -587,15 +590,17 @@ def _click_callback(graph_id: str) -> None:
     def _selected(event, current, result):
         if event is None:
             return no_update
-        return selection_data(event, current, result)
+        return selection_data(event, current, result, graph_id)
 
 
-def selection_data(event: dict | None, current: dict | None, result: dict | None) -> dict:
-    """The selection store after a box or lasso selection on a plot."""
+def selection_data(event: dict | None, current: dict | None, result: dict | None,
+                   drawn_on: str | None = None) -> dict:
+    """The selection store after a box or lasso selection on the plot ``drawn_on``."""
     return {
         "dataset_id": (current or {}).get("dataset_id") or (result or {}).get("dataset_id"),
         "fingerprint": (result or {}).get("fingerprint"),
         "sample_ids": selected_samples(event),
+        "drawn_on": drawn_on,
     }
 
 
