@@ -18,7 +18,7 @@ import re
 
 import numpy as np
 import openpyxl
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from analysis.intake import IntakeError, read_table
@@ -157,6 +157,9 @@ def test_mutated_csv_with_options(raw, options):
 # --- round trip: written numbers come back -------------------------------------------------
 
 
+_AMBIGUOUS_COMMA = re.compile(r'^"?-?[1-9]\d{0,2},\d{3}"?$')
+
+
 def _format(x: float, decimals: int, decimal: str, grouping: bool) -> str:
     text = f"{x:,.{decimals}f}" if grouping else f"{x:.{decimals}f}"
     if decimal == ",":
@@ -196,6 +199,11 @@ def test_round_trip_of_written_numbers(data, n, p, dialect, encoding, newline, q
     for i in range(n):
         cells = [f"S-{i:03d}"] + [_format(v, decimals, decimal, grouping) for v in values[i]]
         lines.append(delimiter.join(q(c) for c in cells))
+    # "1,234" alone could be either mark, and intake reads it with a decimal comma only in a
+    # ';'-separated file (docs/file-formats.md): a file whose numbers all look like that is not
+    # a round trip (common practice: such a file is ambiguous to a person too).
+    if decimal == "," and delimiter != ";":
+        assume(not all(_AMBIGUOUS_COMMA.match(c) for row in lines[1:] for c in row.split(delimiter)[1:]))
     raw = (newline.join(lines) + newline).encode(encoding)
     table, report = read_table(raw, "roundtrip.csv")
     assert table.sample_ids == [f"S-{i:03d}" for i in range(n)]
