@@ -404,18 +404,18 @@ def test_a_box_select_is_not_drawn_again_but_clear_and_saved_views_are(app):
     _, views, samples, _ = _pages()
     event = {"points": [{"text": "W-002", "customdata": 1}, {"text": "W-001", "customdata": 0}]}
     dragged = views.selection_data(event, None, {"dataset_id": 5, "fingerprint": "f"}, ids.GRAPH_T2_SPE)
-    assert views.shows_selection(ids.GRAPH_T2_SPE, event, dragged)  # plotly.js already shows the drag
-    assert not views.shows_selection(ids.GRAPH_T2_CHART, None, dragged)  # the other plots are drawn again
-    # "Clear" keeps the plot's last drag event but the store no longer names that plot
+    assert views.shows_selection(ids.GRAPH_T2_SPE, dragged)  # plotly.js already shows the drag
+    assert not views.shows_selection(ids.GRAPH_T2_CHART, dragged)  # the other plots are drawn again
+    # "Clear": the store no longer names the plot, so every plot is drawn again
     cleared = samples.cleared_selection(dragged)
     assert cleared["sample_ids"] == [] and cleared["dataset_id"] == 5
-    assert not views.shows_selection(ids.GRAPH_T2_SPE, event, cleared)
+    assert not views.shows_selection(ids.GRAPH_T2_SPE, cleared)
     # an empty box on the plot, then Clear: still drawn again, plotly.js dimmed every point
     empty = views.selection_data({"points": []}, None, None, ids.GRAPH_SCORES)
-    assert views.shows_selection(ids.GRAPH_SCORES, {"points": []}, empty)
-    assert not views.shows_selection(ids.GRAPH_SCORES, {"points": []}, samples.cleared_selection(empty))
+    assert views.shows_selection(ids.GRAPH_SCORES, empty)
+    assert not views.shows_selection(ids.GRAPH_SCORES, samples.cleared_selection(empty))
     # a saved view opened: nothing was dragged, every plot draws the selection
-    assert not views.shows_selection(ids.GRAPH_SCORES, None, {"dataset_id": 5, "sample_ids": ["W-001"]})
+    assert not views.shows_selection(ids.GRAPH_SCORES, {"dataset_id": 5, "sample_ids": ["W-001"]})
     assert views.stored_selection(None) == []
 
 

@@ -165,9 +165,9 @@ def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None,
     same model without shapes, a new colouring, axis pair, label switch or
     selection is sent as a Patch (typed arrays): a recolour replaces the point
     traces (one per group) and the legend, an axis change sends new coordinates;
-    the T2 ellipses and picked points are only touched when the axes change. Every
-    patch sets the selected points (``selected`` sample ids) of the point traces.
-    Anything else draws the figure again.
+    the T2 ellipses and picked points move only when the axes change. Every patch
+    sets the selected points (``selected`` sample ids) of the point traces, so a
+    selection change alone is a small patch. Anything else draws the figure again.
     """
     if not result or not result.get("ok"):
         return score_view(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=labels)[0], None
@@ -442,13 +442,12 @@ def stored_selection(selection: dict | None) -> list[str]:
     return list((selection or {}).get("sample_ids") or [])
 
 
-def shows_selection(graph_id: str, event: dict | None, selection: dict | None) -> bool:
+def shows_selection(graph_id: str, selection: dict | None) -> bool:
     """True when the selection store holds the box or lasso selection just made on this
-    plot (``event``, its ``selectedData``): plotly.js already draws it, so the figure
-    need not be sent again. Any other store (Clear, a saved view, another plot's drag)
-    has to be drawn."""
-    return ((selection or {}).get("drawn_on") == graph_id
-            and set(selected_samples(event)) == set(stored_selection(selection)))
+    plot: plotly.js already draws it, so the figure need not be sent again. Any other
+    store (Clear, a saved view, another plot's drag) has to be drawn. (The plot's own
+    ``selectedData`` is not read: with many samples it is megabytes.)"""
+    return (selection or {}).get("drawn_on") == graph_id
 
 
 def selected_samples(event: dict | None) -> list[str]:
@@ -474,10 +473,9 @@ def selected_samples(event: dict | None) -> list[str]:
     Input(ids.SELECTION_STORE, "data"),
     State(ids.VIEW_SAMPLE, "data"),
     State(ids.SCORE_DRAWN, "data"),
-    State(ids.GRAPH_SCORES, "selectedData"),
 )
-def _scores(result, pcx, pcy, colour, shape, labels, selection, sample, drawn, event):
-    if ctx.triggered_id == ids.SELECTION_STORE and shows_selection(ids.GRAPH_SCORES, event, selection):
+def _scores(result, pcx, pcy, colour, shape, labels, selection, sample, drawn):
+    if ctx.triggered_id == ids.SELECTION_STORE and shows_selection(ids.GRAPH_SCORES, selection):
         return no_update, no_update
     return score_update(result, pcx=pcx, pcy=pcy, colour=colour, shape=shape, labels=bool(labels), sample=sample,
                         drawn=drawn, selected=stored_selection(selection))
@@ -503,18 +501,14 @@ def _loadings(result, pcx, pcy, mode, colour):
     Input(ids.VIEW_ORDER, "value"),
     Input(ids.SELECTION_STORE, "data"),
     State(ids.VIEW_SAMPLE, "data"),
-    State(ids.GRAPH_T2_SPE, "selectedData"),
-    State(ids.GRAPH_T2_CHART, "selectedData"),
-    State(ids.GRAPH_SPE_CHART, "selectedData"),
 )
-def _diagnostics(result, order, selection, sample, *events):
+def _diagnostics(result, order, selection, sample):
     figs = diagnostics_view(result, order=order, sample=sample, selected=stored_selection(selection))
     if ctx.triggered_id != ids.SELECTION_STORE:
         return figs
     # a new selection: the plot it was drawn on already shows it, the other two are drawn again
     graphs = (ids.GRAPH_T2_SPE, ids.GRAPH_T2_CHART, ids.GRAPH_SPE_CHART)
-    return tuple(no_update if shows_selection(graph, event, selection) else fig
-                 for graph, fig, event in zip(graphs, figs, events))
+    return tuple(no_update if shows_selection(graph, selection) else fig for graph, fig in zip(graphs, figs))
 
 
 @callback(
