@@ -23,7 +23,7 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 import pandas as pd
 
-from analysis.intake_cells import MISSING_MARKERS, looks_numeric, parse_column
+from analysis.intake_cells import MARKER_SPELLINGS, MISSING_MARKERS, looks_numeric, parse_column
 from analysis.intake_layout import Grid, IntakeError
 from analysis.intake_text import read_text
 from analysis.intake_xlsx import read_xlsx
@@ -42,7 +42,6 @@ _ID_NAME = re.compile(
     r"(?:id|no\.?|nr\.?|number|code|name|sample|specimen)$",
     re.IGNORECASE,
 )
-_MARKER_SPELLINGS = sorted({v for m in MISSING_MARKERS for v in (m, m.upper(), m.capitalize(), m.title())})
 _BLANKS = (" ", "\t", "\r", "\n", "\u00a0", "\u202f", "\u3000")
 _POLICY_TEXT = {"half": "LOD/2", "sqrt2": "LOD/sqrt(2)", "missing": "missing"}
 _SIGNATURES = (
@@ -259,38 +258,41 @@ def _typed(
 
     decided, numbers, parses = _decide_roles(frame, roles, grid.decimal, below_limit)
     # Fully blank rows and columns (trailing separators, blank lines) vanish silently.
-    blank_row = frame.isna().all(axis=1).to_numpy()
-    texts: dict[str, np.ndarray] = {}  # metadata and id columns as clean text, None where missing
+    blank_row = _blank_rows(frame)
+    keep = ~blank_row
+    all_kept = bool(keep.all())
+    texts: dict[str, np.ndarray] = {}  # metadata and id columns as clean text of the kept rows, None where missing
 
     def text_of(col: str) -> np.ndarray:
         if col not in texts:
-            texts[col] = _text(frame[col])
+            cells = _text(frame[col], grid.markers_read)
+            texts[col] = cells if all_kept else cells[keep]
         return texts[col]
 
     for col in list(decided):
-        if decided[col] == "variable" and np.isnan(numbers[col][~blank_row]).all() and col not in roles:
+        if decided[col] == "variable" and np.isnan(numbers[col][keep]).all() and col not in roles:
             empty_text = parses[col] is None or not (parses[col].bare_limit or parses[col].bad)
             if empty_text:
                 decided[col] = "ignore"
                 del numbers[col]
                 if col not in grid.unnamed:
                     report.warnings.append(f"{where(col)} has no values and was left out.")
-        elif decided[col] == "metadata" and pd.isna(text_of(col)[~blank_row]).all() and col not in roles:
+        elif decided[col] == "metadata" and col not in roles and all(c is None for c in text_of(col)):
             decided[col] = "ignore"
             if col not in grid.unnamed:
                 report.warnings.append(f"{where(col)} has no values and was left out.")
-    keep = ~blank_row
     rows = rows[keep]
 
     # Sample ids.
-    id_col = next((c for c, r in decided.items() if r == "id"), None)
+    id_col, ids_checked = next((c for c, r in decided.items() if r == "id"), None), False
     if id_col is None:
-        id_col = _detect_id(frame, text_of, decided, keep, roles)
+        id_col, ids_checked = _detect_id(frame, text_of, decided, roles)
         if id_col is not None:
             decided[id_col] = "id"
     if id_col is not None:
-        ids = text_of(id_col)[keep]
-        _check_ids(ids, rows, id_col, where(id_col), filename)
+        ids = text_of(id_col)
+        if not ids_checked:
+            _check_ids(ids, rows, id_col, where(id_col), filename)
     else:
         ids = np.array([f"row {r}" for r in rows], dtype=object)
         first = frame.columns[0]
@@ -350,9 +352,7 @@ def _typed(
         data = pd.DataFrame(numbers, columns=variables, copy=False)  # long tables: no copy of the values
     data.index = pd.Index(ids, dtype=object, name=id_col or "sample")
     metadata_cols = [c for c, r in decided.items() if r == "metadata"]
-    metadata = pd.DataFrame(
-        {c: text_of(c)[keep] for c in metadata_cols}, index=data.index, columns=metadata_cols
-    )
+    metadata = pd.DataFrame({c: text_of(c) for c in metadata_cols}, index=data.index, columns=metadata_cols)
 
     # Rows where every variable is missing are left out, with a warning.
     data_missing = data.isna()
@@ -439,13 +439,29 @@ def _looks_like_numbers(series: pd.Series, decimal: str) -> bool:
     return sum(looks_numeric(c, decimal) for c in cells) >= 0.5 * len(cells)
 
 
-def _text(series: pd.Series) -> np.ndarray:
-    """Cells as stripped strings, None where blank or a missing marker; whole numbers lose their '.0'."""
+def _blank_rows(frame: pd.DataFrame) -> np.ndarray:
+    """Rows where every cell is missing; numeric columns first, stopping once no row is left."""
+    blank = np.ones(len(frame), dtype=bool)
+    for col in sorted(frame.columns, key=lambda c: not _is_numeric(frame[c])):
+        blank &= frame[col].isna().to_numpy()
+        if not blank.any():
+            break
+    return blank
+
+
+def _text(series: pd.Series, markers_read: bool = False) -> np.ndarray:
+    """Cells as stripped strings, None where blank or a missing marker; whole numbers lose their '.0'.
+
+    ``markers_read``: the reader already read the marker spellings as missing, so
+    unpadded text needs no second look.
+    """
     cells = series.to_numpy(dtype=object, na_value=None) if not _is_numeric(series) else series.to_numpy(dtype=object)
     plain = all(isinstance(c, str) or c is None for c in cells[:1000]) and pd.api.types.is_string_dtype(series.dtype)
     if not plain or _has_padding(cells):
         cells = np.array([_cell_text(c) for c in cells] or [], dtype=object)
-    missing = pd.Series(cells, dtype=object).isin(_MARKER_SPELLINGS).to_numpy() | np.equal(cells, None)
+    elif markers_read:
+        return cells
+    missing = pd.Series(cells, dtype=object).isin(MARKER_SPELLINGS).to_numpy() | np.equal(cells, None)
     if missing.any():
         cells = cells.copy()
         cells[missing] = None
@@ -466,23 +482,26 @@ def _has_padding(cells: np.ndarray) -> bool:
     return any(b in joined and (f"\x00{b}" in joined or f"{b}\x00" in joined) for b in _BLANKS)
 
 
-def _detect_id(frame: pd.DataFrame, text_of, decided: dict, keep: np.ndarray, roles: dict) -> str | None:
+def _detect_id(frame: pd.DataFrame, text_of, decided: dict, roles: dict) -> tuple[str | None, bool]:
     """First metadata column (not named by the user) whose values are all present and unique.
 
     A first column named like an id ("Sample ID", "Code", ...) or holding
     nearly unique text (at least 80% distinct) is taken as the id column too,
-    so that a duplicated id is reported, not hidden.
+    so that a duplicated id is reported, not hidden. Returns the column (or
+    None) and whether its ids are already known to be present and unique.
     """
     for j, col in enumerate(frame.columns):
         if decided[col] != "metadata" or col in roles:
             continue
-        cells = text_of(col)[keep]
+        cells = text_of(col)
         if pd.isna(cells).any():
             continue
         index = pd.Index(cells, dtype=object)
-        if index.is_unique or (j == 0 and (_ID_NAME.match(col) or index.nunique() >= 0.8 * len(index))):
-            return col
-    return None
+        if index.is_unique:
+            return col, True
+        if j == 0 and (_ID_NAME.match(col) or index.nunique() >= 0.8 * len(index)):
+            return col, False
+    return None, False
 
 
 def _check_ids(ids: np.ndarray, rows: np.ndarray, col: str, where: str, filename: str) -> None:

@@ -26,9 +26,10 @@ MISSING_MARKERS = frozenset(
         "#num!", "#ref!", "#name?", "#null!", "#calc!", "#spill!", "#getting_data", "not available",
     }
 )
-# Spelled-out variants handed to pandas' C parser (it matches exactly).
-PANDAS_NA_VALUES = sorted(
-    MISSING_MARKERS | {m.upper() for m in MISSING_MARKERS} | {"NaN", "N/A", "NA", "Null", "None", "N.D.", "#N/A"}
+# The spellings matched exactly (pandas' C parser, text columns): as written, upper case,
+# capitalised and title case, plus "NaN".
+MARKER_SPELLINGS = sorted(
+    {v for m in MISSING_MARKERS for v in (m, m.upper(), m.capitalize(), m.title())} | {"NaN"}
 )
 
 _SIGN = r"[+-]?"

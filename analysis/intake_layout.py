@@ -44,6 +44,7 @@ class Grid:
     encoding: str | None = None
     delimiter: str | None = None
     sheet: str | None = None
+    markers_read: bool = False  # the reader already read every marker spelling as missing
 
 
 def column_letter(index: int) -> str:

@@ -17,7 +17,7 @@ from collections import Counter
 import numpy as np
 import pandas as pd
 
-from analysis.intake_cells import MISSING_MARKERS, PANDAS_NA_VALUES
+from analysis.intake_cells import MARKER_SPELLINGS, MISSING_MARKERS
 from analysis.intake_layout import (
     Grid,
     IntakeError,
@@ -216,7 +216,7 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
             **_rows_above_data(rows[skip - 1], len(names), skip),
             skip_blank_lines=False,
             keep_default_na=False,
-            na_values=PANDAS_NA_VALUES,
+            na_values=MARKER_SPELLINGS,
             dtype={n: str for j, n in enumerate(names) if n in text_columns or j >= len(rows[header])},
             encoding=pandas_encoding,
             engine="c",
@@ -236,6 +236,7 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
         unnamed=unnamed,
         encoding=encoding,
         delimiter=delimiter,
+        markers_read=True,
     )
 
 
