@@ -355,8 +355,8 @@ def _typed(
     metadata = pd.DataFrame({c: text_of(c) for c in metadata_cols}, index=data.index, columns=metadata_cols)
 
     # Rows where every variable is missing are left out, with a warning.
-    data_missing = data.isna()
-    row_missing = data_missing.to_numpy().sum(axis=1)
+    columns = _column_arrays(data)
+    col_missing, row_missing = _missing_counts(columns, len(data))
     empty = row_missing == data.shape[1]
     if empty.any():
         report.dropped_rows = [int(r) for r in rows[empty]]
@@ -365,7 +365,8 @@ def _typed(
             f"{int(empty.sum())} row(s) with no numeric values were left out (rows {shown}"
             + (", ..." if empty.sum() > MAX_LISTED else "") + ")."
         )
-        data, metadata, data_missing, row_missing = data[~empty], metadata[~empty], data_missing[~empty], row_missing[~empty]
+        data, metadata, row_missing = data[~empty], metadata[~empty], row_missing[~empty]
+        columns, col_missing = _column_arrays(data), col_missing - int(empty.sum())
     if data.shape[0] < min_samples:
         raise IntakeError(
             f"{filename}: only {data.shape[0]} sample(s) with numeric values; at least {min_samples} "
@@ -376,8 +377,8 @@ def _typed(
             f"{filename}: only {data.shape[1]} numeric variable ({', '.join(map(repr, variables))}); at least 2 "
             f"are needed. Text columns: {', '.join(map(repr, metadata_cols[:20])) or 'none'}."
         )
-    _warn_about_values(report, data, data_missing, row_missing, where, mostly_missing)
-    report.missing_counts = {c: int(n) for c, n in data_missing.sum().items()}
+    _warn_about_values(report, data, columns, col_missing, row_missing, where, mostly_missing)
+    report.missing_counts = {c: int(n) for c, n in zip(data.columns, col_missing)}
     report.units = {c: u for c, u in grid.units.items() if c in numbers}
     report.n_samples, report.n_variables = data.shape
     table = Table(data=data, metadata=metadata, units=dict(report.units), id_column=id_col)
@@ -544,15 +545,35 @@ def _count_parse(report: IntakeReport, col: str, where: str, parse, policy: str)
         )
 
 
-def _warn_about_values(report, data: pd.DataFrame, missing: pd.DataFrame, row_missing: np.ndarray, where, mostly_missing: float) -> None:
-    lowest, highest = data.min(), data.max()
-    constant = (lowest == highest).to_numpy() & (data.shape[0] > 1)  # one new sample is trivially "constant"
-    for c in data.columns[constant]:
-        report.warnings.append(f"{where(c)} is constant; it cannot be autoscaled.")
-    frac_col = missing.mean(axis=0)
-    for c, f in frac_col.items():
-        if f > mostly_missing:
-            report.warnings.append(f"{where(c)} is {f:.0%} missing.")
+def _column_arrays(data: pd.DataFrame) -> list[np.ndarray]:
+    """The variables' values column by column, without copying a long table into one 2-D block."""
+    if len(data.columns) > WIDE:
+        return list(data.to_numpy().T)  # already one block
+    return [data[c].to_numpy() for c in data.columns]
+
+
+def _missing_counts(columns: list[np.ndarray], n_rows: int) -> tuple[np.ndarray, np.ndarray]:
+    """Missing cells per column and per row (rows are only summed over columns that have any)."""
+    per_col = np.zeros(len(columns), dtype=np.int64)
+    per_row = np.zeros(n_rows, dtype=np.int64)
+    for j, values in enumerate(columns):
+        missing = np.isnan(values)
+        per_col[j] = np.count_nonzero(missing)
+        if per_col[j]:
+            per_row += missing
+    return per_col, per_row
+
+
+def _warn_about_values(report, data: pd.DataFrame, columns: list[np.ndarray], col_missing: np.ndarray,
+                       row_missing: np.ndarray, where, mostly_missing: float) -> None:
+    n_rows = data.shape[0]
+    for c, values, missing in zip(data.columns, columns, col_missing):
+        if missing < n_rows and n_rows > 1:  # one new sample is trivially "constant"
+            present = values if missing == 0 else values[~np.isnan(values)]
+            if present.min() == present.max():
+                report.warnings.append(f"{where(c)} is constant; it cannot be autoscaled.")
+        if missing / n_rows > mostly_missing:
+            report.warnings.append(f"{where(c)} is {missing / n_rows:.0%} missing.")
     frac_row = row_missing / data.shape[1]
     mostly = np.flatnonzero(frac_row > mostly_missing)
     if len(mostly):
