@@ -2,8 +2,9 @@
 
 Owns encoding detection (UTF-8 with or without BOM, UTF-16, cp1252 /
 Latin-1 fallback), refusing binary content, delimiter detection from a
-sample, and the fast path: pandas' C parser over the whole byte string,
-so only columns that did not parse as numbers are read cell by cell later.
+sample, and the fast path: pandas' C parser over the whole byte string (a
+large one cut at line breaks into one piece per core, parsed in threads), so
+only columns that did not parse as numbers are read cell by cell later.
 """
 
 from __future__ import annotations
@@ -11,8 +12,11 @@ from __future__ import annotations
 import codecs
 import csv
 import io
+import os
 import re
+import warnings
 from collections import Counter
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 import pandas as pd
@@ -31,6 +35,7 @@ from analysis.intake_layout import (
 
 SAMPLE_BYTES = 64 * 1024
 MAX_SAMPLE = 16 * 1024 * 1024
+PARALLEL_MIN_BYTES = 8 * 1024 * 1024  # below this, threads cost more than they save
 SAMPLE_CELLS = 20_000
 SAMPLE_LINES = 200
 DELIMITERS = (",", ";", "\t", "|")
@@ -207,21 +212,20 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
     skip = (units_at if units_at is not None else header) + 1
     if b"#" in data and b"\n#" in data:  # one fast byte scan first; most files have no '#'
         data = _blank_comment_lines(data, delimiter)
+    options = dict(
+        sep=delimiter,
+        decimal=decimal,
+        names=names,
+        skip_blank_lines=False,
+        keep_default_na=False,
+        na_values=MARKER_SPELLINGS,
+        dtype={n: str for j, n in enumerate(names) if n in text_columns or j >= len(rows[header])},
+        encoding=pandas_encoding,
+        engine="c",
+        index_col=False,
+    )
     try:
-        frame = pd.read_csv(
-            io.BytesIO(data),
-            sep=delimiter,
-            decimal=decimal,
-            names=names,
-            **_rows_above_data(rows[skip - 1], len(names), skip),
-            skip_blank_lines=False,
-            keep_default_na=False,
-            na_values=MARKER_SPELLINGS,
-            dtype={n: str for j, n in enumerate(names) if n in text_columns or j >= len(rows[header])},
-            encoding=pandas_encoding,
-            engine="c",
-            index_col=False,
-        )
+        frame = _parse(data, skip, rows[skip - 1], options)
     except Exception as exc:  # pandas raises several types on malformed text; all mean "cannot be read"
         raise _parser_error(exc, filename, delimiter, header + 1, width) from None
     _refuse_unnamed_values(frame, names[len(rows[header]):], skip, filename, header + 1, len(rows[header]))
@@ -238,6 +242,74 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
         delimiter=delimiter,
         markers_read=True,
     )
+
+
+def _parse(data: bytes, skip: int, last_row_above: list[str], options: dict) -> pd.DataFrame:
+    """pandas' C parser over the text below the ``skip`` rows above the data.
+
+    Large texts are cut at line breaks into one piece per core, parsed side by
+    side in threads (the C parser releases the GIL) and joined: about 1.6x
+    faster on 2 cores for 1,000,000 rows (docs/performance.md). Only where a
+    line break always ends a row (no quote character, no bare carriage
+    return). If a piece fails, the whole text is parsed again in one piece,
+    so pandas' message names the right line.
+    """
+    pieces = _pieces(data, skip)
+    with warnings.catch_warnings():
+        # A column with text far down is typed chunk by chunk ("mixed types"); _typed reads
+        # such columns cell by cell, so pandas' DtypeWarning says nothing to the user.
+        warnings.simplefilter("ignore", pd.errors.DtypeWarning)
+        if len(pieces) > 1:
+            piece_options = {**options, "header": None, "encoding": "utf-8"}  # a BOM stays above the data
+            try:
+                with ThreadPoolExecutor(len(pieces)) as pool:
+                    frames = list(pool.map(lambda piece: pd.read_csv(_PieceReader(piece), **piece_options), pieces))
+                return pd.concat(frames, ignore_index=True)  # a column typed differently by two pieces joins as text
+            except Exception:  # noqa: BLE001 - any failure: the one-piece read below raises the message
+                pass
+        return pd.read_csv(io.BytesIO(data), **_rows_above_data(last_row_above, len(options["names"]), skip),
+                           **options)
+
+
+def _workers() -> int:
+    """Cores this process may use (CPU affinity), at most 4."""
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+    return max(1, min(4, cores))
+
+
+def _pieces(data: bytes, skip: int) -> list[memoryview]:
+    """The data rows cut at line breaks into one piece per worker, or [] when not safe or not worth it."""
+    workers = _workers()
+    if workers < 2 or len(data) < PARALLEL_MIN_BYTES or b'"' in data:
+        return []
+    if b"\r" in data and data.count(b"\r") != data.count(b"\r\n"):
+        return []  # a bare carriage return ends a row for pandas but not for this cut
+    start = 0
+    for _ in range(skip):
+        start = data.find(b"\n", start) + 1
+        if start == 0:
+            return []
+    cuts = [start]
+    for k in range(1, workers):
+        cut = data.find(b"\n", start + (len(data) - start) * k // workers) + 1
+        if cut == 0 or cut <= cuts[-1] or cut >= len(data):
+            break
+        cuts.append(cut)
+    cuts.append(len(data))
+    view = memoryview(data)
+    return [view[a:b] for a, b in zip(cuts, cuts[1:])] if len(cuts) > 2 else []
+
+
+class _PieceReader:
+    """A read-only file over a slice of bytes, copied out a block at a time (not all at once)."""
+
+    def __init__(self, view: memoryview):
+        self._view, self._pos = view, 0
+
+    def read(self, size: int = -1) -> bytes:
+        end = len(self._view) if size is None or size < 0 else min(len(self._view), self._pos + size)
+        block, self._pos = bytes(self._view[self._pos:end]), end
+        return block
 
 
 def _rows_above_data(last_row: list[str], width: int, skip: int) -> dict:

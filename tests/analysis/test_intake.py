@@ -742,3 +742,73 @@ def test_file_with_multiline_cells_reads_like_its_clean_twin(make):
     assert table.sample_ids == clean.sample_ids == IDS
     assert table.variables == clean.variables
     assert (report.header_row, report.units, report.roles) == (clean_report.header_row, clean_report.units, clean_report.roles)
+
+
+# -- a large text parsed in pieces reads exactly as in one piece ----------------------------
+# Large texts are cut at line breaks and parsed by several threads (intake_text._parse); the
+# cut must change nothing: same numbers, types, ids, warnings, rows named in messages (common
+# practice: a faster path is checked against the plain one on the same input).
+
+LARGE_ROWS = 180_000  # about 8.6 MB: above intake_text.PARALLEL_MIN_BYTES
+
+
+def _large_lab_export(*, late_text: str | None = None, quoted_note: bool = False, crlf: bool = False) -> bytes:
+    rng = np.random.default_rng(7)
+    lines = ["Invented export for the intake tests", "batch,line,note,assay,impurity,water,ph,density",
+             ",,,%,%,%,,g/mL"]
+    values = rng.normal(50, 5, size=(LARGE_ROWS, 5)).round(3)
+    for i in range(LARGE_ROWS):
+        note = '"re-run,\nchecked"' if quoted_note and i == 120_000 else ("NA" if i % 997 == 0 else "ok")
+        cells = [f"B{i:06d}", "AB"[i % 2], note] + [f"{v:.3f}" for v in values[i]]
+        if i == 5:
+            cells[3] = "ND"  # assay
+        if late_text is not None and i == LARGE_ROWS - 10:
+            cells[4] = late_text  # impurity: text far from the first rows
+        lines.append(",".join(cells))
+    newline = "\r\n" if crlf else "\n"
+    return (newline.join(lines) + newline).encode()
+
+
+def _in_one_piece(monkeypatch, raw: bytes):
+    from analysis import intake_text
+
+    with monkeypatch.context() as patch:
+        patch.setattr(intake_text, "PARALLEL_MIN_BYTES", len(raw) + 1)
+        return read_table(raw, "large.csv")
+
+
+@pytest.mark.parametrize(
+    "late_text, quoted_note, crlf",
+    [(None, False, False), ("<0.05", False, False), (None, True, False), ("<0.05", False, True)],
+)
+def test_large_text_in_pieces_reads_as_in_one_piece(monkeypatch, late_text, quoted_note, crlf):
+    from analysis import intake_text
+
+    monkeypatch.setattr(intake_text, "_workers", lambda: 3)  # cut even where only one core is free
+    raw = _large_lab_export(late_text=late_text, quoted_note=quoted_note, crlf=crlf)
+    assert len(raw) > intake_text.PARALLEL_MIN_BYTES
+    assert len(intake_text._pieces(raw, 3)) == (0 if quoted_note else 3)
+    pieces, pieces_report = read_table(raw, "large.csv")
+    whole, whole_report = _in_one_piece(monkeypatch, raw)
+    assert pieces.data.equals(whole.data) and pieces.metadata.equals(whole.metadata)
+    assert pieces_report.to_dict() == whole_report.to_dict()
+    assert pieces.data.shape == (LARGE_ROWS, 5) and pieces_report.header_row == 2
+    assert pieces_report.units["assay"] == "%"
+    assert pieces_report.below_limit_counts == ({"impurity": 1} if late_text else {})
+    assert np.isnan(pieces.data.loc["B000005", "assay"])  # "ND"
+    assert pieces.metadata["note"].isna().sum() == len(range(0, LARGE_ROWS, 997))  # "NA"
+
+
+@pytest.mark.parametrize("bad", ["12..5", "1,2,3"])  # text in a number; a row with too many fields
+def test_large_text_in_pieces_names_a_late_bad_row(monkeypatch, bad):
+    from analysis import intake_text
+
+    monkeypatch.setattr(intake_text, "_workers", lambda: 2)
+    raw = _large_lab_export(late_text=bad)
+    row = LARGE_ROWS - 10 + 4  # rows: title 1, header 2, units 3, batch i in row i + 4
+    expected = (rf"row {row}, column 'impurity' \(E\): '12\.\.5'" if bad == "12..5"
+                else rf"row {row} has 10 fields but the header \(row 2\) has 8")
+    with pytest.raises(IntakeError, match=expected):
+        read_table(raw, "large.csv")
+    with pytest.raises(IntakeError, match=expected):
+        _in_one_piece(monkeypatch, raw)
