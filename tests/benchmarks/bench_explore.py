@@ -103,7 +103,7 @@ def prepare(home: Path, raw: bytes):
 
 
 class Counters:
-    """Counts fits and cache hits in the web process (background jobs are forks: not counted)."""
+    """Counts fits and cache hits in the web process (background jobs run in its threads: counted too)."""
 
     def __init__(self):
         from webapp.services import modelling
@@ -254,7 +254,7 @@ def write_doc(rows: int, cols: int, results: dict, refs: dict) -> str:
         "",
         f"Measured by `tests/benchmarks/bench_explore.py` on {time.strftime('%Y-%m-%d')} "
         f"({platform.machine()}, {__import__('os').cpu_count()} cores, headless Chromium without GPU, "
-        f"werkzeug threaded server, diskcache background jobs; load average {LOAD_AT_START:.1f} at the start and "
+        f"werkzeug threaded server, background jobs in threads with diskcache state; load average {LOAD_AT_START:.1f} at the start and "
         f"{__import__('os').getloadavg()[0]:.1f} at the end: other jobs share the 2 cores). "
         f"Data: {rows:,} x {cols} invented values "
         f"(five latent factors + noise). Median of {len(results['fit'])} rounds, browser clock from the click "
