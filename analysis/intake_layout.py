@@ -135,8 +135,19 @@ def find_units_row(rows: list[list], header: int, decimal: str) -> int | None:
     return cand if unit_like >= max(1, math.ceil(0.5 * len(numeric_cols))) else None
 
 
+_WRAP = re.compile(r"\s*[\r\n]+\s*")
+
+
+def one_line(text: str) -> str:
+    """A header or units cell wrapped over lines ("Lead" / "level") as one line: "Lead level"."""
+    return _WRAP.sub(" ", text).strip()
+
+
 def column_names(header: list, width: int, filename: str, header_row: int) -> tuple[list[str], set[str]]:
-    """Header cells as unique column names; blank ones become "column C" (returned as the second item)."""
+    """Header cells as unique column names; blank ones become "column C" (returned as the second item).
+
+    A cell wrapped over lines (Alt+Enter in a spreadsheet) gives a one-line name.
+    """
     names, unnamed = [], set()
     for j in range(width):
         cell = header[j] if j < len(header) else None
@@ -146,7 +157,7 @@ def column_names(header: list, width: int, filename: str, header_row: int) -> tu
         elif isinstance(cell, float) and cell.is_integer():
             names.append(str(int(cell)))
         else:
-            names.append(str(cell).strip())
+            names.append(one_line(str(cell)))
     seen: dict[str, int] = {}
     dupes = []
     for j, n in enumerate(names):

@@ -31,6 +31,7 @@ from analysis.intake_layout import (
     find_units_row,
     guess_decimal,
     is_comment_row,
+    one_line,
 )
 
 SAMPLE_BYTES = 64 * 1024
@@ -208,7 +209,7 @@ def read_text(raw: bytes, filename: str, *, text_columns: set[str], max_columns:
     names, unnamed = column_names(rows[header], width, filename, header + 1)
     units = {}
     if units_at is not None:
-        units = {n: u.strip() for n, u in zip(names, rows[units_at]) if u.strip() and u.strip().lower() not in MISSING_MARKERS}
+        units = {n: one_line(u) for n, u in zip(names, rows[units_at]) if u.strip() and u.strip().lower() not in MISSING_MARKERS}
     skip = (units_at if units_at is not None else header) + 1
     if b"#" in data and b"\n#" in data:  # one fast byte scan first; most files have no '#'
         data = _blank_comment_lines(data, delimiter)

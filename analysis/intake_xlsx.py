@@ -24,6 +24,7 @@ from analysis.intake_layout import (
     find_units_row,
     guess_decimal,
     is_comment_row,
+    one_line,
 )
 from analysis.intake_cells import MISSING_MARKERS
 
@@ -119,7 +120,7 @@ def _read_sheet(book, filename: str, sheet: str | None, max_columns: int) -> Gri
     units = {}
     if units_at is not None:
         for n, u in zip(names, rows[units_at]):
-            text = "" if u is None else str(u).strip()
+            text = "" if u is None else one_line(str(u))
             if text and text.lower() not in MISSING_MARKERS:
                 units[n] = text
     start = (units_at if units_at is not None else header) + 1

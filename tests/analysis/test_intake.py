@@ -221,6 +221,22 @@ def test_xlsx_with_title_units_formula_and_text_limits():
         read_table(buf.getvalue(), "results.xlsx", sheet="Missing")
 
 
+def test_xlsx_header_and_units_cells_wrapped_over_lines():
+    # Alt+Enter in a spreadsheet cell stores a line break; the column keeps a one-line name (common practice).
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.append(["Sample\nID", "Lead\r\nlevel", "Cadmium level", "Turbidity"])
+    ws.append([None, "µg/L", "micro-\ngrams/L", "NTU"])
+    for sid, row in zip(IDS, VALUES):
+        ws.append([sid, *map(float, row)])
+    buf = io.BytesIO()
+    wb.save(buf)
+    table, report = read_table(buf.getvalue(), "wrapped.xlsx")
+    _check_table(table, variables=["Lead level", "Cadmium level", "Turbidity"])
+    assert report.id_column == "Sample ID"
+    assert report.units == {"Lead level": "µg/L", "Cadmium level": "micro- grams/L", "Turbidity": "NTU"}
+
+
 def test_xlsx_named_sheet_and_numeric_ids_as_given():
     wb = openpyxl.Workbook()
     wb.active.append(["cover page"])
@@ -696,11 +712,12 @@ def test_header_and_units_cells_spanning_lines():
     units = ',µg/L,"micrograms\nper litre",NTU'
     rows = [",".join([sid, *(repr(float(v)) for v in values)]) for sid, values in zip(IDS, VALUES)]
     table, report = read_table("\n".join([header, units, *rows]).encode(), "wrapped.csv")
-    _check_table(table, variables=["Lead\nlevel", "Cadmium\nlevel", "Turbidity"])
+    # A wrapped cell gives a one-line name and unit, as the spreadsheet shows it (common practice).
+    _check_table(table, variables=["Lead level", "Cadmium level", "Turbidity"])
     assert report.header_row == 1
-    assert report.units == {"Lead\nlevel": "µg/L", "Cadmium\nlevel": "micrograms\nper litre", "Turbidity": "NTU"}
+    assert report.units == {"Lead level": "µg/L", "Cadmium level": "micrograms per litre", "Turbidity": "NTU"}
     rows[3] = rows[3].replace("101.25", "1O1.25")  # QC-004: header row 1, units row 2, so row 6
-    with pytest.raises(IntakeError, match=r"row 6, column 'Lead\\nlevel' \(B\): '1O1\.25'"):
+    with pytest.raises(IntakeError, match=r"row 6, column 'Lead level' \(B\): '1O1\.25'"):
         read_table("\n".join([header, units, *rows]).encode(), "wrapped.csv")
 
 
