@@ -221,18 +221,25 @@ def list_views(dataset_id: int):
 # --- the printable sign-off report --------------------------------------------------------
 
 
+def _render_report(dataset_id: int, render):
+    """The report rendered for the dataset (and ``?proposal=N``), or the 400/404 answer."""
+    proposal = request.args.get("proposal")
+    if proposal is not None and not proposal.isdigit():
+        return None, Response("proposal must be a whole number", status=400, mimetype="text/plain")
+    try:
+        return render(dataset_id, int(proposal) if proposal else None, printed_by=_user().display_name), None
+    except (ingest.DatasetNotFound, review.ProposalNotFound):
+        return None, Response("not found", status=404, mimetype="text/plain")
+
+
 @bp.get("/-/review/datasets/<int:dataset_id>/report")
 @requires("viewer")
 def signoff_report(dataset_id: int):
     from webapp.services.signoff_report import report_html
 
-    proposal = request.args.get("proposal")
-    if proposal is not None and not proposal.isdigit():
-        return Response("proposal must be a whole number", status=400, mimetype="text/plain")
-    try:
-        html = report_html(dataset_id, int(proposal) if proposal else None, printed_by=_user().display_name)
-    except (ingest.DatasetNotFound, review.ProposalNotFound):
-        return Response("not found", status=404, mimetype="text/plain")
+    html, refusal = _render_report(dataset_id, report_html)
+    if refusal is not None:
+        return refusal
     return Response(html, mimetype="text/html", headers={"Cache-Control": "no-store"})
 
 
@@ -241,13 +248,9 @@ def signoff_report(dataset_id: int):
 def signoff_report_pdf(dataset_id: int):
     from webapp.services.signoff_pdf import report_pdf
 
-    proposal = request.args.get("proposal")
-    if proposal is not None and not proposal.isdigit():
-        return Response("proposal must be a whole number", status=400, mimetype="text/plain")
-    try:
-        pdf = report_pdf(dataset_id, int(proposal) if proposal else None, printed_by=_user().display_name)
-    except (ingest.DatasetNotFound, review.ProposalNotFound):
-        return Response("not found", status=404, mimetype="text/plain")
+    pdf, refusal = _render_report(dataset_id, report_pdf)
+    if refusal is not None:
+        return refusal
     disposition = f'attachment; filename="signoff-report-dataset-{dataset_id}.pdf"'
     return Response(pdf, mimetype="application/pdf",
                     headers={"Cache-Control": "no-store", "Content-Disposition": disposition})
