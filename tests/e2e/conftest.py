@@ -113,6 +113,14 @@ def sign_in(page, server: LiveServer, name: str, path: str = "/"):
     page.click("button[type=submit]")
 
 
+def analyst_on_lab_demo(new_page, server: LiveServer):
+    """A new page signed in as the analyst ``ana``, and the id of the demo's lab dataset."""
+    page = new_page()
+    sign_in(page, server, "ana")
+    page.wait_for_url(server.url + "/")
+    return page, lab_dataset_id(page, server)
+
+
 def lab_dataset_id(page, server: LiveServer) -> int:
     """The id of the demo's lab dataset, read from its link on the start page."""
     from webapp.demo_data import LAB_FILENAME

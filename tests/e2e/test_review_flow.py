@@ -12,7 +12,7 @@ import re
 
 from playwright.sync_api import expect
 
-from tests.e2e.conftest import SCREENSHOTS, drag_box, lab_dataset_id, sign_in
+from tests.e2e.conftest import SCREENSHOTS, analyst_on_lab_demo, drag_box, sign_in
 from webapp.serve import DEMO_USERS
 from webapp.ui import ids, url_state
 
@@ -38,10 +38,7 @@ def _box_select_high_spe(page, above: float) -> None:
 
 
 def test_analyst_proposes_reviewer_signs_log_shows_both(demo_server, new_page):
-    analyst = new_page()
-    sign_in(analyst, demo_server, "ana")
-    analyst.wait_for_url(demo_server.url + "/")
-    dataset_id = lab_dataset_id(analyst, demo_server)
+    analyst, dataset_id = analyst_on_lab_demo(new_page, demo_server)
 
     # On the dataset page: three components, the T2-SPE plot, a box around the two batches far
     # above the SPE limit (SPE about 22, limit about 6; docs/scenarios.md step 3).
@@ -117,10 +114,7 @@ def test_analyst_proposes_reviewer_signs_log_shows_both(demo_server, new_page):
 
 
 def test_saved_view_opens_for_another_user_with_the_same_model(demo_server, new_page):
-    analyst = new_page()
-    sign_in(analyst, demo_server, "ana")
-    analyst.wait_for_url(demo_server.url + "/")
-    dataset_id = lab_dataset_id(analyst, demo_server)
+    analyst, dataset_id = analyst_on_lab_demo(new_page, demo_server)
     state = url_state.ViewState(components=3, colour="Line", tab="scores")
     analyst.goto(demo_server.url + url_state.save_view_url(dataset_id, state, ["B26-054"]))
     analyst.fill("#view-save-title", "Line B apart on the rheology component")

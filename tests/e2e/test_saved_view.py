@@ -12,7 +12,7 @@ import re
 
 from playwright.sync_api import expect
 
-from tests.e2e.conftest import SCREENSHOTS, box_select_right_of_scores, lab_dataset_id, sign_in
+from tests.e2e.conftest import SCREENSHOTS, analyst_on_lab_demo, box_select_right_of_scores, sign_in
 from webapp.ui import ids, url_state
 
 FIT_WAIT = 90_000
@@ -30,10 +30,7 @@ def _fingerprint_shown(page) -> str:
 
 
 def test_saved_view_restores_the_selection_for_another_user(demo_server, new_page):
-    analyst = new_page()
-    sign_in(analyst, demo_server, "ana")
-    analyst.wait_for_url(demo_server.url + "/")
-    dataset_id = lab_dataset_id(analyst, demo_server)
+    analyst, dataset_id = analyst_on_lab_demo(new_page, demo_server)
     state = url_state.ViewState(components=3, colour="Line", tab="scores")
     analyst.goto(demo_server.url + url_state.dataset_url(dataset_id, state))
     fingerprint = _fingerprint_shown(analyst)
