@@ -40,8 +40,8 @@ class ThreadJobManager(dash.DiskcacheManager):
     waiting forever on SQLite's allocator mutex, so the page waited forever too
     (POSIX.1-2017, fork(): "A process shall be created with a single thread";
     the Python 3.12 documentation of ``os.fork`` warns against forking a
-    multi-threaded process). A thread has no such hazard, and numpy's LAPACK calls release the GIL, so a fit does not
-    stall the worker's other requests.
+    multi-threaded process). A thread has no such hazard, and numpy's LAPACK
+    calls release the GIL, so a fit does not stall the worker's other requests.
 
     Job ids are ``"<worker pid>-<random hex>"``; a ``running`` key in the shared
     cache, checked together with the worker's pid, lets any worker on the host
