@@ -8,31 +8,27 @@ server (the WSGI app gunicorn runs); the Dash app is kept in
 
 from __future__ import annotations
 
-import importlib
-import importlib.util
 import sys
 from pathlib import Path
 from typing import Any, Mapping
 
-from flask import Blueprint, Flask
+from flask import Flask
 from werkzeug.middleware.proxy_fix import ProxyFix
 
 from webapp.config import load_config
 
 PACKAGE = Path(__file__).resolve().parent
 DASH_KEY = "latentdesk.dash"
-# Modules that define blueprints, registered when present (each owned by a helper).
-BLUEPRINT_MODULES = ("webapp.auth_views", "webapp.api", "webapp.api_review")
 
 
 def _register_blueprints(server: Flask) -> None:
-    for module_name in BLUEPRINT_MODULES:
-        if importlib.util.find_spec(module_name) is None:
-            continue
-        module = importlib.import_module(module_name)
-        for value in vars(module).values():
-            if isinstance(value, Blueprint) and value.import_name == module_name:
-                server.register_blueprint(value)
+    """The plain Flask routes: sign-in and sign-out, then the JSON API."""
+    from webapp import api
+    from webapp.web import signin
+
+    server.register_blueprint(signin.bp)
+    for blueprint in api.BLUEPRINTS:
+        server.register_blueprint(blueprint)
 
 
 def _security_headers(response):
@@ -55,13 +51,13 @@ def _mount_dash(server: Flask) -> None:
     import dash
 
     from webapp import jobs
-    from webapp.ui import shell
+    from webapp.web.ui import shell
 
     app = dash.Dash(
         __name__,
         server=server,
         use_pages=True,
-        pages_folder=str(PACKAGE / "pages"),
+        pages_folder=str(PACKAGE / "web" / "pages"),
         assets_folder=str(_assets_folder()),
         url_base_pathname="/",
         suppress_callback_exceptions=True,

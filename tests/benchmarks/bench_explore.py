@@ -129,10 +129,10 @@ class Counters:
 
 def references(app, dataset_id: int, repeat: int) -> dict:
     from analysis.pca import PCAModel
-    from webapp.pages import dataset as dataset_page
-    from webapp.pages import dataset_views
+    from webapp.web.pages import dataset as dataset_page
+    from webapp.web.pages import dataset_views
     from webapp.services import ingest
-    from webapp.ui.url_state import ViewState
+    from webapp.url_state import ViewState
 
     with app.app_context():
         table = ingest.load_table(dataset_id)

@@ -1,7 +1,7 @@
 """Browser tests: a real server on a free loopback port and Debian's Chromium.
 
 - ``demo_server``: the demo prepared exactly as ``latentdesk demo`` does
-  (``webapp.serve.prepare_demo``) and served by werkzeug's threaded server;
+  (``webapp.cli.serve.prepare_demo``) and served by werkzeug's threaded server;
   gives ``.url`` and ``.users`` (name -> (role, password)).
 - ``browser``: headless Chromium through the Playwright sync API. A missing
   browser skips locally and fails when ``CI=true``.
@@ -55,7 +55,7 @@ class LiveServer:
 @pytest.fixture(scope="session")
 def demo_server(tmp_path_factory):
     from webapp import create_app
-    from webapp.serve import prepare_demo
+    from webapp.cli.serve import prepare_demo
 
     home = tmp_path_factory.mktemp("demo-home")
     overrides = {"HOME": str(home), "DEMO": True}
@@ -123,7 +123,7 @@ def analyst_on_lab_demo(new_page, server: LiveServer):
 
 def lab_dataset_id(page, server: LiveServer) -> int:
     """The id of the demo's lab dataset, read from its link on the start page."""
-    from webapp.demo_data import LAB_FILENAME
+    from webapp.services.demo_data import LAB_FILENAME
 
     page.goto(server.url + "/")
     href = page.get_by_role("link", name=LAB_FILENAME).get_attribute("href")

@@ -16,7 +16,7 @@ from urllib.parse import parse_qs, urlsplit
 from playwright.sync_api import expect
 
 from tests.e2e.conftest import SCREENSHOTS, box_select_right_of_scores, sign_in
-from webapp.demo_data import LAB_FILENAME, lab_scenario
+from webapp.services.demo_data import LAB_FILENAME, lab_scenario
 
 FIT_WAIT = 60_000
 

@@ -9,7 +9,7 @@ import re
 from playwright.sync_api import expect
 
 from tests.e2e.conftest import SCREENSHOTS, sign_in
-from webapp.demo_data import LAB_FILENAME, SURVEY_FILENAME
+from webapp.services.demo_data import LAB_FILENAME, SURVEY_FILENAME
 
 # Invented measurements for the upload (made up for this test).
 SMALL_CSV = (

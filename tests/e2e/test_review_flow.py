@@ -13,8 +13,9 @@ import re
 from playwright.sync_api import expect
 
 from tests.e2e.conftest import SCREENSHOTS, analyst_on_lab_demo, drag_box, sign_in
-from webapp.serve import DEMO_USERS
-from webapp.ui import ids, url_state
+from webapp.cli.serve import DEMO_USERS
+from webapp import url_state
+from webapp.web.ui import ids
 
 PLANTED = ["B26-042", "B26-070"]
 PRINTED = {name: printed for name, _role, printed in DEMO_USERS}

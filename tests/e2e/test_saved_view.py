@@ -13,7 +13,8 @@ import re
 from playwright.sync_api import expect
 
 from tests.e2e.conftest import SCREENSHOTS, analyst_on_lab_demo, box_select_right_of_scores, sign_in
-from webapp.ui import ids, url_state
+from webapp import url_state
+from webapp.web.ui import ids
 
 FIT_WAIT = 90_000
 # how many points the score plot draws as selected, and how many of its SVG points are dimmed

@@ -343,7 +343,7 @@ def test_health_reports_an_unreachable_database_as_503(client, monkeypatch):
 
     from sqlalchemy.exc import OperationalError
 
-    from webapp import api
+    from webapp.api import datasets as api
 
     @contextmanager
     def unreachable():

@@ -19,14 +19,15 @@ from scipy import stats
 
 from analysis.errors import InputError
 from tests.webapp.wine_data import variables, wine_csv, wine_frame
-from webapp.ui import ids
-from webapp.ui.url_state import ViewState
+from webapp.services import modelling
+from webapp.web.ui import ids
+from webapp.url_state import ViewState
 
 
 def _pages():
     # Dash's page loader runs the page modules when the app is built; take those modules.
-    return (importlib.import_module("webapp.pages.dataset"), importlib.import_module("webapp.pages.dataset_views"),
-            importlib.import_module("webapp.pages.dataset_samples"), importlib.import_module("webapp.pages.upload"))
+    return (importlib.import_module("webapp.web.pages.dataset"), importlib.import_module("webapp.web.pages.dataset_views"),
+            importlib.import_module("webapp.web.pages.dataset_samples"), importlib.import_module("webapp.web.pages.upload"))
 
 
 @pytest.fixture
@@ -115,7 +116,7 @@ def test_fit_summary_matches_an_svd_and_then_comes_from_the_cache(wine):
     np.testing.assert_allclose(first["explained_variance_ratio"], (s**2 / np.sum(s**2))[:3], rtol=1e-8)
     assert first["rank"] is None  # with a number given, the component-choice table is computed on request
     with app.app_context():
-        rank = dataset.rank_summary(dataset_id, first["settings"], user_id)
+        rank = modelling.rank_summary(dataset_id, first["settings"], user_id)
     assert [row["components"] for row in rank["table"]][:3] == [1, 2, 3]
     np.testing.assert_allclose([row["explained"] for row in rank["table"]][:3], (s**2 / np.sum(s**2))[:3],
                                rtol=1e-8)
@@ -215,7 +216,7 @@ def test_variance_view_marks_the_recommendation(fitted):
     dataset, views, _, _ = _pages()
     with app.app_context():
         _, waiting, _ = views.variance_view(result)
-        rank = dataset.rank_summary(result["dataset_id"], result["settings"])
+        rank = modelling.rank_summary(result["dataset_id"], result["settings"])
         scree, table, per_variable = views.variance_view(result, rank)
     assert "Compute the component-choice table" in str(waiting)
     rec = rank["recommended"]
@@ -333,7 +334,7 @@ def test_large_score_plot_recolours_and_changes_axes_by_patch(fitted, monkeypatc
     _, views, _, _ = _pages()
     from dash import Patch
 
-    from webapp.ui import figures
+    from webapp.web.ui import figures
 
     monkeypatch.setattr(figures, "WEBGL_THRESHOLD", 100)  # treat the 178 wine samples as "many"
     with app.app_context():
@@ -424,7 +425,7 @@ def test_large_score_plot_sends_the_selection_by_patch(fitted, monkeypatch):
     _, views, _, _ = _pages()
     from dash import Patch
 
-    from webapp.ui import figures
+    from webapp.web.ui import figures
 
     monkeypatch.setattr(figures, "WEBGL_THRESHOLD", 100)  # treat the 178 wine samples as "many"
     sample_ids = list(wine_frame()["sample"])

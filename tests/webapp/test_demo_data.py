@@ -1,4 +1,4 @@
-"""Tests of the invented demo scenarios (webapp.demo_data).
+"""Tests of the invented demo scenarios (webapp.services.demo_data).
 
 Most checks here are demo design checks: they confirm that our own invented
 data carry the planted problems in a form an analyst would find. They are
@@ -17,8 +17,8 @@ from scipy import stats
 
 from analysis.intake import read_table
 from analysis.pca import PCAModel
-from webapp import demo_data
-from webapp.demo_data import (
+from webapp.services import demo_data
+from webapp.services.demo_data import (
     LAB_METADATA,
     LAB_VARIABLES,
     SURVEY_METADATA,

@@ -14,7 +14,7 @@ import pytest
 from scipy import stats
 from sklearn.datasets import load_iris
 
-from webapp.ui import figures as F
+from webapp.web.ui import figures as F
 
 # Okabe, M., Ito, K. (2008) Color Universal Design (CUD): How to make figures and
 # presentations that are friendly to colorblind people, J*FLY; the eight colours as published.

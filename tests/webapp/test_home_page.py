@@ -5,7 +5,7 @@ from __future__ import annotations
 import base64
 from pathlib import Path
 
-from webapp.ui import ids
+from webapp.web.ui import ids
 
 # Invented measurements (made up for this test).
 CSV = b"sample,alpha,beta\nS1,1.0,2.0\nS2,1.5,2.5\nS3,0.5,1.0\nS4,1.2,2.2\n"

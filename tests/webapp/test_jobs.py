@@ -11,7 +11,7 @@ import sys
 import dash
 import pytest
 
-from webapp import jobs
+from webapp import jobs, worker
 
 
 def test_diskcache_manager_lives_in_the_home_cache(tmp_path):
@@ -47,7 +47,7 @@ def test_redis_url_gives_a_celery_manager_on_that_broker(tmp_path):
 def test_worker_entry_point_needs_a_redis_url(monkeypatch):
     monkeypatch.delenv("LATENTDESK_REDIS_URL", raising=False)
     with pytest.raises(RuntimeError, match="LATENTDESK_REDIS_URL"):
-        jobs.celery_app  # noqa: B018 - attribute access runs the worker factory
+        worker.celery_app  # noqa: B018 - attribute access runs the worker factory
 
 
 def test_worker_entry_point_registers_the_background_callbacks(tmp_path, monkeypatch):
@@ -55,7 +55,7 @@ def test_worker_entry_point_registers_the_background_callbacks(tmp_path, monkeyp
     monkeypatch.setenv("LATENTDESK_REDIS_URL", "redis://127.0.0.1:1/0")
     monkeypatch.setenv("LATENTDESK_SECRET_KEY", "worker-test")
     monkeypatch.setenv("LATENTDESK_HOME", str(tmp_path))
-    worker_app = jobs.celery_app
+    worker_app = worker.celery_app
     # Dash names each background callback's task "background_callback_<hash>" (dash
     # background_callback/managers/celery_manager.py); the worker must know them.
     assert any(name.startswith("background_callback_") for name in worker_app.tasks)

@@ -21,6 +21,7 @@ from sklearn.decomposition import PCA
 from analysis.errors import InputError
 from analysis.pca import PCAModel
 from webapp.services import ingest, modelling
+from webapp.services.fit_settings import FitSettings
 from webapp.store import accounts, session_scope
 from wine_data import variables, wine_csv, wine_frame
 
@@ -126,12 +127,13 @@ def test_fingerprint_is_stable_across_processes(app, wine_id, user_id):
     with app.app_context():
         _, info = modelling.get_model(wine_id, {"components": 2, "log10": ["proline"]}, user_id=user_id)
         dataset = ingest.dataset_info(wine_id)
-    settings = modelling.normalise_settings({"components": 2, "log10": ["proline"]}, dataset["variables"])
+    settings = FitSettings.parse({"components": 2, "log10": ["proline"]}, dataset["variables"]).to_dict()
     script = (
         "import json, sys\n"
+        "from webapp.services.fit_settings import FitSettings\n"
         "from webapp.services.modelling import fingerprint_for\n"
         "d, s = json.loads(sys.argv[1]), json.loads(sys.argv[2])\n"
-        "print(fingerprint_for(d, s, 2))\n"
+        "print(fingerprint_for(d, FitSettings.parse(s, d['variables']), 2))\n"
     )
     fresh = subprocess.run(
         [sys.executable, "-c", script, json.dumps(dataset), json.dumps(settings)],
@@ -145,7 +147,7 @@ def test_fingerprint_follows_what_changes_the_numbers(app, wine_id, user_id):
     def fp(settings):
         with app.app_context():
             dataset = ingest.dataset_info(wine_id)
-        return modelling.fingerprint_for(dataset, modelling.normalise_settings(settings, dataset["variables"]), 2)
+        return modelling.fingerprint_for(dataset, FitSettings.parse(settings, dataset["variables"]), 2)
 
     base = fp({})
     assert fp({"variables": list(reversed(variables()))}) == base  # order canonical
@@ -172,11 +174,12 @@ def test_fingerprint_follows_what_changes_the_numbers(app, wine_id, user_id):
         ({"log10": ["pH"]}, "pH"),
         ({"confidence": 1.5}, "1.5"),
         ({"colour": "red"}, "colour"),
+        ({"exclude": "W-001"}, "'W-001'"),
     ],
 )
 def test_bad_settings_are_refused_by_name(settings, named):
     with pytest.raises(InputError) as refused:
-        modelling.normalise_settings(settings, variables())
+        FitSettings.parse(settings, variables())
     assert named in str(refused.value)
 
 

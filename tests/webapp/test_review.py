@@ -361,7 +361,7 @@ def test_signoff_report_names_the_signature_and_escapes_user_text(client, team, 
 
 
 def test_dataset_page_links_follow_selection_and_role():
-    from webapp.pages.review_links import HIDDEN, links_for
+    from webapp.web.pages.review_links import HIDDEN, links_for
 
     href, style, save = links_for(3, "?a=2&exclude=S9", {"sample_ids": ["S1", "S 2"]}, can_act=True)
     assert href.startswith("/review/propose?dataset=3&action=exclude&sample=S1&sample=S%202")

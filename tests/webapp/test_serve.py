@@ -95,7 +95,7 @@ def test_serve_without_a_secret_key_says_so(tmp_path):
 def test_start_up_sweeps_upload_files_no_dataset_records(tmp_path, capsys):
     # A process killed between writing an upload and committing its row leaves a complete but
     # unrecorded file; the next start removes it, sparing files younger than an hour.
-    from webapp import serve
+    from webapp.cli import serve
     from webapp.store import files
 
     home = tmp_path / "home"
@@ -114,7 +114,7 @@ def test_start_up_forgets_sign_in_attempts_past_their_retention(tmp_path):
 
     from sqlalchemy import select
 
-    from webapp import serve
+    from webapp.cli import serve
     from webapp.auth import LOGIN_ATTEMPT_RETENTION
     from webapp.store import engine_session, make_engine, migrate, utcnow
     from webapp.store.engine import database_url

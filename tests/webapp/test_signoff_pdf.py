@@ -18,7 +18,7 @@ from review_helpers import actor, propose, sign
 from wine_data import wine_csv, wine_frame
 
 from webapp.services import signoff_pdf
-from webapp.ui import url_state
+from webapp import url_state
 
 REASON = "<b>balance</b> drift of 0.5 µg at 21 °C, 2 × 10² counts"
 COMMENT = "checked the raw record & the <i>bench log</i>"

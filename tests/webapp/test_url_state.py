@@ -7,7 +7,7 @@ from urllib.parse import parse_qs, urlsplit
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from webapp.ui import url_state as U
+from webapp import url_state as U
 
 # any text a user could type as a column or sample name, including separators and unicode
 names = st.text(min_size=1, max_size=12).filter(lambda s: s.strip() == s and s != "")

@@ -137,7 +137,7 @@ def test_saving_a_view_is_logged(client, people, dataset_id):
 def test_view_links_name_the_view_and_round_trip_through_the_query_string():
     from urllib.parse import parse_qs
 
-    from webapp.ui import url_state as U
+    from webapp import url_state as U
 
     state = U.ViewState(components=3, pcx=1, pcy=3, colour="cultivar", exclude=("W-010",))
     for view_id in ("Ab-_9xYz0123456789", "odd id&=/?"):
@@ -157,7 +157,7 @@ def test_view_links_name_the_view_and_round_trip_through_the_query_string():
 
 
 def test_view_links_open_the_dataset_page_with_the_view(client, people, dataset_id):
-    from webapp.ui import url_state as U
+    from webapp import url_state as U
 
     view = _save(client, people["analyst"], dataset_id).get_json()["view"]
     body = client.get(f"/api/v1/views/{view['id']}", headers=people["viewer"].headers).get_json()
@@ -173,7 +173,7 @@ def _dataset_page():
     import importlib
 
     # Dash's page loader runs the page modules when the app is built; take that module.
-    return importlib.import_module("webapp.pages.dataset")
+    return importlib.import_module("webapp.web.pages.dataset")
 
 
 def test_dataset_page_starts_with_the_saved_selection_for_another_user(app, client, people, dataset_id):
@@ -190,11 +190,11 @@ def test_dataset_page_starts_with_the_saved_selection_for_another_user(app, clie
 def test_selection_reaches_the_panel_and_the_propose_link(app, client, people, dataset_id):
     import importlib
 
-    from webapp.ui import url_state as U
+    from webapp import url_state as U
 
     view = _save(client, people["analyst"], dataset_id).get_json()["view"]
-    page, samples = _dataset_page(), importlib.import_module("webapp.pages.dataset_samples")
-    links = importlib.import_module("webapp.pages.review_links")
+    page, samples = _dataset_page(), importlib.import_module("webapp.web.pages.dataset_samples")
+    links = importlib.import_module("webapp.web.pages.review_links")
     search = "?" + U.page_query(U.from_query(QUERY), view["id"])
     with app.app_context():
         store, _ = page.initial_selection(dataset_id, search, people["analyst"])

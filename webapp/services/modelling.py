@@ -28,14 +28,12 @@ from analysis.pca import PCAModel
 from analysis.table import Table
 from webapp.services import ingest
 from webapp.services.context import cache_folder, session_scope
-from webapp.services.review import exclusion_settings
+from webapp.services.exclusions import exclusion_settings
+from webapp.services.fit_settings import FitSettings
 from webapp.store import datasets as store
 
-SCALINGS = ("none", "center", "autoscale", "pareto")
-DEFAULT_CONFIDENCE = 0.95
 MODEL_CACHE_FOLDER = "models"
 FIT_LOCK_SECONDS = 1800
-SETTING_KEYS = ("scaling", "components", "variables", "log10", "exclude", "confidence")
 
 
 class ModelNotFound(LookupError):
@@ -46,65 +44,6 @@ class SampleNotFound(LookupError):
     """The model's dataset has no sample with that id (the API answers 404)."""
 
 
-def _string_list(value: Any, name: str) -> list[str]:
-    if value is None:
-        return []
-    if isinstance(value, str) or not isinstance(value, (list, tuple)):
-        raise InputError(f"'{name}' must be a list of names, got {value!r}")
-    return [str(v) for v in value]
-
-
-def normalise_settings(settings: Mapping[str, Any], dataset_variables: list[str]) -> dict[str, Any]:
-    """Check fit settings and put them in canonical form.
-
-    ``variables`` is returned in the dataset's column order (None = all),
-    ``log10`` and ``exclude`` sorted and de-duplicated. Raises InputError
-    naming the setting and the value that is wrong.
-    """
-    unknown = sorted(set(settings) - set(SETTING_KEYS))
-    if unknown:
-        raise InputError(
-            f"unknown setting(s): {', '.join(unknown)}; allowed: {', '.join(SETTING_KEYS)}"
-        )
-    scaling = settings.get("scaling", "autoscale")
-    if scaling not in SCALINGS:
-        raise InputError(f"'scaling' must be one of {', '.join(SCALINGS)}, got {scaling!r}")
-
-    components = settings.get("components", "auto")
-    if isinstance(components, str) and components.strip().isdigit():
-        components = int(components)
-    if components != "auto" and (
-        isinstance(components, bool) or not isinstance(components, int) or components < 1
-    ):
-        raise InputError(f"'components' must be a whole number of at least 1 or \"auto\", got {components!r}")
-
-    chosen = _string_list(settings.get("variables"), "variables")
-    missing = sorted(set(chosen) - set(dataset_variables))
-    if missing:
-        raise InputError(f"unknown variable(s) in 'variables': {', '.join(missing[:10])}")
-    variables = [v for v in dataset_variables if v in set(chosen)] if chosen else list(dataset_variables)
-
-    log10 = sorted(set(_string_list(settings.get("log10"), "log10")))
-    not_used = [v for v in log10 if v not in variables]
-    if not_used:
-        raise InputError(f"'log10' names variable(s) not in the model: {', '.join(not_used[:10])}")
-
-    exclude = sorted(set(_string_list(settings.get("exclude"), "exclude")))
-
-    confidence = settings.get("confidence", DEFAULT_CONFIDENCE)
-    if isinstance(confidence, bool) or not isinstance(confidence, (int, float)) or not 0 < confidence < 1:
-        raise InputError(f"'confidence' must be a number between 0 and 1 (e.g. 0.95), got {confidence!r}")
-
-    return {
-        "scaling": scaling,
-        "components": components,
-        "variables": variables,
-        "log10": log10,
-        "exclude": exclude,
-        "confidence": float(confidence),
-    }
-
-
 def _intake(dataset: Mapping[str, Any]) -> dict[str, Any] | None:
     """Intake options for the fingerprint: None for the defaults, so the command
     line and the web app agree on a file read the default way; other options
@@ -113,20 +52,20 @@ def _intake(dataset: Mapping[str, Any]) -> dict[str, Any] | None:
     return None if options == ingest.intake_options() else dict(options)
 
 
-def fingerprint_for(dataset: Mapping[str, Any], settings: Mapping[str, Any], n_components) -> str:
-    """The model fingerprint of normalised ``settings`` (``n_components`` may be "auto")."""
+def fingerprint_for(dataset: Mapping[str, Any], settings: FitSettings, n_components) -> str:
+    """The model fingerprint of ``settings`` (``n_components`` may be "auto")."""
     return model_fingerprint(
         dataset["sha256"],
-        settings["scaling"],
-        settings["log10"],
-        settings["variables"],
+        settings.scaling,
+        list(settings.log10),
+        list(settings.variables),
         n_components,
-        settings["exclude"],
+        list(settings.exclude),
         intake=_intake(dataset),
     )
 
 
-def _auto_key(dataset: Mapping[str, Any], settings: Mapping[str, Any]) -> str:
+def _auto_key(dataset: Mapping[str, Any], settings: FitSettings) -> str:
     """Cache key remembering how many components "auto" chose for these settings."""
     return "auto:" + fingerprint_for(dataset, settings, "auto")
 
@@ -145,18 +84,18 @@ def _cached(cache: diskcache.Cache, fingerprint: str) -> dict[str, Any] | None:
     return None
 
 
-def _fit(dataset_id: int, settings: Mapping[str, Any]) -> dict[str, Any]:
+def _fit(dataset_id: int, settings: FitSettings) -> dict[str, Any]:
     from webapp.services.headless import fit_table
 
     table = ingest.load_table(dataset_id)
     model, summary, rank = fit_table(
         table,
-        scaling=settings["scaling"],
-        log10=settings["log10"],
-        components=settings["components"],
-        exclude=settings["exclude"],
-        confidence=settings["confidence"],
-        variables=settings["variables"],
+        scaling=settings.scaling,
+        log10=list(settings.log10),
+        components=settings.components,
+        exclude=list(settings.exclude),
+        confidence=settings.confidence,
+        variables=list(settings.variables),
     )
     return {"model": model, "rank": rank.to_dict() if rank is not None else None}
 
@@ -186,7 +125,7 @@ def describe(model: PCAModel, confidence: float) -> dict[str, Any]:
     }
 
 
-def _record(dataset: Mapping[str, Any], fingerprint: str, settings: dict, summary: dict, user_id) -> int:
+def _record(dataset: Mapping[str, Any], fingerprint: str, settings: FitSettings, summary: dict, user_id) -> int:
     from sqlalchemy.exc import IntegrityError
 
     try:
@@ -195,7 +134,7 @@ def _record(dataset: Mapping[str, Any], fingerprint: str, settings: dict, summar
                 session,
                 dataset_id=dataset["id"],
                 fingerprint=fingerprint,
-                settings=settings,
+                settings=settings.to_dict(),
                 summary=summary,
                 created_by=user_id if user_id is not None else dataset["uploaded_by"],
             )
@@ -205,15 +144,15 @@ def _record(dataset: Mapping[str, Any], fingerprint: str, settings: dict, summar
             return store.model_by_fingerprint(session, fingerprint).id
 
 
-def _cached_or_fitted(cache: diskcache.Cache, dataset: Mapping[str, Any], settings: dict[str, Any]):
+def _cached_or_fitted(cache: diskcache.Cache, dataset: Mapping[str, Any], settings: FitSettings):
     """(cache entry, fingerprint, cache_hit): from the cache, else fitted once and stored."""
     fingerprint = None
-    if settings["components"] == "auto":
+    if settings.components == "auto":
         chosen = cache.get(_auto_key(dataset, settings))
         if chosen is not None:
             fingerprint = fingerprint_for(dataset, settings, chosen)
     else:
-        fingerprint = fingerprint_for(dataset, settings, settings["components"])
+        fingerprint = fingerprint_for(dataset, settings, settings.components)
     entry = _cached(cache, fingerprint) if fingerprint else None
     if entry is not None:
         return entry, fingerprint, True
@@ -227,21 +166,21 @@ def _cached_or_fitted(cache: diskcache.Cache, dataset: Mapping[str, Any], settin
         n_components = int(entry["model"].scores_.shape[1])
         fingerprint = fingerprint_for(dataset, settings, n_components)
         cache.set(fingerprint, entry)
-        if settings["components"] == "auto":
+        if settings.components == "auto":
             cache.set(_auto_key(dataset, settings), n_components)
     return entry, fingerprint, False
 
 
 def get_model(
-    dataset_id: int, settings: Mapping[str, Any], *, user_id: int | None = None
+    dataset_id: int, settings: Mapping[str, Any] | FitSettings, *, user_id: int | None = None
 ) -> tuple[PCAModel, dict[str, Any]]:
     """The fitted model for a dataset and fit settings, from the cache when possible.
 
     Parameters
     ----------
     dataset_id : int
-    settings : mapping
-        ``scaling`` (none|center|autoscale|pareto, default autoscale),
+    settings : mapping or FitSettings
+        Checked by :meth:`FitSettings.parse`: ``scaling`` (none|center|autoscale|pareto, default autoscale),
         ``components`` (int or "auto", default "auto"), ``variables`` (list, default
         all), ``log10`` (list), ``exclude`` (sample ids; absent means the dataset's
         approved exclusions), ``confidence`` (default 0.95).
@@ -257,20 +196,22 @@ def get_model(
     from the approved exclusions) and the fields of :func:`describe`.
     """
     dataset = ingest.dataset_info(dataset_id)
+    if isinstance(settings, FitSettings):
+        settings = settings.to_dict()
     settings, exclusion_note = exclusion_settings(dataset_id, settings)
-    settings = normalise_settings(settings, dataset["variables"])
+    settings = FitSettings.parse(settings, dataset["variables"])
     with _cache() as cache:
         entry, fingerprint, cache_hit = _cached_or_fitted(cache, dataset, settings)
     model = entry["model"]
-    summary = describe(model, settings["confidence"])
+    summary = describe(model, settings.confidence)
     model_id = _record(dataset, fingerprint, settings, {**summary, "rank": entry["rank"]}, user_id)
     info = {
         "id": model_id,
         "dataset_id": dataset_id,
         "fingerprint": fingerprint,
         "cache_hit": cache_hit,
-        "settings": settings,
-        "excluded": settings["exclude"],
+        "settings": settings.to_dict(),
+        "excluded": list(settings.exclude),
         **exclusion_note,
         **summary,
         "rank": entry["rank"],
@@ -428,3 +369,10 @@ def contributions(model_id: int, sample_id: str, *, confidence: float | None = N
         ],
         "ranked": explained["variables"],
     }
+
+
+def rank_summary(dataset_id: int, settings: Mapping[str, Any], user_id: int | None = None) -> dict | None:
+    """The component-choice table (``analysis.rank``) for the settings of a fit on
+    screen: the "Recommended" fit with the same preprocessing (cached like any fit)."""
+    _, auto = get_model(int(dataset_id), {**settings, "components": "auto"}, user_id=user_id)
+    return auto.get("rank")

@@ -2,7 +2,7 @@
 
 An exclusion is an annotation: the raw data never change.  The dataset's
 current model leaves out ``approved_exclusions(dataset_id)``; reversing an
-approved exclusion takes a new, signed proposal to reinstate (DESIGN.md 6).
+approved exclusion takes a new, signed proposal to reinstate (docs/design.md, review and sign-off).
 
 Each write runs in one transaction that first takes the review write lock
 (``webapp.store.review.lock_review``), changes the proposal and appends to the
@@ -25,7 +25,10 @@ from typing import Any, Callable, Mapping, TypeVar
 
 from sqlalchemy.exc import IntegrityError, OperationalError
 
+from analysis.errors import InputError
+
 from webapp.services import audit
+from webapp.services.exclusions import approved_exclusions, approved_in
 from webapp.services.context import session_scope
 from webapp.services.review_rules import (
     MAX_COMMENT_CHARS,
@@ -39,7 +42,6 @@ from webapp.services.review_rules import (
     check_proposal,
     clean_text,
     conflict,
-    fold_exclusions,
 )
 from webapp.store import review as store
 
@@ -84,33 +86,6 @@ def run_write(work: Callable[[Any], T]) -> T:
 
 
 # --- reading ------------------------------------------------------------------------------
-
-
-def approved_exclusions(dataset_id: int) -> list[str]:
-    """Sorted sample ids the dataset's current model leaves out (exclusions minus reinstatements)."""
-    with session_scope() as session:
-        return _approved(session, dataset_id)
-
-
-def _approved(session, dataset_id: int) -> list[str]:
-    return fold_exclusions(store.approved_in_order(session, dataset_id))
-
-
-def exclusion_settings(dataset_id: int, settings: Mapping[str, Any]) -> tuple[dict[str, Any], dict[str, Any]]:
-    """Fit settings with the approved exclusions applied when no ``exclude`` is given.
-
-    Returns ``(settings, note)``; ``note`` holds ``approved_exclusions`` and
-    ``what_if``: True when an explicit ``exclude`` list differs from the approved
-    exclusions (a preview that changes nothing in the record).
-    """
-    approved = approved_exclusions(dataset_id)
-    settings = dict(settings)
-    if settings.get("exclude") is None:
-        settings["exclude"] = approved
-        return settings, {"approved_exclusions": approved, "what_if": False}
-    given = settings["exclude"]
-    explicit = sorted({str(s) for s in given}) if isinstance(given, (list, tuple)) else given
-    return settings, {"approved_exclusions": approved, "what_if": explicit != approved}
 
 
 def _proposal_dict(row, sign_off=None, names: Mapping[int, str] | None = None) -> dict[str, Any]:
@@ -163,7 +138,11 @@ def list_proposals(dataset_id: int | None = None, states: list[str] | None = Non
 
 
 def _fit_settings(settings: Mapping[str, Any] | None) -> dict[str, Any]:
-    return {k: v for k, v in dict(settings or {}).items() if k != "exclude"}
+    if settings is None:
+        return {}
+    if not isinstance(settings, Mapping):
+        raise InputError(f"'settings' must be an object of fit settings, got {settings!r}")
+    return {k: v for k, v in settings.items() if k != "exclude"}
 
 
 def preview(
@@ -264,7 +243,7 @@ def propose(
     comparison = preview(dataset_id, action=action, samples=ids, settings=settings, user_id=user.id)
 
     def work(session):
-        if _approved(session, dataset_id) != excluded_now:
+        if approved_in(session, dataset_id) != excluded_now:
             raise conflict("the approved exclusions changed while the proposal was prepared; look again")
         row = store.insert_proposal(
             session,
@@ -371,7 +350,7 @@ def sign(proposal_id: int, user, *, decision: str, password, comment="") -> dict
             comment=note,
             signed_at=signed_at,
         )
-        excluded = _approved(session, row.dataset_id)
+        excluded = approved_in(session, row.dataset_id)
         audit.append(
             session,
             actor_id=user.id,

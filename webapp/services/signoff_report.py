@@ -17,7 +17,7 @@ from __future__ import annotations
 from html import escape
 from typing import Any, Mapping
 
-from webapp.services import audit, review
+from webapp.services import audit, exclusions, review
 from webapp.services.context import session_scope
 
 CAUTION = (
@@ -169,7 +169,7 @@ def report_data(dataset_id: int, proposal_id: int | None = None, *, printed_by: 
     return {
         "dataset": {"id": dataset_id, "name": dataset["name"], "sha256": dataset["sha256"],
                     "n_samples": dataset["n_samples"], "n_variables": dataset["n_variables"]},
-        "approved_exclusions": review.approved_exclusions(dataset_id),
+        "approved_exclusions": exclusions.approved_exclusions(dataset_id),
         "chain": {"intact": intact, "broken_at": broken, "reason": reason,
                   "head_seq": head["seq"], "head_hash": head["hash"]},
         "printed_at": audit.utc_iso(audit.now_utc()),

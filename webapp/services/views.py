@@ -1,7 +1,7 @@
 """Saved views: a dataset page's state with a title and a note, behind a shareable link.
 
 A view stores the page state (model settings, axes, colouring, selection, page)
-as the query string ``webapp.ui.url_state`` writes, the fingerprint of the model
+as the query string ``webapp.url_state`` writes, the fingerprint of the model
 it showed and the exclusions that model used.  Reopening refits (or reads from
 the cache) the model with exactly those settings and exclusions; equal
 fingerprints prove the same numbers (DESIGN.md 3).  When the dataset's
@@ -20,10 +20,11 @@ from typing import Any, Mapping
 from analysis.errors import InputError
 from webapp.services import audit
 from webapp.services.context import session_scope
-from webapp.services.review import approved_exclusions, run_write
+from webapp.services.exclusions import approved_exclusions
+from webapp.services.review import run_write
 from webapp.services.review_rules import clean_text, forbidden
 from webapp.store import review as store
-from webapp.ui import url_state
+from webapp import url_state
 
 PAGES = ("dataset",)
 MAX_TITLE_CHARS = 300

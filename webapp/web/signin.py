@@ -57,6 +57,11 @@ def error_page(status: int, message: str):
     return make_response(html, status)
 
 
+@bp.record_once
+def _register_error_page(state) -> None:
+    state.app.extensions[auth.ERROR_PAGE_KEY] = error_page
+
+
 def _login_form(message: str = "", name: str = "", next_path: str = "/", status: int = 200):
     html = render_template_string(
         _LOGIN,

@@ -13,7 +13,7 @@ from flask import has_request_context
 from flask_login import current_user
 
 from webapp import auth
-from webapp.ui import ids
+from webapp.web.ui import ids
 
 CAUTION = (
     "Statistical flags support, and never replace, QA judgement and local procedures. "

@@ -23,7 +23,8 @@ from flask_login import current_user
 
 from analysis.errors import InputError
 from webapp import auth
-from webapp.ui import ids, url_state
+from webapp import url_state
+from webapp.web.ui import ids
 
 dash.register_page(__name__, path=url_state.upload_url(), name="Upload", title="Upload · LatentDesk",
                    nav=True, order=1, min_role="analyst")

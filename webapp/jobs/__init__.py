@@ -6,10 +6,10 @@ started by one worker is seen by the others) whose jobs run in a thread of the
 web process instead of a forked child. Several hosts: a ``dash.CeleryManager``
 on Redis when ``LATENTDESK_REDIS_URL`` is set; start the worker with
 
-    celery -A webapp.jobs:celery_app worker
+    celery -A webapp.worker:celery_app worker
 
-which builds the web app once (so every background callback is registered as a
-Celery task) and hands Celery the same application object the web server uses.
+(``webapp.worker`` builds the web app once, so every background callback is
+registered as a Celery task.)
 
 References: Dash documentation, "Background Callbacks" (dash.plotly.com).
 """
@@ -152,20 +152,12 @@ def make_manager(config: Mapping[str, Any]):
     return ThreadJobManager(diskcache.Cache(str(folder)))
 
 
-def _worker_celery_app():
-    """Build the web app from the environment and return its Celery application."""
-    redis_url = os.environ.get("LATENTDESK_REDIS_URL")
-    if not redis_url:
-        raise RuntimeError("the Celery worker needs LATENTDESK_REDIS_URL")
-    from webapp import create_app
+def app_context():
+    """The Flask app context a background job needs outside a request.
 
-    create_app()  # registers every background callback on make_celery(redis_url)
-    return make_celery(redis_url)
-
-
-def __getattr__(name: str):
-    # PEP 562: `celery -A webapp.jobs:celery_app` looks the attribute up here, so
-    # importing this module never needs Celery or Redis.
-    if name == "celery_app":
-        return _worker_celery_app()
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    ``ThreadJobManager`` pushes the starting app's context itself; a Celery
+    worker has the one app it built (``webapp.worker``).
+    """
+    if flask.has_app_context():
+        return nullcontext()
+    return dash.get_app().server.app_context()

@@ -1,7 +1,7 @@
 """The platform sub-commands of ``latentdesk``: serve, demo, users, tokens.
 
-Parsing and printing only; the work happens in ``webapp.serve`` and
-``webapp.accounts``. Bad input raises InputError (exit 2 in ``webapp.cli``).
+Parsing and printing only; the work happens in ``webapp.cli.serve`` and
+``webapp.services.accounts``. Bad input raises InputError (exit 2 in ``webapp.cli``).
 """
 
 from __future__ import annotations
@@ -16,14 +16,14 @@ EXIT_OK = 0
 
 
 def _cmd_serve(args: argparse.Namespace) -> int:
-    from webapp.serve import serve
+    from webapp.cli.serve import serve
 
     serve(args.host, args.port, args.workers, args.threads)
     return EXIT_OK
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:
-    from webapp.serve import demo
+    from webapp.cli.serve import demo
 
     demo(args.host, args.port, args.workers)
     return EXIT_OK
@@ -38,7 +38,7 @@ def _read_password_stdin() -> str:
 
 
 def _cmd_users_add(args: argparse.Namespace) -> int:
-    from webapp.accounts import add_user, user_line
+    from webapp.services.accounts import add_user, user_line
 
     password = _read_password_stdin() if args.password_stdin else None
     made = add_user(args.name, args.role, password, args.display_name)
@@ -54,7 +54,7 @@ def _when(value) -> str:
 
 
 def _cmd_users_list(args: argparse.Namespace) -> int:
-    from webapp.accounts import list_users
+    from webapp.services.accounts import list_users
 
     for user in list_users():
         state = "active" if user["active"] else "disabled"
@@ -64,7 +64,7 @@ def _cmd_users_list(args: argparse.Namespace) -> int:
 
 
 def _cmd_users_disable(args: argparse.Namespace) -> int:
-    from webapp.accounts import disable_user
+    from webapp.services.accounts import disable_user
 
     revoked = disable_user(args.name)
     print(f"user {args.name} disabled; {revoked} API token(s) revoked")
@@ -72,7 +72,7 @@ def _cmd_users_disable(args: argparse.Namespace) -> int:
 
 
 def _cmd_tokens_create(args: argparse.Namespace) -> int:
-    from webapp.accounts import create_token
+    from webapp.services.accounts import create_token
 
     print(create_token(args.name, args.label or ""))
     print("Store this token now: it is shown only once.", file=sys.stderr)
@@ -80,7 +80,7 @@ def _cmd_tokens_create(args: argparse.Namespace) -> int:
 
 
 def _cmd_tokens_revoke(args: argparse.Namespace) -> int:
-    from webapp.accounts import revoke_tokens
+    from webapp.services.accounts import revoke_tokens
 
     count = revoke_tokens(args.name, args.id)
     print(f"{count} token(s) of {args.name} revoked")
@@ -88,7 +88,7 @@ def _cmd_tokens_revoke(args: argparse.Namespace) -> int:
 
 
 def _cmd_tokens_list(args: argparse.Namespace) -> int:
-    from webapp.accounts import list_tokens
+    from webapp.services.accounts import list_tokens
 
     for token in list_tokens(args.name):
         state = f"revoked {_when(token['revoked_at'])}" if token["revoked_at"] else "live"

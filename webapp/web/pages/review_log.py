@@ -11,7 +11,8 @@ import dash
 from dash import Input, Output, State, callback, dcc, html
 from urllib.parse import urlencode
 
-from webapp.ui import ids, url_state
+from webapp import url_state
+from webapp.web.ui import ids
 
 dash.register_page(__name__, path="/review/log", name="Review log", title="Review log · LatentDesk")
 

@@ -13,8 +13,8 @@ from dash import dcc, html
 from flask_login import current_user
 
 from analysis.errors import InputError
-from webapp.pages.review import when
-from webapp.ui import ids
+from webapp.web.pages.review import when
+from webapp.web.ui import ids
 
 dash.register_page(__name__, path_template="/views/<view_id>", name="Saved view", title="Saved view · LatentDesk")
 

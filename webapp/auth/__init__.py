@@ -51,6 +51,9 @@ PUBLIC_PREFIXES = ("/assets/",)
 # Requests answered with JSON (401/403 bodies) instead of a redirect or page.
 JSON_PREFIXES = ("/api/", "/_dash-", "/_reload-hash", "/_alive_")
 CSRF_SESSION_KEY = "csrf_token"
+# The web layer registers its page renderer here (``webapp.web.signin``), so this
+# package never imports the layer above it.
+ERROR_PAGE_KEY = "latentdesk.error_page"
 SIGNED_IN_AT_KEY = "signed_in_at"
 # Checked against when the user name is unknown, so both cases cost one scrypt run.
 # The hash of a random password that was thrown away (same cost as real hashes).
@@ -311,9 +314,10 @@ def denial(status: int, message: str | None = None):
             return redirect(url_for("auth.login"))
         target = request.full_path if request.query_string else request.path
         return redirect(url_for("auth.login", next=safe_next(target)))
-    from webapp.auth_views import error_page
-
-    return error_page(status, message)
+    render = current_app.extensions.get(ERROR_PAGE_KEY)
+    if render is None:  # no page renderer registered (an app without the web blueprint)
+        return make_response(message, status, {"Content-Type": "text/plain; charset=utf-8"})
+    return render(status, message)
 
 
 def authorize(role: str = "viewer", *, found: bool = True, message: str | None = None) -> None:

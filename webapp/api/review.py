@@ -1,6 +1,6 @@
 """Review API (``/api/v1``): exclusion proposals, sign-offs, the review log, saved views.
 
-Same shapes as ``webapp.api`` (``json_ok`` / ``json_error``); routes call
+Same shapes as ``webapp.api.datasets`` (``json_ok`` / ``json_error``); routes call
 ``webapp.services.review``, ``audit`` and ``views`` only.  Also serves the
 printable sign-off report (HTML and PDF) under the app's reserved ``/-/`` prefix.
 """
@@ -13,8 +13,8 @@ from typing import Any
 from flask import Blueprint, Response, request
 
 from analysis.errors import InputError
-from webapp.api import _json_body, json_error, json_ok, register_common_errors, requires
-from webapp.services import ingest, review, views
+from webapp.api.datasets import _json_body, json_error, json_ok, register_common_errors, requires
+from webapp.services import exclusions, ingest, review, views
 from webapp.services.context import session_scope
 from webapp.services.exports import to_csv_bytes
 from webapp.services.review_rules import ReviewRefused
@@ -76,7 +76,7 @@ def list_proposals(dataset_id: int):
     states = [s for s in request.args.getlist("state") if s]
     return json_ok(
         proposals=review.list_proposals(dataset_id, states or None),
-        approved_exclusions=review.approved_exclusions(dataset_id),
+        approved_exclusions=exclusions.approved_exclusions(dataset_id),
     )
 
 

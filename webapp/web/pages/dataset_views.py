@@ -8,7 +8,7 @@ this module only inside functions, after the loader has run.
 Each callback hands its inputs to a plain function (``*_view``) that gets the
 model from ``webapp.services.modelling`` (a cache hit once the fit has run:
 changing colours, axes or labels never refits) and draws with
-``webapp.ui.figures``.
+``webapp.web.ui.figures``.
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ import pandas as pd
 from dash import ALL, Input, Output, Patch, State, callback, clientside_callback, ctx, dcc, html, no_update
 
 from analysis import diagnostics
-from webapp.ui import figures, ids
+from webapp.web.ui import figures, ids
 
 LIMIT_LEVELS = (0.95, 0.99)
 EXPLORE_CACHE = "explore"  # HOME/cache/explore: metadata columns in model order
@@ -534,12 +534,13 @@ def _variance(result, rank):
     prevent_initial_call=True,
 )
 def _rank(clicks, result):
-    from webapp.pages import dataset
+    from webapp import jobs
+    from webapp.services import modelling
 
     if not clicks or not result or not result.get("ok"):
         return no_update
-    with dataset.job_context():
-        rank = dataset.rank_summary(result["dataset_id"], result["settings"])
+    with jobs.app_context():
+        rank = modelling.rank_summary(result["dataset_id"], result["settings"])
     return {"fingerprint": result["fingerprint"], "rank": rank}
 
 

@@ -14,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 from dash import Input, Output, State, callback, dcc, html, no_update
 
-from webapp.ui import figures, ids
+from webapp.web.ui import figures, ids
 
 TOP_VARIABLES = 8
 SELECTION_SHOWN = 40

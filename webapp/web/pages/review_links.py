@@ -2,7 +2,7 @@
 
 The dataset page places ``review_links(dataset_id)`` in its header; the callback
 keeps the two state-dependent links in step with the page's URL and selection
-(links built by ``webapp.ui.url_state``).
+(links built by ``webapp.url_state``).
 
 Not a page of its own (no page is registered here); Dash's page loader imports
 every module in pages/ whose text mentions register_page, which is how the
@@ -15,7 +15,8 @@ from dash import Input, Output, State, callback, dcc, html
 from flask_login import current_user
 
 from webapp import auth
-from webapp.ui import ids, url_state
+from webapp import url_state
+from webapp.web.ui import ids
 
 HIDDEN = {"display": "none"}
 

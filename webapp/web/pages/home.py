@@ -16,7 +16,8 @@ from flask_login import current_user
 
 from analysis.errors import InputError
 from webapp import auth
-from webapp.ui import ids, url_state
+from webapp import url_state
+from webapp.web.ui import ids
 
 dash.register_page(__name__, path="/", name="Datasets", title="Datasets · LatentDesk", nav=True, order=0)
 

@@ -14,9 +14,10 @@ from flask_login import current_user
 
 from analysis.errors import InputError
 from webapp import auth
-from webapp.pages.review import CAUTION, comparison_block
+from webapp.web.pages.review import CAUTION, comparison_block
 from webapp.services.review_rules import REASON_CATEGORIES
-from webapp.ui import ids, url_state
+from webapp import url_state
+from webapp.web.ui import ids
 
 dash.register_page(
     __name__, path="/review/propose", name="Propose", title="Propose · LatentDesk", min_role="analyst"

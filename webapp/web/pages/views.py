@@ -13,8 +13,9 @@ from flask_login import current_user
 
 from analysis.errors import InputError
 from webapp import auth
-from webapp.pages.review import when
-from webapp.ui import ids, url_state
+from webapp.web.pages.review import when
+from webapp import url_state
+from webapp.web.ui import ids
 
 dash.register_page(__name__, path="/views", name="Saved views", title="Saved views · LatentDesk", nav=True,
                    order=30)

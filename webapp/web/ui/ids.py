@@ -3,16 +3,16 @@
 Ids are plain strings; pattern-matching ids are built by small functions here.
 """
 
-# -- shell (webapp/ui/shell.py) ----------------------------------------------
+# -- shell (webapp/web/ui/shell.py) ----------------------------------------------
 SHELL_NAV = "shell-nav"
 SHELL_USER = "shell-user"
 
-# -- home page (webapp/pages/home.py) -------------------------------------------
+# -- home page (webapp/web/pages/home.py) -------------------------------------------
 HOME_UPLOAD = "home-upload"
 HOME_UPLOAD_MESSAGE = "home-upload-message"
 HOME_DATASET_LIST = "home-dataset-list"
 
-# -- upload page (webapp/pages/upload.py) ---------------------------------------
+# -- upload page (webapp/web/pages/upload.py) ---------------------------------------
 UPLOAD_DROP = "upload-drop"
 UPLOAD_FILE = "upload-file"  # dcc.Store: {"filename", "size"} of the file being checked
 UPLOAD_ID_COLUMN = "upload-id-column"
@@ -26,7 +26,7 @@ UPLOAD_CONFIRM = "upload-confirm"
 UPLOAD_RESULT = "upload-result"
 UPLOAD_LOCATION = "upload-location"
 
-# -- dataset page (webapp/pages/dataset*.py) --------------------------------------
+# -- dataset page (webapp/web/pages/dataset*.py) --------------------------------------
 DATASET_ID = "dataset-id"  # dcc.Store: the dataset id of this page
 DATASET_LOCATION = "dataset-location"  # dcc.Location (refresh=False): query string = view state
 DATASET_NOTES = "dataset-notes"  # link values that were ignored
@@ -81,7 +81,7 @@ DOWNLOAD_CSV = "download-csv"
 DOWNLOAD_XLSX = "download-xlsx"
 DOWNLOAD = "download"
 
-# -- review pages (webapp/pages/review*.py, views*.py; owner REVIEW) ---------------
+# -- review pages (webapp/web/pages/review*.py, views*.py; owner REVIEW) ---------------
 REVIEW_QUEUE = "review-queue"
 REVIEW_CONTEXT = "review-context"  # dcc.Store: {"proposal_id", "dataset_id" (queue filter or None)}
 REVIEW_COMMENT = "review-comment"

@@ -127,11 +127,11 @@ def build_parser() -> argparse.ArgumentParser:
     apply.add_argument("--out", required=True, help="output folder")
     apply.set_defaults(handler=_cmd_apply)
 
-    from webapp.cli_platform import add_platform_commands
+    from webapp.cli.platform import add_platform_commands
 
     add_platform_commands(commands)  # serve, demo, users, tokens
 
-    from webapp.cli_review import add_review_commands
+    from webapp.cli.review import add_review_commands
 
     add_review_commands(commands)  # log verify
 
@@ -152,6 +152,3 @@ def main(argv: list[str] | None = None) -> int:
         print(f"latentdesk: internal error: {type(exc).__name__}: {exc}", file=sys.stderr)
         return EXIT_INTERNAL
 
-
-if __name__ == "__main__":
-    sys.exit(main())

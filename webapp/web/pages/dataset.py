@@ -1,7 +1,7 @@
 """The dataset page: model settings, the fit (a background job) and the view state.
 
 ``/datasets/<id>?<view state>``: the query string holds everything on screen
-(``webapp.ui.url_state``), so a reload, the back button or a copied link shows
+(``webapp.url_state``), so a reload, the back button or a copied link shows
 the same thing. This module owns the frame of the page, the settings form,
 the fit and the URL; the tabs' contents and their callbacks live in
 ``dataset_views`` (plots, outlier table) and ``dataset_samples`` (explanation,
@@ -14,19 +14,18 @@ calls a service and a figure builder; the plain functions are what the tests cal
 from __future__ import annotations
 
 import time
-from contextlib import nullcontext
 from typing import Any
 
 import dash
 from dash import Input, Output, State, callback, ctx, dcc, html, no_update
 from dash.exceptions import PreventUpdate
-from flask import has_app_context
 from flask_login import current_user
 
 from analysis.errors import InputError
-from webapp import auth
-from webapp.ui import ids, url_state
-from webapp.ui.url_state import ViewState
+from webapp import auth, jobs
+from webapp import url_state
+from webapp.web.ui import ids
+from webapp.url_state import ViewState
 
 dash.register_page(
     __name__,
@@ -218,26 +217,6 @@ def fit_summary(dataset_id: int, applied: dict | None, user_id: int | None = Non
     return result
 
 
-def rank_summary(dataset_id: int, settings: dict[str, Any], user_id: int | None = None) -> dict | None:
-    """The component-choice table (``analysis.rank``) for the settings of a fit on
-    screen: the "Recommended" fit with the same preprocessing (cached like any fit)."""
-    from webapp.services import modelling
-
-    _, auto = modelling.get_model(int(dataset_id), {**settings, "components": "auto"}, user_id=user_id)
-    return auto.get("rank")
-
-
-def job_context():
-    """The Flask app context a background job needs outside a request.
-
-    ``webapp.jobs.ThreadJobManager`` pushes the starting app's context itself; a
-    Celery worker has the one app it built.
-    """
-    if has_app_context():
-        return nullcontext()
-    return dash.get_app().server.app_context()
-
-
 # ------------------------------------------------------------------ layout
 def _field(label: str, control, hint: str | None = None, class_name: str = "") -> html.Div:
     children = [html.Label(label, className="ld-field-label"), control]
@@ -355,8 +334,8 @@ def _not_found(dataset_id) -> html.Div:
 
 
 def layout(dataset_id=None, **query) -> html.Div:
-    from webapp.pages import dataset_samples, dataset_views
-    from webapp.pages.review_links import review_links
+    from webapp.web.pages import dataset_samples, dataset_views
+    from webapp.web.pages.review_links import review_links
 
     dataset = dataset_or_none(dataset_id)
     if dataset is None:
@@ -488,7 +467,7 @@ def _sync(search, _clicks, applied, view_list, form_list, pathname, dataset_id):
 )
 def _run_fit(set_progress, applied, dataset_id):
     set_progress(1)
-    with job_context():
+    with jobs.app_context():
         result = fit_summary(dataset_id, applied)
     set_progress(3)
     if not result["ok"]:
@@ -557,7 +536,7 @@ def _include_all(clicks, applied):
     Input(ids.VIEW_TABS, "value"),
 )
 def _show_tab(tab):
-    from webapp.pages import dataset_views
+    from webapp.web.pages import dataset_views
 
     hidden = toolbar_hidden(tab)
     return hidden["axes"], hidden["loadings"], hidden["order"], dataset_views.tab_content(tab)

@@ -11,7 +11,7 @@ from __future__ import annotations
 import multiprocessing
 from typing import Any, Mapping
 
-from webapp.accounts import user_line
+from webapp.services.accounts import user_line
 from webapp.auth import LOGIN_ATTEMPT_RETENTION
 from webapp.config import load_config
 from webapp.store import accounts, datasets, files, make_engine, migrate, utcnow
@@ -78,7 +78,7 @@ def prepare_demo(overrides: Mapping[str, Any]) -> list[tuple[str, str, str]]:
     """Home folder, secret key, schema, demo users (fresh random passwords) and the
     two invented demo datasets. Returns (name, role, password) per user."""
     from webapp import auth, create_app
-    from webapp.demo_data import lab_scenario, survey_scenario
+    from webapp.services.demo_data import lab_scenario, survey_scenario
     from webapp.services.ingest import ingest_upload
     from webapp.store import accounts, session_scope
 

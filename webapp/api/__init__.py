@@ -1,0 +1,9 @@
+"""The JSON way in (``/api/v1``): one blueprint per resource family.
+
+``BLUEPRINTS`` is the route table ``create_app`` registers; the response and
+error shapes every blueprint shares live in ``webapp.api.responses``.
+"""
+
+from webapp.api import datasets, review
+
+BLUEPRINTS = (datasets.bp, review.bp)
