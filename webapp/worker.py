@@ -18,7 +18,7 @@ def _worker_celery_app():
     redis_url = os.environ.get("LATENTDESK_REDIS_URL")
     if not redis_url:
         raise RuntimeError("the Celery worker needs LATENTDESK_REDIS_URL")
-    from webapp import create_app
+    from webapp.app import create_app
 
     create_app()  # registers every background callback on make_celery(redis_url)
     return make_celery(redis_url)

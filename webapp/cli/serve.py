@@ -42,7 +42,7 @@ def _gunicorn(overrides: Mapping[str, Any], host: str, port: int, workers: int, 
                 self.cfg.set("control_socket_disable", True)  # and shared by every server of a user
 
         def load(self):
-            from webapp import create_app
+            from webapp.app import create_app
 
             return create_app(dict(overrides))
 
