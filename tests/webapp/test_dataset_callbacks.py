@@ -175,6 +175,41 @@ def test_score_ellipses_use_the_two_component_training_limit(fitted):
     assert max(ellipse.x) == pytest.approx(np.sqrt(limit * eig[0]), rel=1e-8)
 
 
+def test_a_one_component_model_still_has_a_score_plot(wine):
+    # PC1 against sample order with +-sqrt(L lambda_1), L the training T2 limit for A = 1
+    # (Tracy, Young & Mason 1992: ((n-1)^2/n) Beta(1/2, (n-2)/2)); lambda_1 from numpy's SVD.
+    app, dataset_id, user_id = wine
+    dataset, views, _, _ = _pages()
+    n = 178
+    with app.app_context():
+        result = dataset.fit_summary(dataset_id, dataset.applied_settings(ViewState(components=1)), user_id)
+        fig, _ = views.score_view(result, pcx=1, pcy=2, colour="cultivar", shape=None, labels=False)
+    points = [t for t in fig.data if t.mode == "markers" and t.customdata is not None and len(t.x) > 1]
+    assert sum(len(t.x) for t in points) == n and len(points) == 3  # one trace per cultivar
+    z = _autoscaled_wine()
+    u, s, vt = np.linalg.svd(z, full_matrices=False)
+    t1 = u[:, 0] * s[0] * np.sign(vt[0, np.argmax(np.abs(vt[0]))])
+    rows = np.concatenate([t.customdata for t in points])
+    np.testing.assert_allclose(np.concatenate([t.y for t in points]), t1[rows], rtol=1e-8, atol=1e-10)
+    np.testing.assert_array_equal(np.concatenate([t.x for t in points]), rows + 1)
+    eig = s[0] ** 2 / (n - 1)
+    limit = (n - 1) ** 2 / n * stats.beta.ppf(0.95, 0.5, (n - 2) / 2)
+    bounds = sorted(shape.y0 for shape in fig.layout.shapes)
+    assert any(abs(b - np.sqrt(limit * eig)) < 1e-8 * np.sqrt(limit * eig) for b in bounds)
+    assert any(abs(b + np.sqrt(limit * eig)) < 1e-8 * np.sqrt(limit * eig) for b in bounds)
+    assert fig.layout.xaxis.title.text == "Sample order"
+
+
+def test_control_charts_flag_at_the_fitted_confidence(fitted):
+    # the charts flag what the T2-vs-SPE plot flags: the fit's chosen level (95% by default)
+    app, result = fitted
+    _, views, _, _ = _pages()
+    with app.app_context():
+        both, t2_chart, _ = views.diagnostics_view(result, order=None)
+    assert any(str(t.name).startswith("within 95% limit") for t in t2_chart.data)
+    assert not any("99% limit (" in str(t.name) for t in t2_chart.data)
+
+
 def test_diagnostics_draw_training_limits_at_95_and_99(fitted):
     app, result = fitted
     _, views, _, _ = _pages()
@@ -418,6 +453,16 @@ def test_a_box_select_is_not_drawn_again_but_clear_and_saved_views_are(app):
     # a saved view opened: nothing was dragged, every plot draws the selection
     assert not views.shows_selection(ids.GRAPH_SCORES, {"dataset_id": 5, "sample_ids": ["W-001"]})
     assert views.stored_selection(None) == []
+
+
+def test_only_a_drawn_box_or_lasso_changes_the_selection(app):
+    # plotly.js reference, "plotly_selected" event data: a box carries `range`, a lasso
+    # `lassoPoints`; after a redraw (e.g. a refit) it sends `{"points": []}` with neither.
+    _, views, _, _ = _pages()
+    assert views.is_drawn_selection({"points": [], "range": {"x": [0, 1], "y": [0, 1]}})
+    assert views.is_drawn_selection({"points": [{"text": "a"}], "lassoPoints": {"x": [0], "y": [0]}})
+    assert not views.is_drawn_selection({"points": []})
+    assert not views.is_drawn_selection(None)
 
 
 def test_large_score_plot_sends_the_selection_by_patch(fitted, monkeypatch):

@@ -100,7 +100,20 @@ def test_symbols_follow_a_second_column_and_get_legend_entries():
     main = fig.data[0]
     expected = np.where(site == "north", F.SYMBOLS[0], F.SYMBOLS[1])
     assert list(main.marker.symbol) == expected.tolist()
-    assert [t.name for t in _traces(fig, "site: ")] == ["site: north", "site: south"]
+    shapes = [t for t in fig.data if t.legendgroup == "symbols"]
+    # The column name heads the group once; each entry is the plain value, never 'site: north'.
+    assert [t.name for t in shapes] == ["north", "south"]
+    assert [t.legendgrouptitle.text for t in shapes] == ["site", None]
+
+
+def test_shape_legend_never_repeats_the_column_name_on_large_plots():
+    rng = np.random.default_rng(5)
+    n = F.WEBGL_THRESHOLD + 10
+    site = rng.choice(["Site North", "Site South"], size=n)
+    fig = F.score_figure(rng.normal(size=(n, 2)), [0.6, 0.4], symbol_values=site, symbol_name="Site")
+    shapes = [t for t in fig.data if t.legendgroup == "symbols"]
+    assert [t.name for t in shapes] == ["Site North", "Site South"]
+    assert not any(str(t.name).startswith("Site: ") for t in fig.data)
 
 
 def test_labels_switch_text_mode():
@@ -405,3 +418,44 @@ def test_selection_in_a_large_score_plot_and_the_diagnostics_plots():
         assert marked and all(list(t.selectedpoints) == _expected_selected(t, chosen) for t in marked)
         assert sum(len(t.selectedpoints) for t in marked) == 60
     assert chart.data[0].mode == "lines" and chart.data[0].selectedpoints is None
+
+
+def test_control_chart_flags_at_the_chosen_confidence_with_a_shape():
+    # The chart flags what the T2-vs-SPE plot and the outlier table flag: the chosen level
+    # (95% here), not the highest limit drawn; flagged points also change shape (WCAG 2.2 SC 1.4.1,
+    # use of colour).
+    values = np.array([1.0, 7.0, 2.0, 11.0])
+    fig = F.control_chart_figure(values, {0.95: 6.0, 0.99: 10.0}, name="T²", confidence=0.95)
+    beyond = _traces(fig, "beyond 95% limit")[0]
+    assert sorted(beyond.customdata) == [1, 3]
+    assert beyond.marker.symbol == "diamond" and beyond.marker.color == F.FLAG_COLOUR
+    assert _traces(fig, "within 95% limit")[0].marker.symbol == "circle"
+
+
+def test_t2_spe_regions_differ_by_shape_as_well_as_colour():
+    fig = F.t2_spe_figure([1.0, 9.0, 1.0, 9.0], [1.0, 1.0, 9.0, 9.0], {0.95: 5.0}, {0.95: 5.0}, confidence=0.95)
+    symbols = [t.marker.symbol for t in fig.data if t.mode == "markers"]
+    assert len(set(symbols)) == 4
+
+
+def test_loading_labels_stay_inside_the_picture_and_spread_outwards():
+    scores, loadings, eig, ratio = _iris_pca()
+    names = ["a rather long variable name (%)"] + list(load_iris().feature_names[1:])
+    fig = F.loading_figure(loadings, names, ratio)
+    trace = fig.data[0]
+    assert trace.cliponaxis is False
+    # a label sits on the side its point lies from the origin
+    for px, py, pos in zip(trace.x, trace.y, trace.textposition):
+        assert pos.endswith("right" if px >= 0 else "left") and pos.startswith("top" if py >= 0 else "bottom")
+    # the x range leaves room beyond the outermost points for the longest label
+    low, high = fig.layout.xaxis.range
+    span = max(trace.x.max(), 0) - min(trace.x.min(), 0)
+    assert high - max(trace.x.max(), 0) > 0.3 * span and min(trace.x.min(), 0) - low > 0.3 * span
+
+
+def test_biplot_title_and_legend_do_not_share_the_top():
+    scores, loadings, eig, ratio = _iris_pca()
+    fig = F.biplot_figure(scores, loadings, eig, ratio, load_iris().feature_names,
+                          colour_values=np.array(load_iris().target_names)[load_iris().target], colour_name="species")
+    assert fig.layout.title.text.startswith("Biplot")
+    assert fig.layout.legend.y < 0 and fig.layout.legend.yanchor == "top"

@@ -15,11 +15,11 @@ import numpy as np
 from dash import Input, Output, State, callback, dcc, html, no_update
 
 from webapp.web.ui import figures, ids
+from webapp.web.ui.graph_config import SMALL_GRAPH_CONFIG
 
 TOP_VARIABLES = 8
 SELECTION_SHOWN = 40
 DOWNLOAD_CHOICES = {"scores": "Scores", "loadings": "Loadings", "samples": "Samples: T², SPE, flags"}
-SMALL_GRAPH = {"displaylogo": False, "displayModeBar": False, "responsive": True}
 
 
 # ----------------------------------------------------------------- layout
@@ -97,11 +97,11 @@ def explain_view(result: dict | None, sample: str | None):
                 f"T² {_fmt(info['t2'])} (limit {_fmt(info['t2_limit'])}) · SPE {_fmt(info['spe'])} "
                 f"(limit {_fmt(info['spe_limit'])}) at {level}: {_lower_first(figures.REGION_TEXT[region])}.",
                 className="ld-stats"),
-            dcc.Graph(id=ids.GRAPH_SPE_CONTRIB, config=SMALL_GRAPH,
+            dcc.Graph(id=ids.GRAPH_SPE_CONTRIB, config=SMALL_GRAPH_CONFIG,
                       figure=_small(figures.contribution_figure(
                           names, signed_spe, title="SPE contributions", top=TOP_VARIABLES,
                           value_title="squared residual × its sign"))),
-            dcc.Graph(id=ids.GRAPH_T2_CONTRIB, config=SMALL_GRAPH,
+            dcc.Graph(id=ids.GRAPH_T2_CONTRIB, config=SMALL_GRAPH_CONFIG,
                       figure=_small(figures.contribution_figure(
                           names, t2_parts, title="T² contributions", top=TOP_VARIABLES,
                           value_title="contribution to T²"))),

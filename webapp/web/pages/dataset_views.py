@@ -22,15 +22,11 @@ from dash import ALL, Input, Output, Patch, State, callback, clientside_callback
 
 from analysis import diagnostics
 from webapp.web.ui import figures, ids
+from webapp.web.ui.graph_config import GRAPH_CONFIG
 
 LIMIT_LEVELS = (0.95, 0.99)
 EXPLORE_CACHE = "explore"  # HOME/cache/explore: metadata columns in model order
 OUTLIER_ROWS = 500  # the most extreme flagged samples listed with their top variables
-GRAPH_CONFIG = {
-    "displaylogo": False,
-    "toImageButtonOptions": {"format": "png", "scale": 2},
-    "modeBarButtonsToRemove": ["autoScale2d"],
-}
 CAUTION = (
     "Flags support, and never replace, QA judgement and site procedures. "
     "An extreme sample is not necessarily a wrong one: check the record before acting on a flag."
@@ -249,8 +245,13 @@ def score_view(result: dict | None, *, pcx: int, pcy: int, colour: str | None, s
     n_comp = model.scores_.shape[1]
     x, y = int(pcx or 1) - 1, int(pcy or 2) - 1
     if n_comp < 2:
-        return figures.empty_figure("The model has one component: see the control charts under Diagnostics."), \
-            info["cache_hit"]
+        fig = figures.single_component_figure(
+            model.scores_, model.explained_variance_ratio_, model.eigenvalues_[0],
+            {c: diagnostics.t2_limit(model.n_samples_, 1, c) for c in LIMIT_LEVELS},
+            sample_ids=model.sample_ids_, colour_values=training_column(result, model, colour), colour_name=colour,
+            highlight=_picked(model, sample), selected=selected)
+        fig.update_layout(meta={"model": info["fingerprint"]})
+        return fig, info["cache_hit"]
     if max(x, y) >= n_comp:
         return figures.empty_figure(f"The model has {n_comp} components: choose axes up to PC{n_comp}."), \
             info["cache_hit"]
@@ -311,10 +312,10 @@ def diagnostics_view(result: dict | None, *, order: str | None, sample: str | No
     order_values = training_column(result, model, order)
     both = figures.t2_spe_figure(model.t2_, model.spe_, t2_limits, spe_limits, sample_ids=ids_,
                                  confidence=confidence, highlight=picked, selected=selected)
-    t2_chart = figures.control_chart_figure(model.t2_, t2_limits, name="Hotelling's T²", order=order_values,
-                                            order_name=order, sample_ids=ids_, highlight=picked, selected=selected)
-    spe_chart = figures.control_chart_figure(model.spe_, spe_limits, name="SPE", order=order_values,
-                                             order_name=order, sample_ids=ids_, highlight=picked, selected=selected)
+    chart = dict(confidence=confidence, order=order_values, order_name=order, sample_ids=ids_, highlight=picked,
+                 selected=selected)
+    t2_chart = figures.control_chart_figure(model.t2_, t2_limits, name="Hotelling's T²", **chart)
+    spe_chart = figures.control_chart_figure(model.spe_, spe_limits, name="SPE", **chart)
     return both, t2_chart, spe_chart
 
 
@@ -583,9 +584,17 @@ def _click_callback(graph_id: str) -> None:
         prevent_initial_call=True,
     )
     def _selected(event, current, result):
-        if event is None:
+        if not is_drawn_selection(event):
             return no_update
         return selection_data(event, current, result, graph_id)
+
+
+def is_drawn_selection(event: dict | None) -> bool:
+    """True for a box or lasso a person drew (plotly.js sends its ``range`` or
+    ``lassoPoints``). A redraw after a refit makes plotly.js send an empty
+    selection without either; taking that would lose the selection the user
+    made, so the selection store keeps it (it survives a refit)."""
+    return bool(event) and ("range" in event or "lassoPoints" in event)
 
 
 def selection_data(event: dict | None, current: dict | None, result: dict | None,
@@ -613,15 +622,28 @@ def _row_clicked(cell):
     return sample if sample else no_update
 
 
-# Pictures: PNG or SVG of any plot, drawn by plotly.js in the browser.
+# Pictures: PNG or SVG of any plot, drawn by plotly.js in the browser, named after the
+# dataset, the plot and its axes ("demo_lab_batches-scores-PC1-PC2.png").
 clientside_callback(
-    """
+    r"""
     function (clicks) {
         const trigger = dash_clientside.callback_context.triggered_id;
         if (!trigger || !clicks || clicks.every(c => !c)) { return dash_clientside.no_update; }
         const holder = document.getElementById(trigger.graph);
         const plot = holder && holder.querySelector('.js-plotly-plot');
-        if (plot) { Plotly.downloadImage(plot, {format: trigger.format, filename: trigger.graph, scale: 2}); }
+        if (!plot) { return dash_clientside.no_update; }
+        const slug = text => String(text).trim().replace(/\.(csv|tsv|txt|xlsx)$/i, '')
+            .replace(/[^A-Za-z0-9_.-]+/g, '-').replace(/^-+|-+$/g, '');
+        const heading = document.querySelector('.ld-dataset-title');
+        const parts = [slug(heading ? heading.textContent : 'latentdesk') || 'latentdesk',
+                       trigger.graph.replace(/^graph-/, '')];
+        const layout = plot.layout || {};
+        for (const axis of ['xaxis', 'yaxis']) {
+            const title = ((layout[axis] || {}).title || {}).text || '';
+            const pc = title.match(/PC\d+/);
+            if (pc) { parts.push(pc[0]); }
+        }
+        Plotly.downloadImage(plot, {format: trigger.format, filename: parts.join('-'), scale: 2});
         return dash_clientside.no_update;
     }
     """,

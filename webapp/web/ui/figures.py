@@ -384,11 +384,8 @@ def score_figure(
 
     if symbols is not None and len(symbol_groups) > 1:
         for i, g in enumerate(symbol_groups):
-            fig.add_trace(go.Scatter(
-                x=[None], y=[None], mode="markers", name=f"{plain(symbol_name or 'shape')}: {plain(g)}",
-                marker=dict(symbol=SYMBOLS[i % len(SYMBOLS)], color="#5b6570", size=8),
-                legendgroup="symbols", showlegend=True, hoverinfo="skip",
-            ))
+            fig.add_trace(_legend_entry(plain(g), "#5b6570", SYMBOLS[i % len(SYMBOLS)], "symbols",
+                                        title=plain(symbol_name or "shape") if i == 0 else None))
 
     if highlight:
         h = np.asarray(list(highlight), dtype=np.int64)
@@ -417,6 +414,55 @@ def score_figure(
     return fig
 
 
+def single_component_figure(scores, explained_ratio: Sequence[float], eigenvalue: float,
+                            t2_limits: Mapping[float, float], *, sample_ids: Sequence[str] | None = None,
+                            colour_values=None, colour_name: str | None = None, highlight: Sequence[int] = (),
+                            selected: Sequence[str] | None = None) -> go.Figure:
+    """Scores of a one-component model against sample order.
+
+    With one component T2 = t1^2 / lambda_1, so a T2 limit L becomes the pair of
+    score limits +-sqrt(L lambda_1), drawn at each confidence level. Points are
+    coloured by groups as on the score plot and keep their row in ``customdata``."""
+    t = _as_float(np.asarray(scores, dtype=np.float64)[:, 0])
+    n = t.size
+    ids = id_text(sample_ids, n)
+    rows = np.arange(n, dtype=np.int32)
+    order = np.arange(1, n + 1, dtype=np.float64)
+    chosen = selection_mask(sample_ids, selected, n)
+    Scatter = scatter_class(n)
+    fig = _base_figure("One component: PC1 against sample order (no second axis to plot)", height=420)
+    hover = "<b>%{text}</b><br>order: %{x}<br>PC1: %{y:.3g}<extra>%{fullData.name}</extra>"
+    if colour_values is None or is_numeric_column(colour_values):
+        parts = [(np.ones(n, dtype=bool), "samples", POINT_COLOUR)]
+    else:
+        labels, groups = _group_labels(colour_values)
+        colours = group_colours(groups)
+        parts = [(labels == g, plain(g), colours[g]) for g in groups]
+    for mask, name, colour in parts:
+        fig.add_trace(Scatter(x=order[mask], y=t[mask], mode="markers", name=name, text=ids[mask],
+                              customdata=rows[mask], marker=dict(color=colour, size=7 if n <= WEBGL_THRESHOLD else 4),
+                              hovertemplate=hover, showlegend=len(parts) > 1,
+                              selectedpoints=selected_points(chosen, mask)))
+    if highlight:
+        h = np.asarray(list(highlight), dtype=np.int64)
+        h = h[(h >= 0) & (h < n)]
+        fig.add_trace(go.Scatter(x=order[h], y=t[h], mode="markers", customdata=rows[h], text=ids[h],
+                                 marker=dict(size=15, color="rgba(0,0,0,0)", line=dict(color="#000", width=2)),
+                                 showlegend=False, hovertemplate="<b>%{text}</b><extra>picked</extra>"))
+    for conf in sorted(t2_limits):
+        bound = float(np.sqrt(t2_limits[conf] * float(eigenvalue)))
+        style = dict(color="#5b6570", width=1.3, dash=_LIMIT_STYLES.get(conf, "dot"))
+        for y in (bound, -bound):
+            fig.add_hline(y=y, line=style, annotation_text=f"T² {_confidence_text(conf)}" if y > 0 else None,
+                          annotation_position="top left", annotation_font_size=11)
+    if len(parts) > 1:
+        fig.update_layout(legend_title_text=plain(colour_name or ""))
+    fig.update_xaxes(title_text="Sample order")
+    fig.update_yaxes(title_text=component_label(0, explained_ratio), zeroline=True)
+    fig.update_layout(dragmode="select", clickmode="event")
+    return fig
+
+
 # ------------------------------------------------- scores, many samples
 def typed_array(values, dtype: str = "f8") -> dict:
     """A numpy array as a plotly.js typed-array spec (base64), for partial figure updates."""
@@ -424,9 +470,13 @@ def typed_array(values, dtype: str = "f8") -> dict:
     return {"dtype": dtype, "bdata": base64.b64encode(arr.tobytes()).decode("ascii")}
 
 
-def _legend_entry(name: str, colour: str, symbol: str = "circle", group: str | None = None) -> go.Scatter:
+def _legend_entry(name: str, colour: str, symbol: str = "circle", group: str | None = None,
+                  title: str | None = None) -> go.Scatter:
+    """A legend-only trace; ``title`` heads its legend group once (the column name), so an
+    entry reads 'North', not 'Site: Site North'."""
     return go.Scatter(x=[None], y=[None], mode="markers", name=name, legendgroup=group,
-                      marker=dict(color=colour, size=8, symbol=symbol), hoverinfo="skip", showlegend=True)
+                      legendgrouptitle_text=title, marker=dict(color=colour, size=8, symbol=symbol),
+                      hoverinfo="skip", showlegend=True)
 
 
 def score_colours(colour_values, colour_name: str | None) -> dict:
@@ -554,8 +604,9 @@ def large_score_figure(scores, explained_ratio, *, x: int = 0, y: int = 1, sampl
         sym_labels, symbol_groups = _group_labels(symbol_values)
         sym_map = {g: SYMBOLS[i % len(SYMBOLS)] for i, g in enumerate(symbol_groups)}
         symbols = np.array([sym_map[s] for s in sym_labels], dtype=object)
-        legend += [_legend_entry(f"{plain(symbol_name or 'shape')}: {plain(g)}", "#5b6570", sym_map[g], "symbols")
-                   for g in symbol_groups]
+        legend += [_legend_entry(plain(g), "#5b6570", sym_map[g], "symbols",
+                                 title=plain(symbol_name or "shape") if i == 0 else None)
+                   for i, g in enumerate(symbol_groups)]
     fig = _base_figure(None, height=520)
     chosen = selection_mask(sample_ids, selected, n)
     for trace in score_point_traces(axes, ids, colours, labels=labels, symbols=symbols, chosen=chosen):
@@ -585,17 +636,39 @@ def loading_figure(loadings, variables: Sequence[str], explained_ratio: Sequence
     """Loading plot: one point per variable at its loadings on components x and y."""
     p = np.asarray(loadings, dtype=np.float64)
     names = np.array([plain(v) for v in variables], dtype=object)
+    px, py = np.ascontiguousarray(p[:, x]), np.ascontiguousarray(p[:, y])
     fig = _base_figure(None, height=520)
     fig.add_trace(scatter_class(p.shape[0])(
-        x=np.ascontiguousarray(p[:, x]), y=np.ascontiguousarray(p[:, y]), text=names,
-        mode="markers+text" if labels else "markers", textposition="top center",
+        x=px, y=py, text=names, mode="markers+text" if labels else "markers",
+        textposition=label_positions(px, py), cliponaxis=False,
         marker=dict(color="#0072B2", size=8), name="variables", showlegend=False,
         textfont=dict(size=11, color="#24303b"),
         hovertemplate="<b>%{text}</b><br>loading x: %{x:.3f}<br>loading y: %{y:.3f}<extra></extra>",
     ))
-    fig.update_xaxes(title_text=f"Loading on {component_label(x, explained_ratio)}", zeroline=True)
-    fig.update_yaxes(title_text=f"Loading on {component_label(y, explained_ratio)}", zeroline=True)
+    longest = max((len(str(v)) for v in names), default=0) if labels else 0
+    fig.update_xaxes(title_text=f"Loading on {component_label(x, explained_ratio)}", zeroline=True,
+                     range=padded_range(px, label_chars=longest))
+    fig.update_yaxes(title_text=f"Loading on {component_label(y, explained_ratio)}", zeroline=True,
+                     range=padded_range(py, label_chars=2 if labels else 0))
     return fig
+
+
+def label_positions(xs, ys) -> list[str]:
+    """Each label on the side its point lies from the origin ('top right', 'bottom left',
+    ...), so labels of points near each other spread apart instead of stacking."""
+    return [("top " if dy >= 0 else "bottom ") + ("right" if dx >= 0 else "left") for dx, dy in zip(xs, ys)]
+
+
+def padded_range(values, *, label_chars: int = 0, chars_per_span: float = 60.0) -> list[float]:
+    """Axis range around ``values`` (and 0) with room for labels of ``label_chars``
+    characters beside the outermost points: about ``chars_per_span`` characters fit
+    across a plot, so a label takes that share of the span on its side."""
+    v = _as_float(values)
+    v = v[np.isfinite(v)]
+    low, high = min(float(v.min()), 0.0) if v.size else -1.0, max(float(v.max()), 0.0) if v.size else 1.0
+    span = (high - low) or 1.0
+    room = span * (0.06 + label_chars / chars_per_span)
+    return [low - room, high + room]
 
 
 def loading_bars_figure(loadings, variables: Sequence[str], component: int,
@@ -661,14 +734,16 @@ def biplot_figure(scores, loadings, eigenvalues, explained_ratio, variables: Seq
     fig.add_trace(go.Scatter(x=xs, y=ys, mode="lines", line=dict(color="#b23a00", width=1.5),
                              name=f"variables (arrows × {k:g})", hoverinfo="skip"))
     # Each label sits beyond its arrow's tip, on the side the arrow points to.
-    positions = [("top " if dy >= 0 else "bottom ") + ("right" if dx >= 0 else "left") for dx, dy in arrows]
-    fig.add_trace(go.Scatter(x=arrows[:, 0], y=arrows[:, 1], mode="markers+text", text=names,
-                             textposition=positions, textfont=dict(size=11, color="#8a2d00"),
+    fig.add_trace(go.Scatter(x=arrows[:, 0], y=arrows[:, 1], mode="markers+text", text=names, cliponaxis=False,
+                             textposition=label_positions(arrows[:, 0], arrows[:, 1]),
+                             textfont=dict(size=11, color="#8a2d00"),
                              marker=dict(color="#b23a00", size=5), showlegend=False,
                              hovertemplate="<b>%{text}</b><extra>variable</extra>"))
     fig.update_xaxes(title_text=component_label(x, explained_ratio))
     fig.update_yaxes(title_text=component_label(y, explained_ratio))
-    fig.update_layout(title_text=f"Biplot: scores / sqrt(λ), loadings × sqrt(λ) × {k:g}")
+    # The score plot's legend sits above the plot; here the title does, so the legend goes below.
+    fig.update_layout(title_text=f"Biplot: scores / sqrt(λ), loadings × sqrt(λ) × {k:g}",
+                      legend=dict(orientation="h", x=0, y=-0.14, yanchor="top"), margin=dict(b=110))
     return fig
 
 
@@ -708,6 +783,8 @@ def t2_spe_figure(t2, spe, t2_limits: Mapping[float, float], spe_limits: Mapping
     Scatter = scatter_class(n)
     fig = _base_figure(None, height=520)
     region_colours = {"inside": POINT_COLOUR, "t2": "#E69F00", "spe": "#56B4E9", "both": FLAG_COLOUR}
+    # Shapes carry the region too: colour is never the only sign of a flag (WCAG 2.2, 1.4.1).
+    region_symbols = {"inside": "circle", "t2": "square", "spe": "triangle-up", "both": "diamond"}
     short = {"inside": "within limits", "t2": "high T² only", "spe": "high SPE only", "both": "high T² and SPE"}
     for region in ("inside", "t2", "spe", "both"):
         mask = regions == region
@@ -716,7 +793,8 @@ def t2_spe_figure(t2, spe, t2_limits: Mapping[float, float], spe_limits: Mapping
         fig.add_trace(Scatter(
             x=t2[mask], y=spe[mask], mode="markers", name=f"{short[region]} ({int(mask.sum())})",
             text=ids[mask], customdata=rows[mask],
-            marker=dict(color=region_colours[region], size=7 if n <= WEBGL_THRESHOLD else 4, opacity=0.85),
+            marker=dict(color=region_colours[region], symbol=region_symbols[region],
+                        size=7 if n <= WEBGL_THRESHOLD else 4, opacity=0.85),
             hovertemplate="<b>%{text}</b><br>T²: %{x:.3g}<br>SPE: %{y:.3g}<extra></extra>",
             selectedpoints=selected_points(chosen, mask),
         ))
@@ -740,12 +818,14 @@ def t2_spe_figure(t2, spe, t2_limits: Mapping[float, float], spe_limits: Mapping
     return fig
 
 
-def control_chart_figure(values, limits: Mapping[float, float], *, name: str, order=None,
-                         order_name: str | None = None, sample_ids: Sequence[str] | None = None,
+def control_chart_figure(values, limits: Mapping[float, float], *, name: str, confidence: float | None = None,
+                         order=None, order_name: str | None = None, sample_ids: Sequence[str] | None = None,
                          highlight: Sequence[int] = (), selected: Sequence[str] | None = None) -> go.Figure:
     """A statistic (T2 or SPE) against sample order, or against a date/run column
-    given as ``order``; samples beyond the highest limit are drawn in vermillion and
-    the samples named in ``selected`` as selected."""
+    given as ``order``. Samples beyond the limit at ``confidence`` (the level the
+    T2-vs-SPE plot and the outlier table use; default the highest drawn) are flagged
+    by colour and by a diamond marker, never by colour alone; the samples named in
+    ``selected`` are drawn as selected."""
     v = _as_float(values)
     n = v.size
     ids = id_text(sample_ids, n)
@@ -761,21 +841,24 @@ def control_chart_figure(values, limits: Mapping[float, float], *, name: str, or
         x_title = plain(order_name) if order_name else "Order"
     v_sorted, ids_sorted, rows_sorted = v[sort], ids[sort], rows[sort]
     chosen = selection_mask(sample_ids, selected, n)
-    top = max(limits.values()) if limits else np.inf
-    beyond = v_sorted > top
-    # Name the limit the colours follow: the charts draw two, and "beyond limit" alone reads as the 95% one.
-    top_label = f"{100 * max(limits, key=limits.get):g}% limit" if limits else "limit"
+    if confidence is None and limits:
+        confidence = max(limits, key=limits.get)
+    flag_limit = limits[confidence] if limits else np.inf
+    beyond = v_sorted > flag_limit
+    # Name the limit the flags follow: the charts draw two.
+    top_label = f"{_confidence_text(confidence)} limit" if limits else "limit"
     Scatter = scatter_class(n)
     fig = _base_figure(None, height=340)
     fig.add_trace(Scatter(x=xs, y=v_sorted, mode="lines", line=dict(color="#c3cad1", width=1),
                           hoverinfo="skip", showlegend=False))
-    for mask, label, colour in ((~beyond, f"within {top_label}", POINT_COLOUR),
-                                 (beyond, f"beyond {top_label}", FLAG_COLOUR)):
+    size = 6 if n <= WEBGL_THRESHOLD else 4
+    for mask, label, colour, symbol, grow in ((~beyond, f"within {top_label}", POINT_COLOUR, "circle", 0),
+                                              (beyond, f"beyond {top_label}", FLAG_COLOUR, "diamond", 3)):
         if mask.any():
             fig.add_trace(Scatter(
                 x=xs[mask], y=v_sorted[mask], mode="markers", name=f"{label} ({int(mask.sum())})",
                 text=ids_sorted[mask], customdata=rows_sorted[mask],
-                marker=dict(color=colour, size=6 if n <= WEBGL_THRESHOLD else 4),
+                marker=dict(color=colour, size=size + grow, symbol=symbol),
                 hovertemplate="<b>%{text}</b><br>" + name + ": %{y:.3g}<extra></extra>",
                 selectedpoints=selected_points(chosen, rows_sorted[mask]),
             ))
