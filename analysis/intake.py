@@ -137,6 +137,7 @@ def read_table(
     max_columns: int = 20000,
     mostly_missing: float = 0.5,
     min_samples: int = 3,
+    scoring: bool = False,
 ) -> tuple[Table, IntakeReport]:
     """Read CSV/TSV/XLSX bytes into a Table and an IntakeReport.
 
@@ -167,6 +168,10 @@ def read_table(
     min_samples : int
         Fewest samples accepted: 3 to fit a model, 1 to score new samples
         against a saved one.
+    scoring : bool
+        True when the rows are new samples to score against a saved model: a
+        variable with one value throughout is then no concern (the model's own
+        centring and scaling apply), so it is not warned about.
 
     Raises
     ------
@@ -207,7 +212,7 @@ def read_table(
             raise IntakeError(f"{filename}: sheet {sheet!r} was asked for, but this is a text file without sheets.")
         text_columns = {c for c, r in roles.items() if r in ("id", "metadata")}  # keep "007" as written
         grid = read_text(raw, filename, text_columns=text_columns, max_columns=max_columns)
-    return _typed(grid, filename, roles, below_limit, bad_cells, mostly_missing, min_samples)
+    return _typed(grid, filename, roles, below_limit, bad_cells, mostly_missing, min_samples, scoring)
 
 
 def _too_big(filename: str, size: int, limit: int) -> str:
@@ -237,7 +242,8 @@ def _check_options(filename, below_limit, bad_cells, roles, mostly_missing) -> N
 
 
 def _typed(
-    grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: str, mostly_missing: float, min_samples: int
+    grid: Grid, filename: str, roles: dict, below_limit: str, bad_cells: str, mostly_missing: float, min_samples: int,
+    scoring: bool = False,
 ):
     frame, rows = grid.frame, grid.row_numbers
     report = IntakeReport(
@@ -377,7 +383,7 @@ def _typed(
             f"{filename}: only {data.shape[1]} numeric variable ({', '.join(map(repr, variables))}); at least 2 "
             f"are needed. Text columns: {', '.join(map(repr, metadata_cols[:20])) or 'none'}."
         )
-    _warn_about_values(report, data, columns, col_missing, row_missing, where, mostly_missing)
+    _warn_about_values(report, data, columns, col_missing, row_missing, where, mostly_missing, scoring)
     report.missing_counts = {c: int(n) for c, n in zip(data.columns, col_missing)}
     report.units = {c: u for c, u in grid.units.items() if c in numbers}
     report.n_samples, report.n_variables = data.shape
@@ -565,10 +571,10 @@ def _missing_counts(columns: list[np.ndarray], n_rows: int) -> tuple[np.ndarray,
 
 
 def _warn_about_values(report, data: pd.DataFrame, columns: list[np.ndarray], col_missing: np.ndarray,
-                       row_missing: np.ndarray, where, mostly_missing: float) -> None:
+                       row_missing: np.ndarray, where, mostly_missing: float, scoring: bool) -> None:
     n_rows = data.shape[0]
     for c, values, missing in zip(data.columns, columns, col_missing):
-        if missing < n_rows and n_rows > 1:  # one new sample is trivially "constant"
+        if not scoring and missing < n_rows and n_rows > 1:
             present = values if missing == 0 else values[~np.isnan(values)]
             if present.min() == present.max():
                 report.warnings.append(f"{where(c)} is constant; it cannot be autoscaled.")

@@ -113,7 +113,7 @@ def test_fingerprint_follows_design_and_is_stable(tmp_path, wine_csv, capsys):
     summary = json.loads((first / "summary.json").read_text(encoding="utf-8"))
     again = json.loads((second / "summary.json").read_text(encoding="utf-8"))
     assert summary["fingerprint"] == again["fingerprint"]
-    # DESIGN.md 3: the dataset is known by the SHA-256 of its raw bytes (hashlib, FIPS 180-4).
+    # docs/design.md section 3: the dataset is known by the SHA-256 of its raw bytes (hashlib, FIPS 180-4).
     sha = hashlib.sha256(wine_csv.read_bytes()).hexdigest()
     assert summary["dataset"]["sha256"] == sha
     # Without --group-column the numeric cultivar column is a variable of the file, so it is hashed too.
@@ -182,6 +182,21 @@ def test_apply_scores_a_single_new_sample(tmp_path, wine_csv, capsys):
     training = pd.read_csv(fitted / "samples.csv").iloc[[0]].reset_index(drop=True)
     sample = pd.read_csv(applied / "samples.csv")
     np.testing.assert_allclose(sample[["t2", "spe"]], training[["t2", "spe"]], rtol=1e-10)
+
+
+def test_apply_does_not_warn_about_a_variable_with_one_value_in_the_batch(tmp_path, wine_frame, capsys):
+    # A batch may hold one value per variable (e.g. the same lot of reagent): the model's own
+    # centring and scaling apply, so "constant; cannot be autoscaled" would be false (common practice).
+    train, new_path, fitted = tmp_path / "train.csv", tmp_path / "batch.csv", tmp_path / "fit"
+    wine_frame.to_csv(train, index=False)
+    assert _run(["fit", train, "--id-column", "lot", "--group-column", "cultivar", "--components", "3",
+                 "--out", fitted], capsys)[0] == 0
+    batch = wine_frame.iloc[10:16].copy()
+    for column in ("ash", "hue", "proline", "magnesium"):
+        batch[column] = batch[column].iloc[0]
+    batch.to_csv(new_path, index=False)
+    code, _, stderr = _run(["apply", fitted / "model.json", new_path, "--out", tmp_path / "applied"], capsys)
+    assert code == 0 and stderr == "", stderr
 
 
 def test_apply_matches_variables_by_name_and_warns_about_extra_ones(tmp_path, wine_frame, capsys):

@@ -337,7 +337,7 @@ def apply_to_folder(
     stored = document.get("extra") if isinstance(document.get("extra"), dict) else {}
     id_column = id_column or stored.get("id_column")
     options = {"id_column": id_column, "sheet": sheet, "below_limit": below_limit, "bad_cells": bad_cells,
-               "min_samples": 1}  # a single new batch can be checked
+               "min_samples": 1, "scoring": True}  # a single new sample can be checked
     table, report, sha256 = _read(file, **options)
     groups = [g for g in stored.get("group_columns") or () if g in table.variables]
     if groups:
