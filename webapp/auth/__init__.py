@@ -374,12 +374,13 @@ def _page_min_role(path: str) -> str | None:
         role = page.get("min_role")
         if role is None:
             continue
-        if page.get("path") == path or _matches_template(page.get("path_template"), path):
+        if page.get("path") == path or matches_path_template(page.get("path_template"), path):
             return role
     return None
 
 
-def _matches_template(template: str | None, path: str) -> bool:
+def matches_path_template(template: str | None, path: str) -> bool:
+    """Whether ``path`` fits a Dash page's ``path_template`` ('/datasets/<dataset_id>')."""
     if not template:
         return False
     wanted, given = template.strip("/").split("/"), path.strip("/").split("/")
