@@ -1,6 +1,6 @@
 """Review workflow: rules, role matrix over the API, signatures, withdrawal, reinstatement.
 
-The rules follow DESIGN.md section 6 (our product contract).  Signature content follows
+The rules follow docs/design.md section 6 (our product contract).  Signature content follows
 US FDA 21 CFR Part 11 section 11.50 (printed name, date and time, meaning) and 11.200(a)
 (two identification components at signing: user id + password); the four-eyes rule
 (proposer never signs) is common practice in GMP review (EU GMP Annex 11, 2011, section 14).
@@ -88,9 +88,10 @@ def test_valid_proposal_is_cleaned_and_sorted():
 @pytest.mark.parametrize(
     "overrides,message",
     [
-        ({"reason": "   "}, "reason is required"),
-        ({"reason": None}, "reason is required"),
-        ({"reason_category": "looked odd"}, "reason_category must be one of"),
+        ({"reason": "   "}, "The reason is required"),
+        ({"reason": None}, "The reason is required"),
+        ({"reason_category": "looked odd"}, "Choose a reason category .*'looked odd' is not one of them"),
+        ({"reason_category": None}, "Choose a reason category .*none was chosen"),
         ({"samples": []}, "non-empty list"),
         ({"samples": ["S1", "S1"]}, "listed twice: S1"),
         ({"samples": ["S1", "nope"]}, "unknown sample id.*nope"),
@@ -161,6 +162,15 @@ def test_role_matrix_propose(client, team, dataset_id, role, status):
         assert comparison["before"]["excluded"] == [] and comparison["after"]["excluded"] == ["W-003"]
         assert comparison["before"]["fingerprint"] != comparison["after"]["fingerprint"]
         assert len(comparison["compare"]["principal_angles"]) == comparison["before"]["n_components"]
+
+
+@pytest.mark.parametrize("body,field", [({"reason_category": None}, "reason_category"), ({"reason": ""}, "reason")])
+def test_a_bad_field_is_named_in_the_api_answer(client, team, dataset_id, body, field):
+    # docs/api.md, errors: the message is for a person, "field" names the JSON key at fault
+    response = propose(client, team["analyst"], dataset_id, **body)
+    assert response.status_code == 400
+    error = response.get_json()["error"]
+    assert error["field"] == field and error["message"][0].isupper() and "None" not in error["message"]
 
 
 @pytest.mark.parametrize("decision", ["approve", "reject"])
@@ -348,7 +358,7 @@ def test_signoff_report_names_the_signature_and_escapes_user_text(client, team, 
                       headers=team["viewer"].headers)
     assert page.status_code == 200 and page.mimetype == "text/html"
     html = page.get_data(as_text=True)
-    # Text from users is shown as text (DESIGN.md 7): escaped, never markup.
+    # Text from users is shown as text (docs/design.md section 7): escaped, never markup.
     assert "<script>alert(1)</script>" not in html and "&lt;script&gt;alert(1)&lt;/script&gt;" in html
     assert "&lt;b&gt;ok&lt;/b&gt;" in html
     # 21 CFR 11.50: printed name, date and time, meaning; plus the dataset's SHA-256.

@@ -1,7 +1,7 @@
 """The JSON API: ``/health`` and ``/api/v1`` for datasets, models and their tables.
 
 One success shape ``{"ok": true, ...}`` and one error shape
-``{"ok": false, "error": {"code", "message"}}`` (DESIGN.md 5, docs/api.md).
+``{"ok": false, "error": {"code", "message"}}`` (docs/design.md section 5, docs/api.md).
 ``json_ok`` and ``json_error`` are shared with the review API. Every error
 under ``/api/`` is answered as JSON with a 4xx status for bad input or missing
 rights; a file intake refuses is a 400 with intake's message, never a 500.
@@ -73,9 +73,13 @@ def json_ok(status: int = 200, **payload: Any) -> Response:
     return _json_response({"ok": True, **jsonable(payload)}, status)
 
 
-def json_error(code: str, message: str, status: int) -> Response:
-    """``{"ok": false, "error": {"code", "message"}}`` with ``status``."""
-    return _json_response({"ok": False, "error": {"code": code, "message": str(message)}}, status)
+def json_error(code: str, message: str, status: int, *, field: str | None = None) -> Response:
+    """``{"ok": false, "error": {"code", "message"}}`` with ``status``; ``field`` names the
+    JSON key at fault when one is known."""
+    error = {"code": code, "message": str(message)}
+    if field:
+        error["field"] = field
+    return _json_response({"ok": False, "error": error}, status)
 
 
 def _is_api_path() -> bool:
@@ -86,7 +90,7 @@ def _is_api_path() -> bool:
 
 
 def _input_error(exc: InputError):
-    return json_error("bad_input", str(exc), 400)
+    return json_error("bad_input", str(exc), 400, field=exc.field)
 
 
 def _no_dataset(exc):

@@ -1,6 +1,6 @@
 """Rules of the review workflow, free of any database: who may do what, when.
 
-Proposal states: proposed -> approved | rejected | withdrawn (DESIGN.md 6).
+Proposal states: proposed -> approved | rejected | withdrawn (docs/design.md section 6).
 Roles: viewer < analyst < reviewer; admin also has reviewer rights.  A proposer
 never signs their own proposal (four-eyes principle, in the spirit of
 21 CFR Part 11 11.10 and EU GMP Annex 11 section 14; no compliance is claimed).
@@ -46,9 +46,9 @@ def conflict(message: str) -> ReviewRefused:
     return ReviewRefused(message, code="conflict", status=409)
 
 
-def check_can_propose(role: str) -> None:
+def check_can_propose(role: str, what: str = "exclusions") -> None:
     if role not in _CAN_PROPOSE:
-        raise forbidden(f"a {role} cannot propose exclusions; analysts and reviewers can")
+        raise forbidden(f"a {role} cannot propose {what}; analysts and reviewers can")
 
 
 def check_can_sign(*, signer_id: int, role: str, proposed_by: int, state: str) -> None:
@@ -76,12 +76,12 @@ def clean_text(value, *, field: str, limit: int, required: bool) -> str:
     if value is None:
         value = ""
     if not isinstance(value, str):
-        raise InputError(f"{field} must be text, got {type(value).__name__}")
+        raise InputError(f"The {field} must be text, not {type(value).__name__}.", field=field)
     text = value.strip()
     if required and not text:
-        raise InputError(f"{field} is required: say in words why")
+        raise InputError(f"The {field} is required: say in words why.", field=field)
     if len(text) > limit:
-        raise InputError(f"{field} is {len(text)} characters long; the limit is {limit}")
+        raise InputError(f"The {field} is {len(text)} characters long; shorten it to at most {limit}.", field=field)
     return text
 
 
@@ -131,8 +131,9 @@ def check_proposal(
         if not_excluded:
             raise InputError(f"not excluded now, so nothing to reinstate: {', '.join(not_excluded)}")
     if reason_category not in REASON_CATEGORIES:
+        given = "none was chosen" if reason_category in (None, "") else f"{reason_category!r} is not one of them"
         raise InputError(
-            f"reason_category must be one of: {', '.join(REASON_CATEGORIES)}; got {reason_category!r}"
+            f"Choose a reason category ({', '.join(REASON_CATEGORIES)}); {given}.", field="reason_category"
         )
     text = clean_text(reason, field="reason", limit=MAX_REASON_CHARS, required=True)
     return sorted(ids), reason_category, text

@@ -77,8 +77,10 @@ def layout(dataset=None, action="exclude", sample=None, **query) -> html.Div:
                             html.Label("Category", htmlFor=ids.PROPOSE_CATEGORY),
                             dcc.Dropdown(id=ids.PROPOSE_CATEGORY, options=list(REASON_CATEGORIES),
                                          placeholder="Choose a category", clearable=False),
+                            html.Div(id=ids.PROPOSE_CATEGORY_MESSAGE, role="alert", className="ld-field-message"),
                             html.Label("Reason in words (required)", htmlFor=ids.PROPOSE_REASON),
                             dcc.Textarea(id=ids.PROPOSE_REASON, className="ld-textarea", maxLength=4000),
+                            html.Div(id=ids.PROPOSE_REASON_MESSAGE, role="alert", className="ld-field-message"),
                             html.Button("Submit for review", id=ids.PROPOSE_SUBMIT, className="ld-button",
                                         disabled=problem is not None
                                         or not auth.has_role(current_user.role, "analyst")),
@@ -93,8 +95,14 @@ def layout(dataset=None, action="exclude", sample=None, **query) -> html.Div:
     )
 
 
+FIELD_MESSAGES = {"reason_category": 1, "reason": 2}  # position of each field's message in submit's answer
+
+
 def submit(context: dict, category: str | None, reason: str | None):
-    """Store the proposal for the signed-in user; returns (message, disable the button?)."""
+    """Store the proposal for the signed-in user.
+
+    Returns (message, category message, reason message, disable the button?): a
+    problem with one field is shown beside that field, any other above the button."""
     from webapp.services import review
 
     try:
@@ -103,7 +111,9 @@ def submit(context: dict, category: str | None, reason: str | None):
             reason_category=category, reason=reason, settings=context["settings"],
         )
     except InputError as exc:
-        return html.P(str(exc), className="ld-alert"), False
+        answer = [None, None, None, False]
+        answer[FIELD_MESSAGES.get(exc.field, 0)] = html.P(str(exc), className="ld-alert")
+        return tuple(answer)
     return (
         html.P(
             [f"Proposal {proposal['id']} is waiting for a reviewer. ",
@@ -111,12 +121,16 @@ def submit(context: dict, category: str | None, reason: str | None):
              dcc.Link("Back to the dataset", href=url_state.dataset_url(proposal["dataset_id"]))],
             className="ld-success",
         ),
+        None,
+        None,
         True,
     )
 
 
 @callback(
     Output(ids.PROPOSE_MESSAGE, "children"),
+    Output(ids.PROPOSE_CATEGORY_MESSAGE, "children"),
+    Output(ids.PROPOSE_REASON_MESSAGE, "children"),
     Output(ids.PROPOSE_SUBMIT, "disabled"),
     Input(ids.PROPOSE_SUBMIT, "n_clicks"),
     State(ids.PROPOSE_CONTEXT, "data"),
@@ -126,5 +140,5 @@ def submit(context: dict, category: str | None, reason: str | None):
 )
 def _on_submit(n_clicks, context, category, reason):
     if not n_clicks or not context:
-        return no_update, no_update
+        return no_update, no_update, no_update, no_update
     return submit(context, category, reason)

@@ -96,6 +96,8 @@ PROPOSE_CATEGORY = "propose-category"
 PROPOSE_REASON = "propose-reason"
 PROPOSE_SUBMIT = "propose-submit"
 PROPOSE_MESSAGE = "propose-message"
+PROPOSE_CATEGORY_MESSAGE = "propose-category-message"  # a problem with the category, shown beside it
+PROPOSE_REASON_MESSAGE = "propose-reason-message"
 PROPOSE_PREVIEW = "propose-preview"
 LOG_CONTEXT = "log-context"  # dcc.Store: {"dataset_id"}
 LOG_ACTION_FILTER = "log-action-filter"
@@ -109,6 +111,9 @@ VIEW_SAVE_NOTE = "view-save-note"
 VIEW_SAVE_BUTTON = "view-save-button"
 VIEW_SAVE_MESSAGE = "view-save-message"
 VIEW_OPEN = "view-open"
+VIEW_SAVE_URL = "view-save-url"  # the saved view's full address, shown after saving
+VIEW_SAVE_COPY = "view-save-copy"  # button copying VIEW_SAVE_URL to the clipboard
+VIEW_BANNER = "view-banner"  # on the dataset page opened from a saved view: as saved or what differs
 LOG_EXPORT = "log-export-csv"
 
 
@@ -122,3 +127,28 @@ RANK_STORE = "rank-store"  # dcc.Store: component-choice table computed on reque
 RANK_BUTTON = "rank-button"
 RANK_STATUS = "rank-status"
 SCORE_DRAWN = "score-drawn"  # dcc.Store: what the score plot on screen shows (model, axes, colouring)
+
+# -- accessibility (webapp/web/pages/dataset_tabs.py, webapp/web/pages/plot_numbers.py) --------
+VIEW_TABLIST = "view-tablist"  # role=tablist: one button per tab of the dataset page
+VIEW_TABPANEL = "view-tabpanel"  # role=tabpanel: the toolbar and contents of the open tab
+EXPLAIN_SELECT = "explain-select"  # adds the explained sample to the selection (no pointer needed)
+
+
+def view_tab(key: str) -> str:
+    """Id of the tab button (role=tab) that opens the dataset page's tab ``key``."""
+    return f"view-tab-{key}"
+
+
+def plot_numbers_button(graph_id: str) -> str:
+    """The "Show the numbers" button (aria-expanded) under a plot."""
+    return f"{graph_id}-numbers-button"
+
+
+def plot_numbers(graph_id: str) -> str:
+    """The region holding the table of a plot's numbers."""
+    return f"{graph_id}-numbers"
+
+
+def plot_numbers_version(graph_id: str) -> str:
+    """dcc.Store bumped when an open plot's figure changes, so its table is read again."""
+    return f"{graph_id}-numbers-version"
