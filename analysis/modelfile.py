@@ -12,7 +12,7 @@ contributions bit for bit. Reading checks the format name, the version, every
 key, every shape and that the stored limits still follow from the stored
 eigenvalues; any problem is a ``ModelFileError`` naming it.
 
-A model's fingerprint (DESIGN.md section 3) is the SHA-256 of canonical JSON
+A model's fingerprint (docs/design.md section 3) is the SHA-256 of canonical JSON
 (sorted keys, no spaces) of the dataset's SHA-256, the preprocessing
 settings, the variable selection, the number of components, the sorted
 excluded sample ids and the analysis version.

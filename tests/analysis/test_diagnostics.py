@@ -144,7 +144,7 @@ def wine_model():
 
 
 def test_training_t2_and_spe_sums(wine_model):
-    # REFERENCES.md "Checks that are theory": sum of training T2 = (n-1)A; sum of SPE =
+    # docs/references.md, "Checks that are theory": sum of training T2 = (n-1)A; sum of SPE =
     # (n-1) * sum of discarded eigenvalues (follows from lambda_a = t_a't_a/(n-1)).
     model, X = wine_model
     n = len(X)

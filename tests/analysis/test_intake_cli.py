@@ -1,7 +1,7 @@
 """Intake through the command line: bad files exit 2 with one line on stderr; a messy
 file fits exactly like its clean twin (same scores, loadings and statistics).
 
-Exit codes are the CLI contract in ../shared/DESIGN.md section 4 (0 success, 2 bad input).
+Exit codes are the CLI contract in docs/design.md section 4 (0 success, 2 bad input).
 The messy twin uses conventions of European lab exports (common practice: ';', decimal comma,
 comment lines, a units row) and must give the same numbers as the plain CSV.
 """

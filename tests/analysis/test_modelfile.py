@@ -168,7 +168,7 @@ def test_damaged_files_name_the_file(tmp_path, document):
 
 
 def test_fingerprint_is_sha256_of_canonical_json():
-    # DESIGN.md section 3: SHA-256 of canonical JSON (sorted keys, separators (",", ":")) of the dataset SHA-256,
+    # docs/design.md section 3: SHA-256 of canonical JSON (sorted keys, separators (",", ":")) of the dataset SHA-256,
     # preprocessing, variable selection, component count, sorted excluded ids and the analysis version.
     # Reference: Python's hashlib/json (FIPS 180-4 SHA-256; RFC 8259 JSON).
     expected_payload = {

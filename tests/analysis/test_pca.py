@@ -125,7 +125,7 @@ def test_wide_data_match_lapack_svd(solver):
 
 
 def test_auto_solver_choice_by_shape():
-    # Design choice (DESIGN.md section 2): X'X for tall data, XX' for wide data.
+    # Design choice (docs/design.md section 2): X'X for tall data, XX' for wide data.
     rng = np.random.default_rng(0)
     assert PCAModel(2).fit(rng.normal(size=(30, 5))).solver_ == "xtx"
     assert PCAModel(2).fit(rng.normal(size=(5, 30))).solver_ == "xxt"
@@ -134,7 +134,7 @@ def test_auto_solver_choice_by_shape():
 # ------------------------------------------------------- conventions and API
 @pytest.mark.parametrize("solver", SOLVERS)
 def test_sign_convention_largest_loading_positive(solver):
-    # Our documented convention (DESIGN.md section 2): largest |loading| positive in every component.
+    # Our documented convention (docs/design.md section 2): largest |loading| positive in every component.
     from sklearn.datasets import load_wine
 
     model = PCAModel(n_components=5, solver=solver).fit(load_wine().data)
@@ -143,7 +143,7 @@ def test_sign_convention_largest_loading_positive(solver):
 
 
 def test_every_solver_gives_the_same_numbers():
-    # DESIGN.md section 2: same data and settings give identical numbers on every solver (to 1e-8).
+    # docs/design.md section 2: same data and settings give identical numbers on every solver (to 1e-8).
     from sklearn.datasets import load_breast_cancer
 
     X = load_breast_cancer().data

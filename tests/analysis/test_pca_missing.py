@@ -84,7 +84,7 @@ def test_training_diagnostics_with_missing_values_are_consistent():
     np.testing.assert_allclose(model.transform(Xm), model.scores_, rtol=0, atol=1e-6)
     np.testing.assert_allclose(model.hotelling_t2(Xm), model.t2_, rtol=1e-5)
     np.testing.assert_allclose(model.spe(Xm), model.spe_, rtol=1e-5)
-    # lambda_a = t_a't_a/(n-1) keeps sum T2 = (n-1)A (REFERENCES.md, checks that are theory).
+    # lambda_a = t_a't_a/(n-1) keeps sum T2 = (n-1)A (docs/references.md, "Checks that are theory").
     assert model.t2_.sum() == pytest.approx((N - 1) * A, rel=1e-10)
     assert not model.warnings_
 

@@ -1,6 +1,6 @@
 """Property-based tests (hypothesis) on random shapes, including n < p, rank-deficient
 data and constant columns. Each property is an identity of PCA (Jolliffe 2002, ch. 1-3) or one
-of REFERENCES.md's "checks that are theory"; LAPACK SVD (scipy) is the reference decomposition.
+of the "Checks that are theory" in docs/references.md; LAPACK SVD (scipy) is the reference decomposition.
 """
 
 from __future__ import annotations
@@ -52,7 +52,7 @@ def test_solvers_agree_and_identities_hold(data, a_wish):
     n = X.shape[0]
     big = max(ref.eigenvalues_[0], 1e-300)
     for m in fits:
-        # Every solver: the same rank and the same numbers (DESIGN.md section 2, to 1e-8).
+        # Every solver: the same rank and the same numbers (docs/design.md section 2, to 1e-8).
         assert m.eigenvalues_.size == rank
         np.testing.assert_allclose(m.eigenvalues_, ref.eigenvalues_, rtol=0, atol=1e-8 * big)
         scale = max(np.abs(ref.scores_).max(), 1e-12)

@@ -2,7 +2,7 @@
 
 Scaling definitions: van den Berg, R.A. et al. (2006) Centering, scaling, and transformations:
 improving the biological information content of metabolomics data. BMC Genomics 7:142, table 1
-(autoscaling: divide by s; Pareto: divide by sqrt(s)); s with ddof=1 (DESIGN.md section 2).
+(autoscaling: divide by s; Pareto: divide by sqrt(s)); s with ddof=1 (docs/design.md section 2).
 """
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""The JSON API of DESIGN.md 5: shapes, roles, errors, CSV twins, user text as text.
+"""The JSON API of docs/design.md section 5: shapes, roles, errors, CSV twins, user text as text.
 
 Outside references: HTTP status semantics (RFC 9110 sections 15.5.2, 15.5.4,
 15.5.5, 15.5.6, 15.5.14); CSV formula injection (OWASP "CSV Injection");

@@ -2,7 +2,7 @@
 
 Against a real server (gunicorn, two worker processes) on SQLite and on PostgreSQL:
 for each proposal two threads, released together by a barrier, send approve and
-reject for two different reviewers.  Expected (DESIGN.md 6; the database enforces it
+reject for two different reviewers.  Expected (docs/design.md section 6; the database enforces it
 with UNIQUE(proposal_id) on sign_offs and a conditional UPDATE): one 200, one 409,
 one sign-off row, one decision in the review log, and the chain still verifies.
 """

@@ -39,7 +39,7 @@ def _numeric(frame: pd.DataFrame, columns: list[str]) -> np.ndarray:
     """Cells as floats: blank -> NaN, "<LOD" -> LOD/2.
 
     LOD/2 substitution: common practice for multivariate screening (see
-    REFERENCES.md, facts of the trade).
+    docs/references.md, "Facts of the trade").
     """
 
     def cell(text: str) -> float:

@@ -58,7 +58,7 @@ def fit_calls(monkeypatch):
 def _sklearn_reference(n_components: int, drop=()):
     frame = wine_frame().set_index("sample")
     x = frame.drop(index=list(drop))[variables()].to_numpy(dtype=float)
-    z = (x - x.mean(axis=0)) / x.std(axis=0, ddof=1)  # autoscaling, ddof=1 (DESIGN.md 2)
+    z = (x - x.mean(axis=0)) / x.std(axis=0, ddof=1)  # autoscaling, ddof=1 (docs/design.md section 2)
     return PCA(n_components=n_components, svd_solver="full").fit(z), z
 
 

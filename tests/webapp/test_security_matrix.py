@@ -5,7 +5,7 @@ pages), so routes added later are covered without editing this file. A view
 declares its role with ``webapp.auth.role_required`` (kept as ``min_role``);
 a Dash page with ``register_page(..., min_role=...)``.
 
-Expected answers follow DESIGN.md section 5 (401 unauthenticated, 403 wrong
+Expected answers follow docs/design.md section 5 (401 unauthenticated, 403 wrong
 role) and the OWASP Authentication Cheat Sheet (lockout, redirect checks;
 common practice).
 """

@@ -1,6 +1,6 @@
 """`latentdesk demo` and `latentdesk serve` as a user runs them (real processes).
 
-The demo's printed line format is the contract of issue 4 / DESIGN.md section 4.
+The demo's printed line format is the contract of issue 4 / docs/design.md section 4.
 """
 
 from __future__ import annotations

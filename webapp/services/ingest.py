@@ -1,6 +1,6 @@
 """Uploads: check a file with intake, store it content-addressed, record the dataset.
 
-A dataset is immutable and known by the SHA-256 of its raw bytes (DESIGN.md 3).
+A dataset is immutable and known by the SHA-256 of its raw bytes (docs/design.md section 3).
 The bytes live at ``HOME/files/<sha[:2]>/<sha>``; the user's file name is
 display text only and never part of a path. Storing is one unit of work: the
 file is written to a temporary name and moved into place with ``os.replace``

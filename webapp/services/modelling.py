@@ -1,6 +1,6 @@
 """Fitted models for stored datasets: fingerprint, disk cache, model records, result tables.
 
-A model is known by its fingerprint (DESIGN.md 3): SHA-256 of canonical JSON
+A model is known by its fingerprint (docs/design.md section 3): SHA-256 of canonical JSON
 of the dataset, the preprocessing settings, the variables, the number of
 components, the excluded samples and the analysis version
 (``analysis.modelfile.model_fingerprint``). The fitted ``PCAModel`` is kept in
