@@ -28,7 +28,10 @@ class ViewState:
 
     Model settings: ``components`` (None = use the recommendation), ``scaling``,
     ``log10`` (variables log-transformed), ``drop`` (variables left out),
-    ``exclude`` (sample ids left out of the fit), ``confidence``.
+    ``exclude`` (sample ids left out of the fit), ``include_all`` (with no
+    ``exclude``: every sample in the fit, rather than the dataset's approved
+    exclusions; how a saved view made with nothing excluded keeps its word),
+    ``confidence``.
     View: ``tab``, ``pcx``/``pcy`` (1-based components), ``colour``/``shape``
     (metadata columns), ``labels``, ``loadings`` (plot, biplot or bars),
     ``sample`` (the sample whose explanation is open), ``order`` (column for the
@@ -40,6 +43,7 @@ class ViewState:
     log10: tuple[str, ...] = ()
     drop: tuple[str, ...] = ()
     exclude: tuple[str, ...] = ()
+    include_all: bool = False
     confidence: float = 0.95
     tab: str = "scores"
     pcx: int = 1
@@ -64,8 +68,9 @@ class ViewState:
             "components": self.components if self.components is not None else "auto",
             "variables": kept,
             "log10": [v for v in self.log10 if v not in dropped],
-            # No exclude in the link: the dataset's approved exclusions apply (webapp.services.review).
-            "exclude": list(self.exclude) if self.exclude else None,
+            # No exclude in the link: the dataset's approved exclusions apply (webapp.services.review),
+            # unless include=all says "none left out".
+            "exclude": list(self.exclude) if self.exclude or self.include_all else None,
             "confidence": self.confidence,
         }
 
@@ -80,10 +85,12 @@ class ViewState:
 # URL key for each field, in the order they are written.
 _KEYS = {
     "tab": "tab", "components": "a", "scaling": "scaling", "log10": "log10", "drop": "drop",
-    "exclude": "exclude", "confidence": "conf", "pcx": "pcx", "pcy": "pcy", "colour": "colour",
-    "shape": "shape", "labels": "labels", "loadings": "loadings", "sample": "sample", "order": "order",
+    "exclude": "exclude", "include_all": "include", "confidence": "conf", "pcx": "pcx", "pcy": "pcy",
+    "colour": "colour", "shape": "shape", "labels": "labels", "loadings": "loadings", "sample": "sample",
+    "order": "order",
 }
 _LIST_FIELDS = ("log10", "drop", "exclude")
+INCLUDE_ALL = "all"  # include=all: no sample left out, whatever is approved
 # Not part of the view state: names the saved view whose selection the dataset page starts with.
 VIEW_KEY = "view"
 DEFAULT = ViewState()
@@ -106,6 +113,8 @@ def to_query(state: ViewState) -> str:
             continue
         if name in _LIST_FIELDS:
             pairs.extend((key, v) for v in value)
+        elif name == "include_all":
+            pairs.append((key, INCLUDE_ALL))
         elif isinstance(value, bool):
             pairs.append((key, "1" if value else "0"))
         elif isinstance(value, float):
@@ -187,6 +196,13 @@ def parse_query(query: str | Mapping[str, Any] | None) -> tuple[ViewState, list[
             values["labels"] = text in ("1", "true")
         else:
             bad("labels", text, "1 or 0")
+
+    text = first("include_all")
+    if text is not None:
+        if text == INCLUDE_ALL:
+            values["include_all"] = True
+        else:
+            bad("include_all", text, INCLUDE_ALL)
 
     for name in ("colour", "shape", "sample", "order"):
         text = first(name)
@@ -293,6 +309,12 @@ def views_url(dataset_id=None) -> str:
 def view_url(view_id) -> str:
     """A saved view's shareable link."""
     return f"/views/{_path_part(view_id)}"
+
+
+def absolute_url(url_root: str, path: str) -> str:
+    """``path`` (one of the links above) as a full address under ``url_root``, the
+    scheme, host and mount point the request came in on (Flask's ``request.url_root``)."""
+    return url_root.rstrip("/") + "/" + path.lstrip("/")
 
 
 def save_view_url(dataset_id, state: ViewState | None = None, selection=()) -> str:

@@ -21,6 +21,7 @@ states = st.builds(
     exclude=st.lists(names, max_size=4, unique=True).map(tuple),
     confidence=st.sampled_from(U.CONFIDENCES),
     tab=st.sampled_from(U.TABS),
+    include_all=st.booleans(),
     pcx=st.integers(1, 5),
     pcy=st.integers(6, 9),
     colour=st.none() | names,

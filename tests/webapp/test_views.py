@@ -1,6 +1,6 @@
 """Saved views: another user reopening a view sees the same numbers, bit for bit.
 
-The model fingerprint (DESIGN.md 3) is the proof; the check here compares the scores
+The model fingerprint (docs/design.md section 3) is the proof; the check here compares the scores
 themselves after the model cache was emptied, so the reopened model is a fresh fit.
 Data: the wine recognition data shipped with scikit-learn (Aeberhard, Coomans &
 de Vel 1992), first 40 samples.
@@ -17,6 +17,8 @@ import pytest
 
 from review_helpers import actor, propose, sign
 from wine_data import wine_csv, wine_frame
+
+from webapp.web.ui import ids
 
 QUERY = "tab=scores&a=3&scaling=autoscale&pcx=1&pcy=3&colour=cultivar"
 
@@ -233,3 +235,137 @@ def test_dataset_page_refuses_a_view_it_cannot_use(app, client, people, dataset_
             with pytest.raises(ReviewRefused) as refused:
                 views.saved_selection(view_id, target, user)
             assert refused.value.status == 403
+
+
+# --------------------------- a shared link keeps its word on the full dataset page
+def _page_modules():
+    import importlib
+
+    return (importlib.import_module("webapp.web.pages.dataset"),
+            importlib.import_module("webapp.web.pages.dataset_views"),
+            importlib.import_module("webapp.web.pages.dataset_samples"),
+            importlib.import_module("webapp.web.pages.views_open"))
+
+
+def _page_fit(page, dataset_id: int, link: str, user_id: int) -> dict:
+    """The fit a dataset page shows for ``link``: its query string -> applied settings -> fit."""
+    from webapp import url_state as U
+
+    path, _, query = link.partition("?")
+    assert path == f"/datasets/{dataset_id}"
+    state, notes = U.parse_query(query)
+    assert notes == []
+    return page.fit_summary(dataset_id, page.applied_settings(state), user_id)
+
+
+def _t2_of_outlier_table(views_page, result) -> dict[str, float]:
+    rows, _, _ = views_page.outlier_rows(result)
+    return {r["sample_id"]: r["T2"] for r in rows}
+
+
+def test_include_all_is_a_link_value_meaning_no_sample_left_out():
+    from webapp import url_state as U
+
+    state = U.ViewState(components=3, include_all=True)
+    assert U.to_query(state) == "a=3&include=all"
+    assert U.parse_query("a=3&include=all") == (state, [])
+    # an empty exclusion list, not "the approved ones" (None)
+    assert state.model_settings(["Fe"])["exclude"] == []
+    assert U.ViewState(components=3).model_settings(["Fe"])["exclude"] is None
+    back, notes = U.parse_query("include=some")
+    assert back == U.ViewState() and notes == ["ignored include='some' in the link: expected all"]
+
+
+def test_shared_link_shows_the_saved_numbers_on_the_dataset_page_and_current_state_differs(
+        app, client, people, dataset_id):
+    page, views_page, samples_page, open_page = _page_modules()
+    analyst, viewer = people["analyst"], people["viewer"]
+    with app.app_context():
+        at_save = _page_fit(page, dataset_id, f"/datasets/{dataset_id}?{QUERY}", analyst.id)
+    view = _save(client, analyst, dataset_id).get_json()["view"]
+    assert view["model_fingerprint"] == at_save["fingerprint"]
+    with app.app_context():
+        csv_at_save = samples_page.download_payload(at_save, "samples", "csv")[0]
+        t2_at_save = _t2_of_outlier_table(views_page, at_save)
+    assert t2_at_save  # some sample is beyond a limit, so the table has rows to compare
+
+    proposal = propose(client, analyst, dataset_id, samples=["W-010"]).get_json()["proposal"]
+    assert sign(client, people["reviewer"], proposal["id"]).status_code == 200
+
+    body = client.get(f"/api/v1/views/{view['id']}", headers=viewer.headers).get_json()
+    assert body["change"] == "Approved exclusions changed since this view was saved: 1 more sample excluded (W-010)."
+    _empty_model_cache(app)  # the dataset page fits afresh
+    with app.app_context():
+        as_saved = _page_fit(page, dataset_id, body["links"]["as_saved"], viewer.id)
+        current = _page_fit(page, dataset_id, body["links"]["current"], viewer.id)
+        # the page the link opens shows the saved model: same fingerprint, same numbers to the last digit
+        assert as_saved["fingerprint"] == view["model_fingerprint"] and as_saved["cache_hit"] is False
+        assert as_saved["n_samples"] == 40 and as_saved["excluded"] == []
+        assert samples_page.download_payload(as_saved, "samples", "csv")[0] == csv_at_save
+        assert _t2_of_outlier_table(views_page, as_saved) == t2_at_save
+        # the current state: W-010 left out by the approval, another model, other numbers
+        assert current["fingerprint"] != view["model_fingerprint"]
+        assert current["excluded"] == ["W-010"] and current["n_samples"] == 39
+        assert _t2_of_outlier_table(views_page, current) != t2_at_save
+
+        search_saved = "?" + body["links"]["as_saved"].split("?", 1)[1]
+        search_current = "?" + body["links"]["current"].split("?", 1)[1]
+        banner_saved = str(open_page.banner_for(search_saved, dataset_id, as_saved, viewer))
+        banner_current = str(open_page.banner_for(search_current, dataset_id, current, viewer))
+    assert "the model as saved (same fingerprint, so the same numbers)" in banner_saved
+    # the current state is one click away, labelled with what differs
+    assert "Approved exclusions changed since this view was saved: 1 more sample excluded (W-010). " in banner_saved
+    assert "Open the current state (a different model)" in banner_saved and body["links"]["current"] in banner_saved
+    assert "not the model saved in it" in banner_current
+    assert "1 more sample excluded (W-010)" in banner_current
+    assert body["links"]["as_saved"] in banner_current
+
+
+def test_saved_view_page_links_to_the_dataset_page_and_labels_the_current_state(app, client, people, dataset_id):
+    _, _, _, open_page = _page_modules()
+    view = _save(client, people["analyst"], dataset_id).get_json()["view"]
+    proposal = propose(client, people["analyst"], dataset_id, samples=["W-010", "W-011"]).get_json()["proposal"]
+    sign(client, people["reviewer"], proposal["id"])
+    body = client.get(f"/api/v1/views/{view['id']}", headers=people["viewer"].headers).get_json()
+    assert body["links"]["as_saved"].startswith(f"/datasets/{dataset_id}?")  # not the view's own page again
+    assert "include=all" in body["links"]["as_saved"]
+    shown = str(open_page.opened_view(body))
+    assert "Open on the dataset page" in shown and f"href='{body['links']['as_saved']}'" in shown
+    assert "Approved exclusions changed since this view was saved: 2 more samples excluded (W-010, W-011)." in shown
+    assert "Open the current state (a different model)" in shown and body["links"]["current"] in shown
+
+
+def _save_through_the_page(client, who, dataset_id, title, base_url):
+    """Press "Save view" the way the browser does (Dash's callback request)."""
+    deps = client.get("/_dash-dependencies", headers=who.headers).get_json()
+    callback = next(d for d in deps if f"{ids.VIEW_SAVE_MESSAGE}.children" in d["output"])
+    body = {
+        "output": callback["output"],
+        "outputs": [{"id": ids.VIEW_SAVE_MESSAGE, "property": "children"},
+                    {"id": ids.VIEWS_LIST, "property": "children"}],
+        "inputs": [{"id": ids.VIEW_SAVE_BUTTON, "property": "n_clicks", "value": 1}],
+        "state": [{"id": ids.VIEW_SAVE_CONTEXT, "property": "data",
+                   "value": {"dataset_id": dataset_id, "query": QUERY, "selection": ["W-002"]}},
+                  {"id": ids.VIEW_SAVE_TITLE, "property": "value", "value": title},
+                  {"id": ids.VIEW_SAVE_NOTE, "property": "value", "value": ""}],
+        "changedPropIds": [f"{ids.VIEW_SAVE_BUTTON}.n_clicks"],
+    }
+    response = client.post("/_dash-update-component", json=body, headers=who.headers, base_url=base_url)
+    assert response.status_code == 200, response.get_data(as_text=True)
+    return response.get_json()["response"]
+
+
+def test_saving_shows_the_full_address_with_a_copy_button_and_refreshes_the_list(client, people, dataset_id):
+    answer = _save_through_the_page(client, people["analyst"], dataset_id, "Cultivars on PC3",
+                                    "https://qa.example.test")
+    view_id = client.get(f"/api/v1/datasets/{dataset_id}/views",
+                         headers=people["viewer"].headers).get_json()["views"][0]["id"]
+    message, listed = str(answer[ids.VIEW_SAVE_MESSAGE]["children"]), str(answer[ids.VIEWS_LIST]["children"])
+    address = f"https://qa.example.test/views/{view_id}"
+    assert f"'href': '{address}'" in message and f"'children': '{address}'" in message
+    assert f"'children': 'Copy link', 'id': '{ids.VIEW_SAVE_COPY}'" in message and "'type': 'Button'" in message
+    assert "Cultivars on PC3" in listed and f"/views/{view_id}" in listed  # the list shows it at once
+
+    refused = _save_through_the_page(client, people["analyst"], dataset_id, "  ", "https://qa.example.test")
+    assert "title is required" in str(refused[ids.VIEW_SAVE_MESSAGE]["children"])
+    assert ids.VIEWS_LIST not in refused  # nothing saved, the list stays as it is

@@ -71,6 +71,7 @@ def applied_settings(state: ViewState) -> dict[str, Any]:
         "log10": list(state.log10),
         "drop": list(state.drop),
         "exclude": list(state.exclude),
+        "include_all": state.include_all,
         "confidence": state.confidence,
     }
 
@@ -85,6 +86,7 @@ def state_with_applied(state: ViewState, applied: dict | None) -> ViewState:
         log10=applied.get("log10") or (),
         drop=applied.get("drop") or (),
         exclude=applied.get("exclude") or (),
+        include_all=bool(applied.get("include_all")),
         confidence=float(applied.get("confidence", state.confidence)),
     )
 
@@ -148,6 +150,7 @@ def settings_from_form(form: dict[str, Any], current: dict | None) -> dict[str, 
         "log10": [v for v in (form.get("log10") or []) if v not in set(form.get("drop") or [])],
         "drop": list(form.get("drop") or []),
         "exclude": list((current or {}).get("exclude") or []),
+        "include_all": bool((current or {}).get("include_all")),
         "confidence": float(form.get("confidence") or 0.95),
     }
 
@@ -365,6 +368,7 @@ def layout(dataset_id=None, **query) -> html.Div:
                 className="ld-dataset-head",
             ),
             html.Div([html.P(n) for n in notes], id=ids.DATASET_NOTES, className="ld-notes"),
+            html.Div(id=ids.VIEW_BANNER, role="status"),  # a saved view's link: filled by views_open
             _settings_form(dataset, state, can_fit),
             dcc.Tabs(
                 id=ids.VIEW_TABS, value=state.tab, className="ld-tabs",
@@ -510,6 +514,14 @@ def fit_line(result: dict | None):
             [html.Span(f"{label} ({len(excluded)}): {shown} "),
              html.Button("Put them back", id=ids.SETTINGS_INCLUDE_ALL, n_clicks=0, className="ld-link-button",
                          hidden=signed)]
+        )
+    elif result.get("what_if"):  # include=all while exclusions are approved
+        approved = result.get("approved_exclusions") or []
+        left_out = html.Div(
+            [html.Span(f"What-if preview, nothing recorded: no sample left out; the approved exclusions "
+                       f"({len(approved)}: {', '.join(approved[:20])}{' and more' if len(approved) > 20 else ''}) "
+                       "are back in the fit. "),
+             html.Button("Put them back", id=ids.SETTINGS_INCLUDE_ALL, n_clicks=0, hidden=True)]
         )
     else:
         left_out = html.Button("Put them back", id=ids.SETTINGS_INCLUDE_ALL, n_clicks=0, hidden=True)

@@ -2,13 +2,20 @@
 
 ``/views?save=1&dataset=<id>&sel=...&<view state>`` (``url_state.save_view_url``,
 linked from a dataset page) shows what will be saved and asks for a title and a
-note; saving gives the shareable link.
+note; saving gives the shareable link as a full address (scheme and host of the
+request) with a copy button, and refreshes the list below the form.
+
+The copy button is a plain button with a small browser-side callback rather than
+``dcc.Clipboard``: that component draws a ``div`` the keyboard never reaches and
+draws nothing at all where the browser's Clipboard API is missing (a plain-http
+address other than localhost), which is how many sites run this app.
 """
 
 from __future__ import annotations
 
 import dash
-from dash import Input, Output, State, callback, dcc, html, no_update
+import flask
+from dash import Input, Output, State, callback, clientside_callback, dcc, html, no_update
 from flask_login import current_user
 
 from analysis.errors import InputError
@@ -55,6 +62,7 @@ def _save_form(dataset_id: int, query: dict, selection: list[str]) -> html.Secti
         + (f", coloured by {state.colour}" if state.colour else "")
         + (f", {len(selection)} selected sample(s)" if selection else "")
         + (f", what-if without {', '.join(state.exclude)}" if state.exclude else "")
+        + (", what-if with no sample left out" if state.include_all and not state.exclude else "")
     )
     return html.Section(
         [
@@ -79,8 +87,16 @@ def _save_form(dataset_id: int, query: dict, selection: list[str]) -> html.Secti
     )
 
 
-def layout(save=None, dataset=None, sel=None, **query) -> html.Div:
+def _listed(dataset_id: int | None) -> html.Table | html.P:
+    """The saved views (of one dataset, or all) as the list shows them."""
     from webapp.services import views
+    from webapp.services.ingest import list_datasets
+
+    names = {d["id"]: d["name"] for d in list_datasets()}
+    return views_table(views.list_views(dataset_id), names)
+
+
+def layout(save=None, dataset=None, sel=None, **query) -> html.Div:
     from webapp.services.ingest import list_datasets
 
     dataset_id = int(dataset) if isinstance(dataset, str) and dataset.isdigit() else None
@@ -92,26 +108,43 @@ def layout(save=None, dataset=None, sel=None, **query) -> html.Div:
         [
             html.H1(title),
             form,
-            html.Section(html.Div(views_table(views.list_views(dataset_id), names), id=ids.VIEWS_LIST),
+            html.Section(html.Div(_listed(dataset_id), id=ids.VIEWS_LIST),
                          className="ld-panel"),
         ]
     )
 
 
-def save(context: dict, title: str | None, note: str | None):
-    """Save for the signed-in user; returns the message component."""
+def save(context: dict, title: str | None, note: str | None, url_root: str):
+    """Save for the signed-in user; returns (message, the refreshed list, or no_update after a refusal).
+
+    ``url_root`` is the scheme, host and mount point of the request (``flask.request.url_root``):
+    the link shown is the full address, so it can be pasted anywhere.
+    """
     from webapp.services import views
 
     try:
         view = views.save_view(current_user, int(context["dataset_id"]), query=context["query"], title=title,
                                note=note or "", selection=context.get("selection") or [])
     except InputError as exc:
-        return html.P(str(exc), className="ld-alert")
-    return html.P(["Saved. Link to share: ", dcc.Link(view["url"], href=view["url"])], className="ld-success")
+        return html.P(str(exc), className="ld-alert"), no_update
+    address = url_state.absolute_url(url_root, view["url"])
+    message = html.Div(
+        [
+            html.P("Saved. Link to share (anyone signed in sees the same numbers):"),
+            html.P(
+                [html.A(address, href=address, id=ids.VIEW_SAVE_URL, className="ld-mono"), " ",
+                 html.Button("Copy link", id=ids.VIEW_SAVE_COPY, n_clicks=0, type="button",
+                             title="Copy the link to the clipboard", className="ld-button ld-button-quiet")],
+            ),
+        ],
+        className="ld-success",
+    )
+    return message, _listed(int(context["dataset_id"]))
 
 
 @callback(
     Output(ids.VIEW_SAVE_MESSAGE, "children"),
+    Output(ids.VIEWS_LIST, "children"),
     Input(ids.VIEW_SAVE_BUTTON, "n_clicks"),
     State(ids.VIEW_SAVE_CONTEXT, "data"),
     State(ids.VIEW_SAVE_TITLE, "value"),
@@ -120,5 +153,35 @@ def save(context: dict, title: str | None, note: str | None):
 )
 def _on_save(n_clicks, context, title, note):
     if not n_clicks or not context:
-        return no_update
-    return save(context, title, note)
+        return no_update, no_update
+    return save(context, title, note, flask.request.url_root)
+
+
+# Copy the address: the Clipboard API where the page is a secure context, else a selected
+# text field and the copy command; the button then says whether it worked (inside the
+# message's status region, so screen readers hear it).
+clientside_callback(
+    """
+    function (clicks, address) {
+        if (!clicks || !address) { return window.dash_clientside.no_update; }
+        const failed = 'Copy failed: select the address and copy it';
+        if (navigator.clipboard && window.isSecureContext) {
+            return navigator.clipboard.writeText(address).then(() => 'Copied', () => failed);
+        }
+        const field = document.createElement('textarea');
+        field.value = address;
+        field.setAttribute('readonly', '');
+        field.style.position = 'fixed';
+        field.style.opacity = '0';
+        document.body.appendChild(field);
+        field.select();
+        const copied = document.execCommand('copy');
+        field.remove();
+        return copied ? 'Copied' : failed;
+    }
+    """,
+    Output(ids.VIEW_SAVE_COPY, "children"),
+    Input(ids.VIEW_SAVE_COPY, "n_clicks"),
+    State(ids.VIEW_SAVE_URL, "href"),
+    prevent_initial_call=True,
+)

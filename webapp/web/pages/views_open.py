@@ -1,18 +1,23 @@
-"""One saved view, opened from its link: ``/views/<view_id>``.
+"""One saved view, opened from its link: ``/views/<view_id>``, and its banner on the dataset page.
 
 Refits (or reads from the cache) the model with the saved settings and
 exclusions and shows whether its fingerprint equals the saved one: equal
-fingerprints mean the same numbers.  When the dataset's approved exclusions
-changed since the view was saved, both versions are offered.
+fingerprints mean the same numbers.  "Open on the dataset page" leads to the
+full dataset page showing that model; when the dataset's approved exclusions
+changed since the view was saved, the current state is one more link, labelled
+with what differs.  On the dataset page, the banner (``dataset_banner``) says
+whether the model on screen is the saved one and, if not, what differs, with a
+link to the other version.
 """
 
 from __future__ import annotations
 
 import dash
-from dash import dcc, html
+from dash import Input, Output, State, callback, dcc, html
 from flask_login import current_user
 
 from analysis.errors import InputError
+from webapp import url_state
 from webapp.web.pages.review import when
 from webapp.web.ui import ids
 
@@ -36,17 +41,12 @@ def opened_view(opened: dict) -> html.Div:
         )
     )
     change = None
-    if opened["exclusions_changed"]:
+    if opened["change"]:
         change = html.Div(
             [
-                html.P(
-                    "The approved exclusions changed since this view was saved "
-                    f"(then: {', '.join(opened['excluded_as_saved']) or 'none'}; "
-                    f"now: {', '.join(opened['excluded_current']) or 'none'}).",
-                    className="ld-alert",
-                ),
-                html.P([dcc.Link("Open as saved", href=opened["links"]["as_saved"]), " · ",
-                        dcc.Link("Open with the current exclusions", href=opened["links"]["current"])]),
+                html.P(f"{opened['change']} The numbers below are as saved; the current state is a different "
+                       "model.", className="ld-alert"),
+                html.P(dcc.Link("Open the current state (a different model)", href=opened["links"]["current"])),
             ]
         )
     return html.Div(
@@ -82,3 +82,51 @@ def layout(view_id=None, **_query) -> html.Div:
     except InputError as exc:
         return html.Div([html.H1("Saved view"), html.P(str(exc), className="ld-alert")])
     return opened_view(opened)
+
+
+# ------------------------------------------------ the banner on the dataset page
+def dataset_banner(comparison: dict | None):
+    """Children of the dataset page's banner for ``views.compare_with_view`` (None: no view)."""
+    if not comparison:
+        return None
+    view, links = comparison["view"], comparison["links"]
+    title = f"Saved view \u201c{view['title']}\u201d by {view['created_by_name'] or 'someone'}"
+    if comparison["same"] and not comparison["differences"]:
+        current = comparison["current_change"]
+        return html.Div(
+            [html.P(f"{title}: the model as saved (same fingerprint, so the same numbers).", className="ld-success"),
+             html.P([f"{current} ", dcc.Link("Open the current state (a different model)", href=links["current"])])
+             if current else html.P("The approved exclusions are the same as when it was saved.",
+                                    className="ld-muted")],
+            className="ld-view-banner",
+        )
+    return html.Div(
+        [html.P(f"{title}: {'same model, but' if comparison['same'] else 'not the model saved in it.'}",
+                className="ld-alert"),
+         html.Ul([html.Li(d) for d in comparison["differences"]]),
+         html.P(dcc.Link("Back to the view as saved", href=links["as_saved"]))],
+        className="ld-view-banner",
+    )
+
+
+def banner_for(search: str | None, dataset_id, result: dict | None, user):
+    """The banner of a dataset page whose address names a saved view (``view=<id>``)."""
+    from webapp.services import views
+
+    view_id = url_state.view_id_from_query(search)
+    if view_id is None or not result or not result.get("ok"):
+        return None
+    try:
+        return dataset_banner(views.compare_with_view(view_id, int(dataset_id), user, result))
+    except (views.ViewNotFound, InputError):
+        return None  # the page's notes already say why the view was not used (dataset.initial_selection)
+
+
+@callback(
+    Output(ids.VIEW_BANNER, "children"),
+    Input(ids.FIT_RESULT, "data"),
+    State(ids.DATASET_LOCATION, "search"),
+    State(ids.DATASET_ID, "data"),
+)
+def _banner(result, search, dataset_id):
+    return banner_for(search, dataset_id, result, current_user)
