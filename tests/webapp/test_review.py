@@ -173,6 +173,17 @@ def test_a_bad_field_is_named_in_the_api_answer(client, team, dataset_id, body, 
     assert error["field"] == field and error["message"][0].isupper() and "None" not in error["message"]
 
 
+@pytest.mark.parametrize("settings", [[1], "autoscale", 3, {"scaling": ["autoscale"]}, {"components": [2]}])
+def test_proposal_settings_of_the_wrong_type_are_a_clear_400(client, team, dataset_id, settings):
+    # docs/design.md section 5: bad input is a 4xx with a message, never a 500; nothing is stored
+    before = len(log_of(client, team["analyst"], dataset_id))
+    response = propose(client, team["analyst"], dataset_id, settings=settings)
+    assert response.status_code == 400, response.get_json()
+    message = response.get_json()["error"]["message"]
+    assert "settings" in message or "scaling" in message or "components" in message, message
+    assert len(log_of(client, team["analyst"], dataset_id)) == before
+
+
 @pytest.mark.parametrize("decision", ["approve", "reject"])
 @pytest.mark.parametrize("role,status", [("viewer", 403), ("analyst", 403), ("reviewer", 200), ("admin", 200)])
 def test_role_matrix_sign(client, team, dataset_id, decision, role, status):
