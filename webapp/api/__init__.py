@@ -1,9 +1,9 @@
 """The JSON way in (``/api/v1``): one blueprint per resource family.
 
 ``BLUEPRINTS`` is the route table ``create_app`` registers; the response and
-error shapes every blueprint shares live in ``webapp.api.responses``.
+error shapes every blueprint shares live in ``webapp.api.datasets`` (``json_error``).
 """
 
-from webapp.api import datasets, review
+from webapp.api import datasets, monitoring, review
 
-BLUEPRINTS = (datasets.bp, review.bp)
+BLUEPRINTS = (datasets.bp, review.bp, monitoring.bp)

@@ -2,7 +2,7 @@
 
 An exclusion is an annotation: the raw data never change.  The dataset's
 current model leaves out ``approved_exclusions(dataset_id)``; reversing an
-approved exclusion takes a new, signed proposal to reinstate (docs/design.md, review and sign-off).
+approved exclusion takes a new, signed proposal to reinstate (docs/design.md section 6).
 
 Each write runs in one transaction that first takes the review write lock
 (``webapp.store.review.lock_review``), changes the proposal and appends to the
@@ -291,6 +291,35 @@ def _locked(user_id: int) -> bool:
         return row is not None and row.locked_until is not None and row.locked_until > audit.now_utc()
 
 
+def check_signing_password(user, password, *, dataset_id: int | None, payload: Mapping[str, Any]) -> None:
+    """Re-check a signer's password before any signature (exclusions, reference models).
+
+    A wrong or missing password is logged as ``sign_failed`` (``payload`` says
+    what was attempted) and refused with ReviewRefused, code ``wrong_password``;
+    it also counts toward the account lockout.  Nothing else changes.
+    """
+    if _password_ok(user.id, password):
+        return
+
+    def log_failure(session):
+        audit.append(
+            session,
+            actor_id=user.id,
+            actor_name=user.display_name,
+            action="sign_failed",
+            dataset_id=dataset_id,
+            payload={**payload, "account": user.name, "reason": "wrong password"},
+        )
+
+    run_write(log_failure)
+    locked = " Too many wrong passwords: the account is now locked for a while." if _locked(user.id) else ""
+    raise ReviewRefused(
+        "the password is not correct; nothing was signed (the attempt is in the review log)." + locked,
+        code="wrong_password",
+        status=403,
+    )
+
+
 def sign(proposal_id: int, user, *, decision: str, password, comment="") -> dict[str, Any]:
     """Approve or reject a proposal after re-checking the signer's password.
 
@@ -310,30 +339,8 @@ def sign(proposal_id: int, user, *, decision: str, password, comment="") -> dict
         check_can_sign(signer_id=user.id, role=user.role, proposed_by=row.proposed_by, state=row.state)
         dataset_id = row.dataset_id
 
-    if not _password_ok(user.id, password):
-
-        def log_failure(session):
-            audit.append(
-                session,
-                actor_id=user.id,
-                actor_name=user.display_name,
-                action="sign_failed",
-                dataset_id=dataset_id,
-                payload={
-                    "proposal_id": proposal_id,
-                    "account": user.name,
-                    "attempted": meaning,
-                    "reason": "wrong password",
-                },
-            )
-
-        run_write(log_failure)
-        locked = " Too many wrong passwords: the account is now locked for a while." if _locked(user.id) else ""
-        raise ReviewRefused(
-            "the password is not correct; nothing was signed (the attempt is in the review log)." + locked,
-            code="wrong_password",
-            status=403,
-        )
+    check_signing_password(user, password, dataset_id=dataset_id,
+                           payload={"proposal_id": proposal_id, "attempted": meaning})
 
     def work(session):
         row = store.get_proposal(session, proposal_id)
@@ -428,6 +435,11 @@ ACTION_WORDS = {
     "withdraw": "withdrew",
     "sign_failed": "failed signing attempt (wrong password)",
     "save_view": "saved a view",
+    "reference_model_proposed": "proposed a reference model",
+    "reference_model_approved": "approved a reference model (signed)",
+    "reference_model_rejected": "rejected a reference model (signed)",
+    "reference_model_retired": "retired a reference model (signed)",
+    "reference_model_superseded": "a reference model was superseded by a later version",
 }
 
 
@@ -438,6 +450,9 @@ def describe_entry(entry: Mapping[str, Any]) -> str:
     parts = [what]
     if "proposal_id" in p:
         parts.append(f"proposal {p['proposal_id']}")
+    if "reference_model_id" in p:
+        named = f" ({p['name']} v{p['version']})" if p.get("name") and p.get("version") else ""
+        parts.append(f"reference model {p['reference_model_id']}{named}")
     if p.get("proposal_action") and p.get("samples"):
         parts.append(f"{p['proposal_action']} {', '.join(p['samples'][:20])}"
                      + (" ..." if len(p["samples"]) > 20 else ""))

@@ -13,12 +13,16 @@ from sqlalchemy import (
     JSON,
     Boolean,
     CheckConstraint,
+    Float,
     ForeignKey,
+    Index,
     Integer,
     MetaData,
     String,
     Text,
     BigInteger,
+    UniqueConstraint,
+    text,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
@@ -28,6 +32,8 @@ ROLES = ("viewer", "analyst", "reviewer", "admin")
 PROPOSAL_ACTIONS = ("exclude", "reinstate")
 PROPOSAL_STATES = ("proposed", "approved", "rejected", "withdrawn")
 SIGN_OFF_MEANINGS = ("approved", "rejected")
+REFERENCE_MODEL_STATES = ("proposed", "approved", "rejected", "retired")
+REFERENCE_MODEL_MEANINGS = ("approved", "rejected", "retired")
 
 # Deterministic constraint names so migrations can refer to them on every engine.
 NAMING = {
@@ -192,3 +198,85 @@ class ReviewLogHead(Base):
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     seq: Mapped[int] = mapped_column(Integer)
     hash: Mapped[str] = mapped_column(String(64))
+
+
+class ReferenceModel(Base):
+    """A fitted model proposed, signed and frozen as the reference for checking new batches.
+
+    Everything that defines the model is written once, at proposal: the open
+    model file (``document``, what ``latentdesk apply`` reads) and its SHA-256,
+    the limits at both confidence levels, the variables with units.  The
+    database refuses any change to those columns and any move other than
+    proposed -> approved | rejected and approved -> retired (migration
+    0003_reference_models); only ``state``, ``decided_at``, ``retired_at`` and
+    ``superseded_by`` ever change.
+    """
+
+    __tablename__ = "reference_models"
+    __table_args__ = (
+        CheckConstraint(_in("state", REFERENCE_MODEL_STATES), name="state"),
+        CheckConstraint(
+            "warning_confidence > 0 AND warning_confidence < action_confidence AND action_confidence < 1",
+            name="confidence",
+        ),
+        CheckConstraint("version >= 1", name="version"),
+        UniqueConstraint("name", "version", name="uq_reference_models_name_version"),
+        # At most one approved version per name (a partial unique index on both engines).
+        Index(
+            "ix_reference_models_one_approved_per_name",
+            "name",
+            unique=True,
+            sqlite_where=text("state = 'approved'"),
+            postgresql_where=text("state = 'approved'"),
+        ),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(String(200))
+    version: Mapped[int] = mapped_column(Integer)
+    note: Mapped[str] = mapped_column(Text, default="")
+    state: Mapped[str] = mapped_column(String(16), default="proposed", index=True)
+    dataset_id: Mapped[int] = mapped_column(ForeignKey("datasets.id"), index=True)
+    model_id: Mapped[int] = mapped_column(ForeignKey("models.id"))
+    fingerprint: Mapped[str] = mapped_column(String(64))
+    training_sha256: Mapped[str] = mapped_column(String(64))
+    warning_confidence: Mapped[float] = mapped_column(Float)
+    action_confidence: Mapped[float] = mapped_column(Float)
+    variables: Mapped[list[Any]] = mapped_column(default=list)
+    limits: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    training: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    document: Mapped[dict[str, Any]] = mapped_column(deferred=True)
+    document_sha256: Mapped[str] = mapped_column(String(64))
+    proposed_by: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    decided_at: Mapped[datetime | None] = mapped_column(nullable=True)
+    retired_at: Mapped[datetime | None] = mapped_column(nullable=True)
+    superseded_by: Mapped[int | None] = mapped_column(ForeignKey("reference_models.id"), nullable=True)
+
+
+class ReferenceModelSignature(Base):
+    """A signature on a reference model: the decision (approved | rejected) or the retirement.
+
+    Append-only (database triggers); one per step, and never by the proposer
+    (a trigger compares ``signer_id`` with the model's ``proposed_by``).
+    """
+
+    __tablename__ = "reference_model_signatures"
+    __table_args__ = (
+        CheckConstraint(_in("meaning", REFERENCE_MODEL_MEANINGS), name="meaning"),
+        CheckConstraint(
+            "(step = 'decision' AND meaning IN ('approved', 'rejected')) "
+            "OR (step = 'retirement' AND meaning = 'retired')",
+            name="step",
+        ),
+        UniqueConstraint("reference_model_id", "step", name="uq_reference_model_signatures_step"),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    reference_model_id: Mapped[int] = mapped_column(ForeignKey("reference_models.id"), index=True)
+    step: Mapped[str] = mapped_column(String(16))
+    signer_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    printed_name: Mapped[str] = mapped_column(String(200))
+    meaning: Mapped[str] = mapped_column(String(16))
+    comment: Mapped[str] = mapped_column(Text, default="")
+    signed_at: Mapped[datetime] = mapped_column(default=utcnow)

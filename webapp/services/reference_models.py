@@ -1,0 +1,588 @@
+"""Reference models: a fitted model proposed, signed and frozen for checking new batches.
+
+Lifecycle (docs/review.md, "Reference models"): an analyst proposes a fitted
+model under a name; a reviewer other than the proposer approves or rejects it
+with a re-entered password, exactly like an exclusion sign-off (printed name,
+UTC time, meaning, comment; ``review.check_signing_password``).  Approving
+version k of a name retires the approved earlier version of that name
+(*superseded*, still readable).  An approved reference model can be retired
+with a signature.  Every step enters the hash-chained review log
+(``reference_model_proposed`` / ``_approved`` / ``_rejected`` / ``_retired`` /
+``_superseded``; a wrong password is ``sign_failed``).
+
+Frozen at proposal, not at approval: the whole open model file (the JSON
+``latentdesk apply`` reads, ``analysis.modelfile``), its SHA-256, the limits at
+both confidence levels, the variables with units, the training data's SHA-256
+and the model fingerprint are written with the proposal and the database
+refuses any change to them (migration 0003_reference_models).  So the reviewer
+signs exactly the content that is later used, and approval only changes the
+state.  The file's own ``settings.confidence`` is the *action* level, so
+``latentdesk apply`` flags at the action limits; ``extra.reference_model``
+holds both levels.
+
+Signatures follow US FDA 21 CFR Part 11, 11.50, 11.70, 11.200(a) and EU GMP
+Annex 11 (2011), section 14, in spirit; LatentDesk claims no compliance.
+"""
+
+from __future__ import annotations
+
+import copy
+import hashlib
+import json
+import math
+import re
+from typing import Any, Iterable, Mapping
+
+import pandas as pd
+
+from analysis.errors import InputError
+from analysis.modelfile import canonical_json, model_from_dict, model_to_dict
+from analysis.pca import PCAModel
+from webapp.services import audit, ingest, modelling, review
+from webapp.services.context import session_scope
+from webapp.services.review_rules import (
+    MAX_COMMENT_CHARS,
+    check_can_propose,
+    check_can_sign,
+    clean_text,
+    conflict,
+)
+from webapp.store import reference_models as store
+from webapp.store.review import display_names
+from webapp.store.tables import REFERENCE_MODEL_STATES
+
+DEFAULT_CONFIDENCE = (0.95, 0.99)
+MAX_NAME_CHARS = 200
+MAX_NOTE_CHARS = 4000
+MAX_ID = 2**31 - 1  # the id columns are 32-bit integers on PostgreSQL
+SPE_METHOD = "jackson-mudholkar"
+# verb -> (signature step, meaning = the state it leads to)
+SIGNING = {
+    "approve": (store.DECISION, "approved"),
+    "reject": (store.DECISION, "rejected"),
+    "retire": (store.RETIREMENT, "retired"),
+}
+DOWNLOADABLE = ("approved", "retired")
+
+
+class ReferenceModelNotFound(LookupError):
+    """No reference model with that id (the API answers 404)."""
+
+
+# --- checking what people send ------------------------------------------------------------
+
+
+def check_id(value, field: str) -> int:
+    """A whole-number id of a stored row from a request body; InputError naming ``field``."""
+    if isinstance(value, bool) or not isinstance(value, int):
+        shown = "nothing" if value is None else f"{type(value).__name__} {value!r}"[:80]
+        raise InputError(f"{field} must be a whole number (an id), got {shown}", field=field)
+    if not 1 <= value <= MAX_ID:
+        raise InputError(f"{field} {value} is out of range: ids run from 1 to {MAX_ID}", field=field)
+    return value
+
+
+def check_name(value) -> str:
+    """The reference model's name: text, 1 to 200 characters, no control characters."""
+    if not isinstance(value, str):
+        shown = "nothing" if value is None else type(value).__name__
+        raise InputError(f"name must be text such as \"Line 2 release assays\", got {shown}", field="name")
+    name = value.strip()
+    if not name:
+        raise InputError("name is required: the name a team knows this reference model by", field="name")
+    if len(name) > MAX_NAME_CHARS:
+        raise InputError(f"name is {len(name)} characters long; the limit is {MAX_NAME_CHARS}", field="name")
+    if any(ord(ch) < 32 or ord(ch) == 127 for ch in name):
+        raise InputError("name must not contain control characters (tabs, line breaks)", field="name")
+    return name
+
+
+def check_confidence_pair(value) -> tuple[float, float]:
+    """``[warning, action]``: two numbers strictly between 0 and 1, warning below action."""
+    expected = "confidence must be [warning, action], two numbers between 0 and 1 with warning < action"
+    if not isinstance(value, (list, tuple)) or len(value) != 2:
+        raise InputError(f"{expected}, e.g. [0.95, 0.99]; got {str(value)[:80]}", field="confidence")
+    levels = []
+    for level in value:
+        if isinstance(level, bool) or not isinstance(level, (int, float)) or not math.isfinite(level):
+            raise InputError(f"{expected}; {str(level)[:40]!s} is not a number", field="confidence")
+        if not 0 < level < 1:
+            raise InputError(f"{expected}; {level} is not between 0 and 1", field="confidence")
+        levels.append(float(level))
+    warning, action = levels
+    if not warning < action:
+        raise InputError(f"{expected}; the warning level {warning} is not below the action level {action}",
+                         field="confidence")
+    return warning, action
+
+
+def check_states(values: Iterable[str] | None) -> list[str] | None:
+    """A state filter: each one of proposed, approved, rejected, retired (None: all)."""
+    states = [v for v in (values or []) if v != ""]
+    unknown = [v for v in states if v not in REFERENCE_MODEL_STATES]
+    if unknown:
+        raise InputError(
+            f"state {unknown[0]!r} is not one of {', '.join(REFERENCE_MODEL_STATES)}", field="state"
+        )
+    return states or None
+
+
+def _known(reference_model_id) -> int | None:
+    """The id when it could name a row, else None (such an id is simply not found)."""
+    if isinstance(reference_model_id, bool) or not isinstance(reference_model_id, int):
+        return None
+    return reference_model_id if 1 <= reference_model_id <= MAX_ID else None
+
+
+# --- the frozen content -------------------------------------------------------------------
+
+
+def _limit_or_none(compute) -> float | None:
+    try:
+        value = float(compute())
+    except InputError:
+        return None  # too few samples for this limit
+    return value if math.isfinite(value) else None
+
+
+def limits_at(model: PCAModel, confidence: float) -> dict[str, Any]:
+    """The limits at one confidence level: new-sample T2 (F), training T2 (beta), SPE.
+
+    T2: Tracy, Young & Mason (1992); NIST/SEMATECH e-Handbook 6.5.4.3.  SPE:
+    Jackson & Mudholkar (1979).  Computed by ``PCAModel.t2_limit`` / ``spe_limit``.
+    """
+    return {
+        "confidence": confidence,
+        "t2_new": _limit_or_none(lambda: model.t2_limit(confidence, new=True)),
+        "t2_training": _limit_or_none(lambda: model.t2_limit(confidence)),
+        "spe": _limit_or_none(lambda: model.spe_limit(confidence, method=SPE_METHOD)),
+    }
+
+
+def document_sha256(document: Mapping[str, Any]) -> str:
+    """SHA-256 (hex) of the open model file's canonical JSON (sorted keys, no spaces)."""
+    return hashlib.sha256(canonical_json(document).encode("ascii")).hexdigest()
+
+
+def model_file_bytes(document: Mapping[str, Any]) -> bytes:
+    """The open model file as ``analysis.modelfile.save_model`` writes it."""
+    return (json.dumps(document, indent=1, allow_nan=False) + "\n").encode("utf-8")
+
+
+def _frozen_content(model: PCAModel, info: Mapping[str, Any], dataset: Mapping[str, Any], units,
+                    *, name: str, version: int, note: str, warning: float, action: float, proposer: str):
+    """(document, variables, limits, training) of a new proposal; the document loads back as a model."""
+    log10 = set(info["settings"].get("log10") or [])
+    variables = [{"name": v, "unit": units.get(v) or None, "log10": v in log10} for v in model.variable_names_]
+    at_action = copy.copy(model)
+    at_action.confidence = action  # the file's own limits are the action limits
+    training = {
+        "n_samples": int(model.n_samples_),
+        "n_components": int(model.n_components_),
+        "excluded": list(info["excluded"]),
+        "approved_exclusions": list(info.get("approved_exclusions") or []),
+        "exclusions_signed_off": list(info["excluded"]) == list(info.get("approved_exclusions") or []),
+    }
+    limits = {"spe_method": SPE_METHOD, "warning": limits_at(model, warning), "action": limits_at(model, action)}
+    intake = dict(dataset["intake_options"])
+    extra = {
+        "dataset_sha256": dataset["sha256"],
+        "file": dataset["name"],
+        "id_column": dataset["id_column"],
+        "group_columns": list(intake.get("group_columns") or []),
+        "excluded": training["excluded"],
+        "below_limit_policy": intake.get("below_limit"),
+        "intake": intake,
+        "reference_model": {
+            "name": name,
+            "version": version,
+            "note": note,
+            "dataset_id": dataset["id"],
+            "model_id": info["id"],
+            "training_sha256": dataset["sha256"],
+            "warning_confidence": warning,
+            "action_confidence": action,
+            "limits": limits,
+            "variables": variables,
+            "proposed_by": proposer,
+        },
+    }
+    document = audit.json_safe(model_to_dict(at_action, info["fingerprint"], extra))
+    model_from_dict(document)  # refuse to store a file that would not load
+    return document, variables, limits, training
+
+
+# --- reading ------------------------------------------------------------------------------
+
+
+def _signature_dict(row) -> dict[str, Any]:
+    return {
+        "meaning": row.meaning,
+        "signer_id": row.signer_id,
+        "printed_name": row.printed_name,
+        "comment": row.comment,
+        "signed_at": audit.utc_iso(row.signed_at),
+    }
+
+
+def _as_dict(row, signatures, names: Mapping[int, str], supersedes: int | None) -> dict[str, Any]:
+    return {
+        "id": row.id,
+        "name": row.name,
+        "version": row.version,
+        "note": row.note,
+        "state": row.state,
+        "dataset_id": row.dataset_id,
+        "model_id": row.model_id,
+        "fingerprint": row.fingerprint,
+        "training_sha256": row.training_sha256,
+        "document_sha256": row.document_sha256,
+        "confidence": {"warning": row.warning_confidence, "action": row.action_confidence},
+        "variables": list(row.variables),
+        "limits": dict(row.limits),
+        "training": dict(row.training),
+        "n_components": row.training.get("n_components"),
+        "n_samples": row.training.get("n_samples"),
+        "proposed_by": row.proposed_by,
+        "proposed_by_name": names.get(row.proposed_by),
+        "created_at": audit.utc_iso(row.created_at),
+        "decided_at": audit.utc_iso(row.decided_at) if row.decided_at else None,
+        "retired_at": audit.utc_iso(row.retired_at) if row.retired_at else None,
+        "superseded_by": row.superseded_by,
+        "supersedes": supersedes,
+        "signatures": [_signature_dict(s) for s in signatures],
+    }
+
+
+def _dict_in(session, reference_model_id: int) -> dict[str, Any]:
+    row = store.get_reference_model(session, reference_model_id)
+    if row is None:
+        raise ReferenceModelNotFound(reference_model_id)
+    signatures = store.signatures_of(session, [row.id])[row.id]
+    return _as_dict(row, signatures, display_names(session, [row.proposed_by]),
+                    store.superseded_of(session, row.id))
+
+
+def get_reference_model(reference_model_id: int) -> dict[str, Any]:
+    """One reference model with its signatures (oldest first); ReferenceModelNotFound."""
+    known = _known(reference_model_id)
+    if known is None:
+        raise ReferenceModelNotFound(reference_model_id)
+    with session_scope() as session:
+        return _dict_in(session, known)
+
+
+def list_reference_models(states: Iterable[str] | None = None, name: str | None = None) -> list[dict[str, Any]]:
+    """Reference models by name and version, optionally only some states or one name."""
+    wanted = check_states(states)
+    with session_scope() as session:
+        rows = store.list_reference_models(session, states=wanted, name=name)
+        ids = [r.id for r in rows]
+        signatures = store.signatures_of(session, ids)
+        names = display_names(session, [r.proposed_by for r in rows])
+        supersedes = {r.superseded_by: r.id for r in store.list_reference_models(session) if r.superseded_by}
+        return [_as_dict(r, signatures[r.id], names, supersedes.get(r.id)) for r in rows]
+
+
+CSV_COLUMNS = [
+    "id", "name", "version", "state", "note", "dataset_id", "model_id", "fingerprint", "training_sha256",
+    "document_sha256", "n_samples", "n_components", "variables", "warning_confidence", "action_confidence",
+    "t2_limit_warning", "t2_limit_action", "spe_limit_warning", "spe_limit_action", "proposed_by",
+    "created_at_utc", "decision", "decided_by", "decided_at_utc", "decision_comment", "retired_by",
+    "retired_at_utc", "retirement_comment", "superseded_by", "supersedes",
+]
+
+
+def reference_models_frame(states: Iterable[str] | None = None, name: str | None = None) -> pd.DataFrame:
+    """The list as a table, one row per reference model (the CSV twin of the list)."""
+    rows = []
+    for m in list_reference_models(states, name):
+        by_meaning = {s["meaning"]: s for s in m["signatures"]}
+        decision = by_meaning.get("approved") or by_meaning.get("rejected") or {}
+        retirement = by_meaning.get("retired") or {}
+        rows.append({
+            "id": m["id"],
+            "name": m["name"],
+            "version": m["version"],
+            "state": m["state"],
+            "note": m["note"],
+            "dataset_id": m["dataset_id"],
+            "model_id": m["model_id"],
+            "fingerprint": m["fingerprint"],
+            "training_sha256": m["training_sha256"],
+            "document_sha256": m["document_sha256"],
+            "n_samples": m["n_samples"],
+            "n_components": m["n_components"],
+            "variables": ";".join(
+                f"{v['name']} ({v['unit']})" if v.get("unit") else v["name"] for v in m["variables"]
+            ),
+            "warning_confidence": m["confidence"]["warning"],
+            "action_confidence": m["confidence"]["action"],
+            "t2_limit_warning": m["limits"]["warning"]["t2_new"],
+            "t2_limit_action": m["limits"]["action"]["t2_new"],
+            "spe_limit_warning": m["limits"]["warning"]["spe"],
+            "spe_limit_action": m["limits"]["action"]["spe"],
+            "proposed_by": m["proposed_by_name"],
+            "created_at_utc": m["created_at"],
+            "decision": decision.get("meaning", ""),
+            "decided_by": decision.get("printed_name", ""),
+            "decided_at_utc": decision.get("signed_at", ""),
+            "decision_comment": decision.get("comment", ""),
+            "retired_by": retirement.get("printed_name", ""),
+            "retired_at_utc": m["retired_at"] or "",
+            "retirement_comment": retirement.get("comment", ""),
+            "superseded_by": m["superseded_by"] if m["superseded_by"] is not None else "",
+            "supersedes": m["supersedes"] if m["supersedes"] is not None else "",
+        })
+    return pd.DataFrame(rows, columns=CSV_COLUMNS)
+
+
+def _stored_document(row) -> dict[str, Any]:
+    """The frozen open model file, checked against its stored SHA-256."""
+    document = row.document
+    if document_sha256(document) != row.document_sha256:
+        raise RuntimeError(f"reference model {row.id}: the stored model file does not match its SHA-256")
+    return document
+
+
+def model_document(reference_model_id: int) -> dict[str, Any]:
+    """The frozen open model file (what ``latentdesk apply`` reads) of an approved or retired model.
+
+    ReferenceModelNotFound for an unknown id; ReviewRefused (409) while it is
+    proposed or after it was rejected: only a signed model is handed out.
+    """
+    known = _known(reference_model_id)
+    with session_scope() as session:
+        row = store.get_reference_model(session, known, with_document=True) if known else None
+        if row is None:
+            raise ReferenceModelNotFound(reference_model_id)
+        if row.state not in DOWNLOADABLE:
+            raise conflict(f"reference model {row.id} is {row.state}; its model file is handed out once approved")
+        return _stored_document(row)
+
+
+def frozen_model(reference_model_id: int) -> tuple[PCAModel, dict[str, Any]]:
+    """The approved reference model as a PCAModel rebuilt from its frozen file, and its dict.
+
+    This is the model new batches are scored with, so the server and an
+    offline ``latentdesk apply`` of the downloaded file give the same numbers.
+    ReferenceModelNotFound; ReviewRefused (409) unless the model is approved.
+    """
+    known = _known(reference_model_id)
+    with session_scope() as session:
+        row = store.get_reference_model(session, known, with_document=True) if known else None
+        if row is None:
+            raise ReferenceModelNotFound(reference_model_id)
+        if row.state != "approved":
+            raise conflict(
+                f"reference model {row.id} ({row.name} v{row.version}) is {row.state}; "
+                "new batches are checked only against an approved reference model"
+            )
+        document = _stored_document(row)
+        info = _dict_in(session, row.id)
+    return model_from_dict(document), info
+
+
+def download_name(info: Mapping[str, Any]) -> str:
+    """A file name for the model file: ``reference-model-<name>-v<version>.json`` (ASCII only)."""
+    slug = re.sub(r"[^A-Za-z0-9]+", "-", info["name"]).strip("-").lower()[:60] or "model"
+    return f"reference-model-{slug}-v{info['version']}.json"
+
+
+# --- writing ------------------------------------------------------------------------------
+
+
+def propose(model_id, name, note="", confidence=DEFAULT_CONFIDENCE, *, user) -> dict[str, Any]:
+    """Propose fitted model ``model_id`` as version k of reference model ``name``; logged.
+
+    Parameters
+    ----------
+    model_id : int
+        A recorded model (``models`` table), e.g. from ``POST /api/v1/datasets/<id>/models``.
+    name, note : str
+        ``name`` is required (1-200 characters); the next free version of it is taken.
+    confidence : (warning, action)
+        Confidence levels of the warning and action limits, 0 < warning < action < 1.
+    user
+        Has ``id``, ``name``, ``display_name``, ``role`` (analyst, reviewer or admin).
+
+    Returns the reference model dict (state ``proposed``).  Raises ReviewRefused
+    (403) for a viewer, InputError naming the field, ModelNotFound (404).
+    """
+    check_can_propose(user.role, "reference models")
+    name = check_name(name)
+    text = clean_text(note, field="note", limit=MAX_NOTE_CHARS, required=False)
+    warning, action = check_confidence_pair(confidence)
+    model_id = check_id(model_id, "model_id")
+    model, info = modelling.model_by_id(model_id)
+    if info["id"] != model_id:
+        raise conflict(
+            f"model {model_id} was fitted by another analysis version; fit it again and propose the new model"
+        )
+    dataset = ingest.dataset_info(info["dataset_id"])
+    units = dict(ingest.load_table(info["dataset_id"]).units)
+
+    def work(session):
+        version = store.next_version(session, name)
+        document, variables, limits, training = _frozen_content(
+            model, info, dataset, units, name=name, version=version, note=text, warning=warning, action=action,
+            proposer=user.display_name,
+        )
+        digest = document_sha256(document)
+        row = store.insert_reference_model(
+            session,
+            name=name,
+            version=version,
+            note=text,
+            state="proposed",
+            dataset_id=dataset["id"],
+            model_id=model_id,
+            fingerprint=info["fingerprint"],
+            training_sha256=dataset["sha256"],
+            warning_confidence=warning,
+            action_confidence=action,
+            variables=variables,
+            limits=limits,
+            training=training,
+            document=document,
+            document_sha256=digest,
+            proposed_by=user.id,
+            created_at=audit.now_utc(),
+        )
+        audit.append(
+            session,
+            actor_id=user.id,
+            actor_name=user.display_name,
+            action="reference_model_proposed",
+            dataset_id=dataset["id"],
+            payload={
+                "reference_model_id": row.id,
+                "account": user.name,
+                "name": name,
+                "version": version,
+                "note": text,
+                "model_id": model_id,
+                "fingerprint": info["fingerprint"],
+                "training_sha256": dataset["sha256"],
+                "document_sha256": digest,
+                "confidence": {"warning": warning, "action": action},
+                "variables": variables,
+                "excluded": training["excluded"],
+            },
+        )
+        return _dict_in(session, row.id)
+
+    return review.run_write(work)
+
+
+def _check_signer(user, proposed_by) -> None:
+    """Reviewer or admin, never the proposer (the state is checked separately)."""
+    check_can_sign(signer_id=user.id, role=user.role, proposed_by=proposed_by, state="proposed")
+
+
+def _check_step(session, row, verb: str) -> None:
+    """The state allows this signature; approving never goes back behind a later approved version."""
+    if verb in ("approve", "reject") and row.state != "proposed":
+        raise conflict(f"reference model {row.id} is already {row.state}; its decision was signed before")
+    if verb == "retire" and row.state != "approved":
+        raise conflict(f"reference model {row.id} is {row.state}; only an approved reference model can be retired")
+    if verb == "approve":
+        current = store.approved_of_name(session, row.name)
+        if current is not None and current.version > row.version:
+            raise conflict(
+                f"version {current.version} of {row.name!r} is approved already; an earlier version "
+                f"(v{row.version}) cannot supersede it: reject this proposal instead"
+            )
+
+
+def _sign(reference_model_id, user, verb: str, password, comment) -> dict[str, Any]:
+    step, meaning = SIGNING[verb]
+    note = clean_text(comment, field="comment", limit=MAX_COMMENT_CHARS, required=False)
+    known = _known(reference_model_id)
+    with session_scope() as session:
+        row = store.get_reference_model(session, known) if known else None
+        if row is None:  # the role is checked first, so outsiders cannot probe ids
+            _check_signer(user, None)
+            raise ReferenceModelNotFound(reference_model_id)
+        _check_signer(user, row.proposed_by)
+        _check_step(session, row, verb)
+        dataset_id = row.dataset_id
+
+    review.check_signing_password(
+        user, password, dataset_id=dataset_id, payload={"reference_model_id": known, "attempted": meaning}
+    )
+
+    def work(session):
+        row = store.get_reference_model(session, known, with_document=verb == "approve")
+        _check_signer(user, row.proposed_by)
+        _check_step(session, row, verb)
+        if verb == "approve":
+            model_from_dict(_stored_document(row))  # the file signed is intact and loads
+        signed_at = audit.now_utc()
+        store.insert_signature(
+            session, reference_model_id=known, step=step, signer_id=user.id, printed_name=user.display_name,
+            meaning=meaning, comment=note, signed_at=signed_at,
+        )
+        previous = store.approved_of_name(session, row.name) if verb == "approve" else None
+        if previous is not None and not store.retire(session, previous.id, signed_at, superseded_by=known):
+            raise conflict(f"version {previous.version} of {row.name!r} changed a moment ago; look again")
+        moved = store.retire(session, known, signed_at) if verb == "retire" else store.decide(
+            session, known, meaning, signed_at
+        )
+        if not moved:
+            raise conflict(f"reference model {known} was signed by someone else a moment ago")
+        audit.append(
+            session,
+            actor_id=user.id,
+            actor_name=user.display_name,
+            action=f"reference_model_{meaning}",
+            dataset_id=row.dataset_id,
+            payload={
+                "reference_model_id": known,
+                "account": user.name,
+                "printed_name": user.display_name,
+                "meaning": meaning,
+                "signed_at": audit.utc_iso(signed_at),
+                "comment": note,
+                "name": row.name,
+                "version": row.version,
+                "fingerprint": row.fingerprint,
+                "document_sha256": row.document_sha256,
+                "supersedes": previous.id if previous is not None else None,
+            },
+        )
+        if previous is not None:
+            audit.append(
+                session,
+                actor_id=user.id,
+                actor_name=user.display_name,
+                action="reference_model_superseded",
+                dataset_id=previous.dataset_id,
+                payload={
+                    "reference_model_id": previous.id,
+                    "account": user.name,
+                    "name": previous.name,
+                    "version": previous.version,
+                    "superseded_by": known,
+                    "superseded_by_version": row.version,
+                    "at": audit.utc_iso(signed_at),
+                },
+            )
+        return _dict_in(session, known)
+
+    return review.run_write(work)
+
+
+def approve(reference_model_id, password, comment="", *, user) -> dict[str, Any]:
+    """Sign the proposed reference model as approved; supersedes the approved earlier version."""
+    return _sign(reference_model_id, user, "approve", password, comment)
+
+
+def reject(reference_model_id, password, comment="", *, user) -> dict[str, Any]:
+    """Sign the proposed reference model as rejected (final)."""
+    return _sign(reference_model_id, user, "reject", password, comment)
+
+
+def retire(reference_model_id, password, comment="", *, user) -> dict[str, Any]:
+    """Sign the approved reference model as retired: readable, no longer used for new batches."""
+    return _sign(reference_model_id, user, "retire", password, comment)
