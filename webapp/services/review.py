@@ -440,6 +440,8 @@ ACTION_WORDS = {
     "reference_model_rejected": "rejected a reference model (signed)",
     "reference_model_retired": "retired a reference model (signed)",
     "reference_model_superseded": "a reference model was superseded by a later version",
+    "batch_checked": "checked a batch of new samples against a reference model",
+    "batch_outcome_signed": "signed the outcome of flagged batch samples",
 }
 
 

@@ -34,6 +34,8 @@ PROPOSAL_STATES = ("proposed", "approved", "rejected", "withdrawn")
 SIGN_OFF_MEANINGS = ("approved", "rejected")
 REFERENCE_MODEL_STATES = ("proposed", "approved", "rejected", "retired")
 REFERENCE_MODEL_MEANINGS = ("approved", "rejected", "retired")
+BATCH_STATES = ("open", "reviewed")
+BATCH_OUTCOMES = ("assignable_cause", "no_cause_accepted", "rejected")
 
 # Deterministic constraint names so migrations can refer to them on every engine.
 NAMING = {
@@ -279,4 +281,77 @@ class ReferenceModelSignature(Base):
     printed_name: Mapped[str] = mapped_column(String(200))
     meaning: Mapped[str] = mapped_column(String(16))
     comment: Mapped[str] = mapped_column(Text, default="")
+    signed_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class Batch(Base):
+    """A file of new samples checked against an approved reference model.
+
+    Written once; only ``state`` (open -> reviewed) and ``reviewed_at`` ever
+    change (migration 0004_batches).
+    """
+
+    __tablename__ = "batches"
+    __table_args__ = (CheckConstraint(_in("state", BATCH_STATES), name="state"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    reference_model_id: Mapped[int] = mapped_column(ForeignKey("reference_models.id"), index=True)
+    file_name: Mapped[str] = mapped_column(String(500))
+    file_sha256: Mapped[str] = mapped_column(String(64), index=True)
+    intake_options: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    uploaded_by: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    n_samples: Mapped[int] = mapped_column(Integer)
+    n_flagged: Mapped[int] = mapped_column(Integer)
+    state: Mapped[str] = mapped_column(String(16), default="open")
+    warnings: Mapped[list[Any]] = mapped_column(default=list)
+    retest: Mapped[bool] = mapped_column(Boolean, default=False)
+    reviewed_at: Mapped[datetime | None] = mapped_column(nullable=True)
+
+
+class BatchSample(Base):
+    """One checked sample: its place in the reference model's run order and its statistics.
+
+    Append-only (migration 0004_batches). ``run_index`` continues across every
+    batch of the reference model (1, 2, ...); ``violations`` holds the run-rule
+    violations that fired at this sample.
+    """
+
+    __tablename__ = "batch_samples"
+    __table_args__ = (
+        UniqueConstraint("reference_model_id", "run_index", name="uq_batch_samples_run_index"),
+        Index("ix_batch_samples_reference_model_sample", "reference_model_id", "sample_id"),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    batch_id: Mapped[int] = mapped_column(ForeignKey("batches.id"), index=True)
+    reference_model_id: Mapped[int] = mapped_column(ForeignKey("reference_models.id"))
+    run_index: Mapped[int] = mapped_column(Integer)
+    sample_id: Mapped[str] = mapped_column(String(500))
+    measured: Mapped[list[Any]] = mapped_column(default=list)  # raw values, model variable order; None = missing
+    scores: Mapped[list[Any]] = mapped_column(default=list)
+    t2: Mapped[float] = mapped_column(Float)
+    spe: Mapped[float] = mapped_column(Float)
+    incomplete: Mapped[bool] = mapped_column(Boolean, default=False)
+    t2_warning: Mapped[bool] = mapped_column(Boolean)
+    t2_action: Mapped[bool] = mapped_column(Boolean)
+    spe_warning: Mapped[bool] = mapped_column(Boolean)
+    spe_action: Mapped[bool] = mapped_column(Boolean)
+    flagged: Mapped[bool] = mapped_column(Boolean)
+    violations: Mapped[list[Any]] = mapped_column(default=list)
+
+
+class BatchOutcome(Base):
+    """A signed outcome for a flagged batch sample; append-only, a correction is a new row."""
+
+    __tablename__ = "batch_outcomes"
+    __table_args__ = (CheckConstraint(_in("outcome", BATCH_OUTCOMES), name="outcome"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    batch_sample_id: Mapped[int] = mapped_column(ForeignKey("batch_samples.id"), index=True)
+    outcome: Mapped[str] = mapped_column(String(32))
+    reason: Mapped[str] = mapped_column(Text)
+    cause: Mapped[str | None] = mapped_column(Text, nullable=True)
+    signer_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    printed_name: Mapped[str] = mapped_column(String(200))
     signed_at: Mapped[datetime] = mapped_column(default=utcnow)
