@@ -135,6 +135,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_review_commands(commands)  # log verify
 
+    from webapp.cli.batches import add_batch_commands
+
+    add_batch_commands(commands)  # batches check (posts to a running server)
+
     return parser
 
 
