@@ -4,6 +4,6 @@
 error shapes every blueprint shares live in ``webapp.api.datasets`` (``json_error``).
 """
 
-from webapp.api import batches, datasets, monitoring, review
+from webapp.api import batch_reports, batches, datasets, monitoring, review
 
-BLUEPRINTS = (datasets.bp, review.bp, monitoring.bp, batches.bp)
+BLUEPRINTS = (datasets.bp, review.bp, monitoring.bp, batches.bp, batch_reports.bp)
