@@ -19,10 +19,13 @@ from analysis.intake import read_table
 from analysis.pca import PCAModel
 from webapp.services import demo_data
 from webapp.services.demo_data import (
+    LAB_LATER_FILENAMES,
     LAB_METADATA,
     LAB_VARIABLES,
     SURVEY_METADATA,
     SURVEY_VARIABLES,
+    lab_later_batches,
+    lab_later_findings,
     lab_scenario,
     planted_anomalies,
     survey_scenario,
@@ -274,3 +277,122 @@ def test_survey_reversed_block_stands_out():
     assert np.median(fit.spe_[rows]) > 3 * np.median(fit.spe_[others])
     # Few unplanted respondents cross the limit: the flags point at the plant.
     assert int((fit.spe_[others] > fit.spe_limit()).sum()) <= 0.05 * len(others)
+
+
+# ------------------------- lab: the reference model and three later weeks
+# ``latentdesk demo`` prepares them through the real services (webapp.cli.serve.prepare_demo);
+# the checks read them back through the services. Demo design checks again, except where a
+# published formula is named.
+
+
+@pytest.fixture(scope="module")
+def demo_home(tmp_path_factory):
+    """A demo home prepared twice, as a restarted ``latentdesk demo`` does: (app, printed users)."""
+    from webapp import create_app
+    from webapp.cli import serve
+
+    home = str(tmp_path_factory.mktemp("demo") / "home")
+    serve.prepare_demo({"HOME": home})
+    users = serve.prepare_demo({"HOME": home})
+    app = create_app({"TESTING": True, "HOME": home, "DEMO": True})
+    yield app, users
+    app.extensions["latentdesk.engine"].dispose()
+
+
+@pytest.fixture(scope="module")
+def demo_monitoring(demo_home):
+    """(reference model, {file name: batch}) of the prepared demo."""
+    from webapp.cli.serve import DEMO_REFERENCE_MODEL
+    from webapp.services import batches
+    from webapp.services import reference_models as reference
+
+    app, _ = demo_home
+    with app.app_context():
+        models = reference.list_reference_models(name=DEMO_REFERENCE_MODEL)
+        assert len(models) == 1  # the second preparation added nothing
+        listed = batches.chart(models[0]["id"])["batches"]
+        return models[0], {b["file_name"]: batches.batch_info(b["id"]) for b in listed}
+
+
+def test_later_weeks_are_seeded_and_continue_the_run():
+    assert lab_later_batches() == lab_later_batches()
+    assert lab_later_batches(5) != lab_later_batches(6)
+    training = set(_read(lab_scenario()[1])["Batch"])
+    seen = []
+    for filename, raw in lab_later_batches():
+        frame = _read(raw)
+        assert list(frame.columns) == ["Batch", *LAB_METADATA, *LAB_VARIABLES]
+        seen.extend(frame["Batch"])
+    assert [f for f, _ in lab_later_batches()] == list(LAB_LATER_FILENAMES)
+    assert seen == [f"B26-{k:03d}" for k in range(151, 151 + len(seen))] and not set(seen) & training
+    for seed in (1, 2):  # the planted ids do not move with the seed
+        ids = set().union(*(set(_read(raw)["Batch"]) for _, raw in lab_later_batches(seed)))
+        assert all(set(f["samples"]) <= ids for f in lab_later_findings().values())
+
+
+def test_demo_ships_an_approved_reference_model_signed_by_two_people(demo_home, demo_monitoring):
+    from webapp.services import audit
+    from webapp.store import session_scope
+
+    app, users = demo_home
+    model, weeks = demo_monitoring
+    assert model["state"] == "approved" and model["proposed_by_name"] == "Ana Demo"
+    [signature] = model["signatures"]
+    assert signature["meaning"] == "approved" and signature["printed_name"] == "Rowan Demo"
+    assert model["n_samples"] == 150 and model["n_components"] == 3
+    # New-observation T2 limit, NIST/SEMATECH e-Handbook 6.5.4.3 (Tracy, Young & Mason 1992).
+    n, a = 150, 3
+    for level in ("warning", "action"):
+        conf = model["confidence"][level]
+        expected = a * (n + 1) * (n - 1) / (n * (n - a)) * stats.f.ppf(conf, a, n - a)
+        assert model["limits"][level]["t2_new"] == pytest.approx(expected, rel=1e-9)
+    assert list(weeks) == list(LAB_LATER_FILENAMES)
+    assert all(b["uploaded_by_name"] == "Ana Demo" for b in weeks.values())
+    with app.app_context(), session_scope() as s:
+        assert audit.verify_chain(s)[0]
+    assert {name for name, _, _ in users} >= {"ana", "rowan"}
+
+
+def _beyond_action(sample) -> bool:
+    return sample["t2"] > sample["t2_limit"] or sample["spe"] > sample["spe_limit"]
+
+
+def test_week_one_is_in_control(demo_monitoring):
+    _, weeks = demo_monitoring
+    week = weeks[LAB_LATER_FILENAMES[0]]
+    assert week["n_samples"] == 12 and week["n_flagged"] == 0
+    assert not any(_beyond_action(s) or s["rules"] for s in week["samples"])
+    assert week["state"] == "reviewed"  # nothing flagged, nothing to sign: reviewed as stored
+
+
+def test_week_two_flags_the_planted_assay_fault(demo_home, demo_monitoring):
+    from webapp.services import batches
+
+    app, _ = demo_home
+    _, weeks = demo_monitoring
+    week = weeks[LAB_LATER_FILENAMES[1]]
+    [planted] = lab_later_findings()[LAB_LATER_FILENAMES[1]]["samples"]
+    sample = next(s for s in week["samples"] if s["sample"] == planted)
+    assert sample["flagged"] and sample["spe"] > sample["spe_limit"] and sample["spe_exceeds"]
+    with app.app_context():
+        found = batches.sample_contributions(week["id"], planted)
+    # Alcala & Qin (2009): a large single-variable fault leads the SPE reconstruction-based contributions.
+    leader = max(found["reconstruction"]["spe"], key=found["reconstruction"]["spe"].get)
+    assert leader == "Assay (%)" and "Assay (%)" in found["explanation"]["sentence"]
+    # Any other flag of the week is a score-chart alarm of an ordinary batch: T2 and SPE within the limits.
+    others = [s for s in week["samples"] if s["flagged"] and s["sample"] != planted]
+    assert all(not _beyond_action(s) and s["rules"] for s in others)
+    assert [s["sample"] for s in week["samples"] if _beyond_action(s)] == [planted]
+
+
+def test_week_three_drift_is_caught_by_a_run_rule_before_any_point_crosses(demo_monitoring):
+    _, weeks = demo_monitoring
+    week = weeks[LAB_LATER_FILENAMES[2]]
+    assert not any(_beyond_action(s) for s in week["samples"])
+    assert not any(s["t2_exceeds"] or s["spe_exceeds"] for s in week["samples"])
+    fired = [r for s in week["samples"] for r in s["rules"]]
+    assert fired and week["n_flagged"] > 0 and week["state"] == "open"
+    assert all(r["rule"] != "beyond-action" for r in fired)
+    # The drift is along the degradation factor: the flagged samples' latest rules run on one score chart
+    # above its centre line (Western Electric 1956, rule 4: 8 in a row on one side).
+    assert {(r["rule"], r["side"]) for r in fired} == {("8-one-side", "above")}

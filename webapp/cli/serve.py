@@ -26,6 +26,12 @@ DEMO_USERS = (
     ("admin", "admin", "Admin Demo"),
 )
 
+DEMO_REFERENCE_MODEL = "Granulate release assays"
+DEMO_REFERENCE_NOTE = (
+    "Demo: all 150 training batches of the lab scenario, autoscaled, three components "
+    "(granulation, degradation, suspension rheology)."
+)
+
 
 def _gunicorn(overrides: Mapping[str, Any], host: str, port: int, workers: int, threads: int):
     from gunicorn.app.base import BaseApplication
@@ -75,8 +81,9 @@ def serve(host: str, port: int, workers: int, threads: int = 4, overrides=None) 
 
 
 def prepare_demo(overrides: Mapping[str, Any]) -> list[tuple[str, str, str]]:
-    """Home folder, secret key, schema, demo users (fresh random passwords) and the
-    two invented demo datasets. Returns (name, role, password) per user."""
+    """Home folder, secret key, schema, demo users (fresh random passwords), the two
+    invented demo datasets and the lab scenario's approved reference model with three
+    later weeks checked against it. Returns (name, role, password) per user."""
     from webapp import auth, create_app
     from webapp.services.demo_data import lab_scenario, survey_scenario
     from webapp.services.ingest import ingest_upload
@@ -96,10 +103,38 @@ def prepare_demo(overrides: Mapping[str, Any]) -> list[tuple[str, str, str]]:
                     accounts.set_active(s, user, True)
                 handed_out.append((name, role, password))
             owner = accounts.get_user_by_name(s, "ana").id
-        for scenario in (lab_scenario, survey_scenario):
-            filename, raw = scenario()
-            ingest_upload(raw, filename, owner)
+        made = [ingest_upload(raw, filename, owner) for filename, raw in (lab_scenario(), survey_scenario())]
+        passwords = {name: password for name, _, password in handed_out}
+        _demo_monitoring(made[0]["id"], passwords["rowan"])
     return handed_out
+
+
+def _demo_user(name: str):
+    from webapp.auth import CurrentUser
+    from webapp.store import accounts, session_scope
+
+    with session_scope() as s:
+        row = accounts.get_user_by_name(s, name)
+        return CurrentUser(id=row.id, name=row.name, display_name=row.display_name, role=row.role)
+
+
+def _demo_monitoring(lab_dataset_id: int, reviewer_password: str) -> None:
+    """The lab scenario's reference model, proposed by ``ana`` and approved by ``rowan`` through
+    the services (the reviewer re-enters the password, as in the browser), and its three later weeks checked
+    against it (``demo_data.lab_later_batches``). Skipped when the demo home has it already."""
+    from webapp.services import batches, modelling
+    from webapp.services import reference_models as reference
+    from webapp.services.demo_data import lab_later_batches
+
+    if reference.list_reference_models(states=["approved"], name=DEMO_REFERENCE_MODEL):
+        return
+    analyst, reviewer = _demo_user("ana"), _demo_user("rowan")
+    _, fitted = modelling.get_model(lab_dataset_id, {"components": 3}, user_id=analyst.id)
+    proposed = reference.propose(fitted["id"], DEMO_REFERENCE_MODEL, DEMO_REFERENCE_NOTE, user=analyst)
+    reference.approve(proposed["id"], reviewer_password, "Three components, limits at 95 % and 99 %; "
+                      "fit reviewed on the score and loading plots.", user=reviewer)
+    for filename, raw in lab_later_batches():
+        batches.check_batch(proposed["id"], raw, filename, analyst)
 
 
 def _prepare_demo_child(overrides: dict, queue) -> None:

@@ -226,10 +226,14 @@ def check_batch(reference_model_id, raw: bytes, filename: str, user, *, id_colum
         violations = _new_violations(scored, earlier, THIS_BATCH, first_run)
         flags = [bool(scored.t2_exceeds_action[i] or scored.spe_exceeds_action[i]) or i in violations
                  for i in range(len(sample_ids))]
+        checked_at = audit.now_utc()
+        # A batch without flags has nothing to review: it is reviewed as it is stored.
+        nothing_flagged = not any(flags)
         batch = store.insert_batch(
             session, reference_model_id=info["id"], file_name=name, file_sha256=sha256, intake_options=options,
-            uploaded_by=user.id, created_at=audit.now_utc(), n_samples=len(sample_ids), n_flagged=sum(flags),
-            state="open", warnings=list(warnings), retest=retest,
+            uploaded_by=user.id, created_at=checked_at, n_samples=len(sample_ids), n_flagged=sum(flags),
+            state="reviewed" if nothing_flagged else "open", reviewed_at=checked_at if nothing_flagged else None,
+            warnings=list(warnings), retest=retest,
         )
         for fired in violations.values():
             for violation in fired:

@@ -1,4 +1,4 @@
-"""Invented demo datasets: a lab scenario and a survey scenario.
+"""Invented demo datasets: a lab scenario (with three later weeks) and a survey scenario.
 
 Both are generated here from a seeded latent-variable model, so the demo
 has real correlation structure for PCA and a known set of planted problems
@@ -169,6 +169,110 @@ def lab_scenario(seed: int = LAB_SEED) -> tuple[str, bytes]:
     """
     return LAB_FILENAME, _to_csv(_lab_frame(int(seed)))
 
+
+
+# ------------------------------------------------- lab: later batches
+# Three invented weeks of production after the 150 training batches, drawn
+# from the same latent model (means, SDs, loadings, Line B shift) with a
+# random stream of their own per week, so they check against a reference
+# model fitted on the lab scenario.
+
+LAB_LATER_FILENAMES = ("demo_lab_week_1.csv", "demo_lab_week_2.csv", "demo_lab_week_3.csv")
+_LATER_SIZES = (12, 12, 16)
+_LATER_ASSAY_FAULT_POSITION = 6  # 7th batch of week 2: assay reads low alone
+_LATER_ASSAY_FAULT = 4.5  # percentage points, as the training data's assay outlier
+# Week 3: the degradation factor creeps up batch by batch (latent SD units),
+# a slow drift along the model's own structure that stays inside the limits.
+_LATER_DRIFT_START, _LATER_DRIFT_END = 0.4, 2.2
+
+
+def _later_design(week: int) -> tuple[list[str], int]:
+    """(line per batch, index of its first batch in the continuing run) of week 1, 2 or 3."""
+    rng = np.random.default_rng(_SCHEDULE_SEED + 10 * week)
+    lines = list(_LINE_WEIGHTS)
+    weights = np.array(list(_LINE_WEIGHTS.values()))
+    schedule = [str(s) for s in rng.choice(lines, size=_LATER_SIZES[week - 1], p=weights / weights.sum())]
+    return schedule, _N_BATCHES + sum(_LATER_SIZES[: week - 1])
+
+
+def _later_frame(seed: int, week: int) -> pd.DataFrame:
+    schedule, first = _later_design(week)
+    n, p = len(schedule), len(_ASSAYS)
+    rng = np.random.default_rng([seed, week])
+    means = np.array([a[1] for a in _ASSAYS])
+    sds = np.array([a[2] for a in _ASSAYS])
+    loadings = np.array([a[4] for a in _ASSAYS])
+    unique = np.sqrt(1.0 - (loadings**2).sum(axis=1))
+    factors = rng.standard_normal((n, 3))
+    if week == 3:
+        factors[:, 1] = np.linspace(_LATER_DRIFT_START, _LATER_DRIFT_END, n) + 0.25 * rng.standard_normal(n)
+    values = means + sds * (factors @ loadings.T + unique * rng.standard_normal((n, p)))
+    col = {name: j for j, name in enumerate(LAB_VARIABLES)}
+    for i, line in enumerate(schedule):
+        if line == "Line B":
+            for name, shift in _LINE_B_SHIFT.items():
+                values[i, col[name]] += shift
+    if week == 2:
+        values[_LATER_ASSAY_FAULT_POSITION, col["Assay (%)"]] -= _LATER_ASSAY_FAULT
+    cells = [[f"{v:.{a[3]}f}" for v, a in zip(row, _ASSAYS)] for row in values]
+    for i in range(n):
+        if values[i, col["Impurity B (%)"]] < _LOD_IMPURITY_B:
+            cells[i][col["Impurity B (%)"]] = f"<{_LOD_IMPURITY_B:g}"
+    dates = pd.bdate_range(_FIRST_DAY, periods=_N_BATCHES + sum(_LATER_SIZES))[first:first + n]
+    frame = pd.DataFrame(cells, columns=LAB_VARIABLES)
+    frame.insert(0, "Batch", [_batch_id(first + i) for i in range(n)])
+    frame.insert(1, "Site", [_LINE_SITE[s] for s in schedule])
+    frame.insert(2, "Line", schedule)
+    frame.insert(3, "Manufactured", [d.strftime("%Y-%m-%d") for d in dates])
+    return frame
+
+
+def lab_later_batches(seed: int = LAB_SEED) -> list[tuple[str, bytes]]:
+    """Three invented later weeks of the lab scenario, to check against its reference model.
+
+    Same columns, units and intake quirks ("<0.05") as ``lab_scenario``; batch
+    ids continue the training run (B26-151 on). Week 1 is in control, week 2
+    has one batch with an assay fault, week 3 a slow upward drift of the
+    degradation products (see ``lab_later_findings``).
+
+    Returns
+    -------
+    [(filename, csv_bytes)] for weeks 1, 2 and 3, UTF-8 CSV.
+    """
+    return [(name, _to_csv(_later_frame(int(seed), week)))
+            for week, name in enumerate(LAB_LATER_FILENAMES, start=1)]
+
+
+def lab_later_findings() -> dict:
+    """What a reviewer should find in each later week, keyed by file name.
+
+    Each value holds ``samples`` (the planted batch ids, empty for week 1),
+    ``variables``, ``cause`` and ``finding``. The ids do not depend on the seed.
+    """
+    _, fault_first = _later_design(2)
+    _, drift_first = _later_design(3)
+    return {
+        LAB_LATER_FILENAMES[0]: {
+            "samples": [], "variables": [],
+            "cause": "a normal week of production",
+            "finding": "no T² or SPE value beyond the action limit and no run rule: nothing to disposition",
+        },
+        LAB_LATER_FILENAMES[1]: {
+            "samples": [_batch_id(fault_first + _LATER_ASSAY_FAULT_POSITION)],
+            "variables": ["Assay (%)"],
+            "cause": f"assay fault: the result reads {_LATER_ASSAY_FAULT:g} % low while impurities are normal",
+            "finding": "SPE beyond the action limit; Assay (%) leads the reconstruction-based SPE "
+                       "contributions",
+        },
+        LAB_LATER_FILENAMES[2]: {
+            "samples": [_batch_id(drift_first + i) for i in range(_LATER_SIZES[2])],
+            "variables": ["Assay (%)", "Impurity A (%)", "Impurity B (%)", "Total impurities (%)"],
+            "cause": "degradation creeps up batch by batch (impurities rise, assay falls) "
+                     "along the direction the model already knows",
+            "finding": "no T² or SPE value crosses the action limit, yet run rules fire on the "
+                       "continuing charts before any single point does",
+        },
+    }
 
 # ------------------------------------------------------------- survey
 
