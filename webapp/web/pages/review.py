@@ -18,7 +18,7 @@ from flask_login import current_user
 from analysis.errors import InputError
 from webapp import auth
 from webapp import url_state
-from webapp.web.ui import ids
+from webapp.web.ui import ids, messages
 
 dash.register_page(__name__, path="/review", name="Review", title="Review · LatentDesk", nav=True, order=20)
 
@@ -268,7 +268,7 @@ def sign_or_withdraw(which: str, proposal_id: int, comment: str | None, password
         result = review.sign(proposal_id, current_user, decision=decision, password=password,
                              comment=comment or "")
     except InputError as exc:  # ReviewRefused is an InputError too
-        return html.P(str(exc), className="ld-alert"), None
+        return messages.problem(exc), None
     sig = result["sign_off"]
     return (
         html.P(f"Signed as {sig['printed_name']} at {when(sig['signed_at'])}: {sig['meaning']}.",

@@ -17,7 +17,7 @@ from webapp import auth
 from webapp.web.pages.review import CAUTION, comparison_block
 from webapp.services.review_rules import REASON_CATEGORIES
 from webapp import url_state
-from webapp.web.ui import ids
+from webapp.web.ui import ids, messages
 
 dash.register_page(
     __name__, path="/review/propose", name="Propose", title="Propose · LatentDesk", min_role="analyst"
@@ -50,7 +50,7 @@ def layout(dataset=None, action="exclude", sample=None, **query) -> html.Div:
         preview = comparison_block(comparison)
         problem = None
     except InputError as exc:
-        preview, problem = None, str(exc)
+        preview, problem = None, messages.as_sentence(str(exc))
     verb = "Exclude" if action == "exclude" else "Reinstate"
     return html.Div(
         [
@@ -112,7 +112,7 @@ def submit(context: dict, category: str | None, reason: str | None):
         )
     except InputError as exc:
         answer = [None, None, None, False]
-        answer[FIELD_MESSAGES.get(exc.field, 0)] = html.P(str(exc), className="ld-alert")
+        answer[FIELD_MESSAGES.get(exc.field, 0)] = messages.problem(exc)
         return tuple(answer)
     return (
         html.P(

@@ -22,7 +22,7 @@ from analysis.errors import InputError
 from webapp import auth
 from webapp.web.pages.review import when
 from webapp import url_state
-from webapp.web.ui import ids
+from webapp.web.ui import ids, messages
 
 dash.register_page(__name__, path="/views", name="Saved views", title="Saved views · LatentDesk", nav=True,
                    order=30)
@@ -126,7 +126,7 @@ def save(context: dict, title: str | None, note: str | None, url_root: str):
         view = views.save_view(current_user, int(context["dataset_id"]), query=context["query"], title=title,
                                note=note or "", selection=context.get("selection") or [])
     except InputError as exc:
-        return html.P(str(exc), className="ld-alert"), no_update
+        return messages.problem(exc), no_update
     address = url_state.absolute_url(url_root, view["url"])
     message = html.Div(
         [

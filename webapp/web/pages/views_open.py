@@ -19,7 +19,7 @@ from flask_login import current_user
 from analysis.errors import InputError
 from webapp import url_state
 from webapp.web.pages.review import when
-from webapp.web.ui import ids
+from webapp.web.ui import ids, messages
 
 dash.register_page(__name__, path_template="/views/<view_id>", name="Saved view", title="Saved view · LatentDesk")
 
@@ -80,7 +80,7 @@ def layout(view_id=None, **_query) -> html.Div:
     except views.ViewNotFound:
         return html.Div([html.H1("Saved view"), html.P("There is no saved view at this link.", className="ld-alert")])
     except InputError as exc:
-        return html.Div([html.H1("Saved view"), html.P(str(exc), className="ld-alert")])
+        return html.Div([html.H1("Saved view"), messages.problem(exc)])
     return opened_view(opened)
 
 
