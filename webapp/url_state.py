@@ -275,7 +275,8 @@ def propose_url(dataset_id, samples=(), action: str = "exclude", state: ViewStat
     fitted with the model settings of ``state``."""
     pairs = [("dataset", str(dataset_id)), ("action", action)] + [("sample", str(s)) for s in samples]
     query = urlencode(pairs, quote_via=quote)
-    settings = to_query(state) if state is not None else ""
+    # The page's explained sample is not carried: its key, ``sample``, lists the samples proposed here.
+    settings = to_query(replace(state, sample=None)) if state is not None else ""
     return f"/review/propose?{query}&{settings}" if settings else f"/review/propose?{query}"
 
 
@@ -328,3 +329,34 @@ def save_view_url(dataset_id, state: ViewState | None = None, selection=()) -> s
 def proposal_url(proposal_id) -> str:
     """One proposal in the reviewer queue (details, comparison, signing form)."""
     return f"/review?{urlencode({'proposal': proposal_id})}"
+
+
+# -- monitoring pages (owner: MONITORING) ----------------------------------------
+def monitoring_url(model_id=None) -> str:
+    """The reference models; with ``model_id`` the form proposing that fitted model opens filled in."""
+    return f"/monitoring?{urlencode({'model': model_id})}" if model_id is not None else "/monitoring"
+
+
+def reference_model_path_template() -> str:
+    """Path template of one reference model's page (for dash.register_page)."""
+    return "/monitoring/<reference_model_id>"
+
+
+def reference_model_url(reference_model_id) -> str:
+    """One reference model: frozen facts, signatures, batch upload, the continuing chart."""
+    return f"/monitoring/{_path_part(reference_model_id)}"
+
+
+def batch_path_template() -> str:
+    """Path template of one batch's page (for dash.register_page)."""
+    return "/monitoring/batches/<batch_id>"
+
+
+def batch_url(batch_id) -> str:
+    """One checked batch: its samples, contributions of a flagged sample, the outcome form."""
+    return f"/monitoring/batches/{_path_part(batch_id)}"
+
+
+def batch_report_url(batch_id, pdf: bool = False) -> str:
+    """The printable report of one batch (HTML, or PDF with ``pdf``)."""
+    return f"/-/monitoring/batches/{_path_part(batch_id)}/report" + (".pdf" if pdf else "")

@@ -152,3 +152,42 @@ def plot_numbers(graph_id: str) -> str:
 def plot_numbers_version(graph_id: str) -> str:
     """dcc.Store bumped when an open plot's figure changes, so its table is read again."""
     return f"{graph_id}-numbers-version"
+
+# -- monitoring pages (webapp/web/pages/monitoring*.py; owner MONITORING) -------------------
+MON_REFERENCE_LINK = "mon-reference-link"  # on the dataset page: make the fitted model a reference model
+MON_PROPOSE_MODEL = "mon-propose-model"
+MON_PROPOSE_NAME = "mon-propose-name"
+MON_PROPOSE_NOTE = "mon-propose-note"
+MON_PROPOSE_WARNING = "mon-propose-warning"
+MON_PROPOSE_ACTION = "mon-propose-action"
+MON_PROPOSE_SUBMIT = "mon-propose-submit"
+MON_PROPOSE_MESSAGE = "mon-propose-message"
+MON_LIST = "mon-list"
+MON_CONTEXT = "mon-context"  # dcc.Store: {"reference_model_id"} or {"batch_id"}
+MON_FACTS = "mon-facts"
+MON_SIGN_COMMENT = "mon-sign-comment"
+MON_SIGN_PASSWORD = "mon-sign-password"
+MON_APPROVE = "mon-approve"
+MON_REJECT = "mon-reject"
+MON_RETIRE = "mon-retire"
+MON_SIGN_FORM = "mon-sign-form"  # approve / reject / retire, by state and role
+MON_SIGN_MESSAGE = "mon-sign-message"
+MON_UPLOAD = "mon-upload"  # dcc.Upload of a batch file
+MON_UPLOAD_ID_COLUMN = "mon-upload-id-column"
+MON_UPLOAD_RETEST = "mon-upload-retest"
+MON_UPLOAD_MESSAGE = "mon-upload-message"
+MON_CHART_STATISTIC = "mon-chart-statistic"  # t2, spe or PC<k>
+MON_CHART = "mon-chart"
+MON_VIOLATIONS = "mon-violations"
+MON_BATCHES = "mon-batches"
+MON_SAMPLES = "mon-samples"
+MON_SAMPLE_CHOICE = "mon-sample-choice"
+MON_CONTRIBUTIONS = "mon-contributions"
+MON_OUTCOME_SAMPLES = "mon-outcome-samples"
+MON_OUTCOME = "mon-outcome"
+MON_OUTCOME_REASON = "mon-outcome-reason"
+MON_OUTCOME_CAUSE = "mon-outcome-cause"
+MON_OUTCOME_PASSWORD = "mon-outcome-password"
+MON_OUTCOME_SUBMIT = "mon-outcome-submit"
+MON_OUTCOME_MESSAGE = "mon-outcome-message"
+MON_BATCH_STATE = "mon-batch-state"
