@@ -19,6 +19,25 @@ from webapp.config import load_config
 
 PACKAGE = Path(__file__).resolve().parent
 DASH_KEY = "latentdesk.dash"
+# Dash's page template with the page language set (WCAG 2.2, 3.1.1) and its scripts in a
+# plain div: the page's own footer is its only contentinfo landmark.
+INDEX_STRING = """<!DOCTYPE html>
+<html lang="en">
+    <head>
+        {%metas%}
+        <title>{%title%}</title>
+        {%favicon%}
+        {%css%}
+    </head>
+    <body>
+        {%app_entry%}
+        <div class="ld-scripts">
+            {%config%}
+            {%scripts%}
+            {%renderer%}
+        </div>
+    </body>
+</html>"""
 
 
 def _register_blueprints(server: Flask) -> None:
@@ -65,6 +84,7 @@ def _mount_dash(server: Flask) -> None:
         background_callback_manager=jobs.make_manager(server.config),
         title="LatentDesk",
         update_title=None,
+        index_string=INDEX_STRING,
     )
     app.layout = shell.layout
     shell.guard_page_layouts()

@@ -162,7 +162,8 @@ def serve(app):
 
 def _choose(page, dropdown_id: str, option: str):
     page.locator(f"#{dropdown_id}").click()
-    page.get_by_role("option", name=option, exact=True).click()
+    page.locator(".dash-dropdown-content .dash-options-list-option").filter(
+        has_text=re.compile(rf"^\s*{re.escape(option)}\s*$")).click()
 
 
 def _wait_plot(page, condition_js: str, after: float, timeout: float = 120.0) -> float:

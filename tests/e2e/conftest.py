@@ -2,7 +2,8 @@
 
 - ``demo_server``: the demo prepared exactly as ``latentdesk demo`` does
   (``webapp.cli.serve.prepare_demo``) and served by werkzeug's threaded server;
-  gives ``.url`` and ``.users`` (name -> (role, password)).
+  gives ``.url``, ``.users`` (name -> (role, password)) and ``.app`` (the served
+  Flask app, for tests that prepare records through the services).
 - ``browser``: headless Chromium through the Playwright sync API. A missing
   browser skips locally and fails when ``CI=true``.
 - ``new_page``: a fresh browser context (own cookies) per call.
@@ -50,6 +51,7 @@ class LiveServer:
     url: str
     users: dict[str, tuple[str, str]]
     home: Path
+    app: object = None
 
 
 @pytest.fixture(scope="session")
@@ -66,7 +68,7 @@ def demo_server(tmp_path_factory):
     thread = threading.Thread(target=server.serve_forever, daemon=True)
     thread.start()
     try:
-        yield LiveServer(f"http://127.0.0.1:{port}", users, home)
+        yield LiveServer(f"http://127.0.0.1:{port}", users, home, app)
     finally:
         server.shutdown()
         thread.join(timeout=10)

@@ -39,8 +39,10 @@ def _open_lab(page, server):
 
 def _choose(page, dropdown_id: str, option: str):
     page.locator(f"#{dropdown_id}").click()
-    # Dash 4 dropdowns open their list in a popover outside the component
-    page.get_by_role("option", name=option, exact=True).click()
+    # Dash 4 dropdowns open their list in a popover outside the component; each option is a
+    # labelled radio button (assets/a11y.js gives the list radiogroup semantics)
+    page.locator(".dash-dropdown-content .dash-options-list-option").filter(
+        has_text=re.compile(rf"^\s*{re.escape(option)}\s*$")).click()
     page.keyboard.press("Escape")
 
 

@@ -105,8 +105,10 @@ def test_analyst_proposes_reviewer_signs_log_shows_both(demo_server, new_page):
     expect(table).to_contain_text("approve")
     expect(table).to_contain_text("sign_failed")
     rows = table.locator("tbody tr")
-    expect(rows).to_have_count(3)
-    for i in range(3):
+    # The demo's monitoring entries (reference model, weekly batches) and other browser tests share
+    # the lab log, so only this test's three entries are certain.
+    assert rows.count() >= 3
+    for i in range(rows.count()):
         assert re.match(r"\d{4}-\d\d-\d\d \d\d:\d\d:\d\d", rows.nth(i).locator("td").nth(1).inner_text())
     expect(analyst.locator("#log-verify")).to_contain_text("intact")
     analyst.screenshot(path=str(SCREENSHOTS / "review-log.png"), full_page=True)

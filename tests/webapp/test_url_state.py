@@ -111,3 +111,14 @@ def test_every_field_has_a_url_key():
     from dataclasses import fields
 
     assert {f.name for f in fields(U.ViewState)} == set(U._KEYS)
+
+
+def test_proposal_link_lists_only_the_samples_proposed():
+    """The dataset page's explained sample (``sample=`` in its view state) shares the
+    proposal form's ``sample`` key: it must not join the samples proposed (it did, and
+    the form then refused a sample "listed twice" or proposed one nobody chose).
+    One key, one meaning: common practice."""
+    url = U.propose_url(7, ["B-2"], state=U.ViewState(components=3, sample="B-9"))
+    query = parse_qs(urlsplit(url).query)
+    assert query["sample"] == ["B-2"]
+    assert query["a"] == ["3"]

@@ -24,7 +24,7 @@ from flask_login import current_user
 from analysis.errors import InputError
 from webapp import auth, jobs
 from webapp import url_state
-from webapp.web.ui import ids
+from webapp.web.ui import fields, ids
 from webapp.url_state import ViewState
 
 dash.register_page(
@@ -222,7 +222,7 @@ def fit_summary(dataset_id: int, applied: dict | None, user_id: int | None = Non
 
 # ------------------------------------------------------------------ layout
 def _field(label: str, control, hint: str | None = None, class_name: str = "") -> html.Div:
-    children = [html.Label(label, className="ld-field-label"), control]
+    children = [fields.field_label(label, control), control]
     if hint:
         children.append(html.Div(hint, className="ld-field-hint"))
     return html.Div(children, className=f"ld-field {class_name}".strip())
@@ -337,8 +337,9 @@ def _not_found(dataset_id) -> html.Div:
 
 
 def layout(dataset_id=None, **query) -> html.Div:
-    from webapp.web.pages import dataset_samples, dataset_views
+    from webapp.web.pages import dataset_samples, dataset_tabs, dataset_views
     from webapp.web.pages.review_links import review_links
+    from webapp.web.pages.monitoring_link import reference_model_link
 
     dataset = dataset_or_none(dataset_id)
     if dataset is None:
@@ -364,25 +365,25 @@ def layout(dataset_id=None, **query) -> html.Div:
                     ),
                     dataset_samples.downloads(),
                     review_links(dataset["id"]),
+                    reference_model_link(),
                 ],
                 className="ld-dataset-head",
             ),
             html.Div([html.P(n) for n in notes], id=ids.DATASET_NOTES, className="ld-notes"),
             html.Div(id=ids.VIEW_BANNER, role="status"),  # a saved view's link: filled by views_open
             _settings_form(dataset, state, can_fit),
-            dcc.Tabs(
-                id=ids.VIEW_TABS, value=state.tab, className="ld-tabs",
-                children=[dcc.Tab(label=label, value=key, className="ld-tab", selected_className="ld-tab-selected")
-                          for key, label in TAB_LABELS.items()],
-            ),
-            _view_toolbar(dataset, state),
-            html.Div(
-                [
-                    html.Div(dataset_views.tab_content(state.tab), id=ids.VIEW_CONTENT, className="ld-view-main"),
-                    html.Aside(dataset_samples.side_panels(), className="ld-view-side"),
-                ],
-                className="ld-explore-grid",
-            ),
+            dcc.Store(id=ids.VIEW_TABS, data=state.tab),  # the open tab (dataset_tabs)
+            dataset_tabs.tab_list(TAB_LABELS, state.tab),
+            dataset_tabs.tab_panel([
+                _view_toolbar(dataset, state),
+                html.Div(
+                    [
+                        html.Div(dataset_views.tab_content(state.tab), id=ids.VIEW_CONTENT, className="ld-view-main"),
+                        html.Aside(dataset_samples.side_panels(), className="ld-view-side"),
+                    ],
+                    className="ld-explore-grid",
+                ),
+            ], state.tab),
         ],
         className="ld-dataset-page",
     )
@@ -390,7 +391,7 @@ def layout(dataset_id=None, **query) -> html.Div:
 
 # --------------------------------------------------------------- callbacks
 _VIEW_INPUTS = [
-    (ids.VIEW_TABS, "value", "tab"),
+    (ids.VIEW_TABS, "data", "tab"),
     (ids.VIEW_PCX, "value", "pcx"),
     (ids.VIEW_PCY, "value", "pcy"),
     (ids.VIEW_COLOUR, "value", "colour"),
@@ -545,7 +546,7 @@ def _include_all(clicks, applied):
     Output(ids.VIEW_LOADINGS_ROW, "hidden"),
     Output(ids.VIEW_ORDER_ROW, "hidden"),
     Output(ids.VIEW_CONTENT, "children"),
-    Input(ids.VIEW_TABS, "value"),
+    Input(ids.VIEW_TABS, "data"),
 )
 def _show_tab(tab):
     from webapp.web.pages import dataset_views

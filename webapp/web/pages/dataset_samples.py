@@ -14,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 from dash import Input, Output, State, callback, dcc, html, no_update
 
-from webapp.web.ui import figures, ids
+from webapp.web.ui import fields, figures, ids, plot_table
 from webapp.web.ui.graph_config import SMALL_GRAPH_CONFIG
 
 TOP_VARIABLES = 8
@@ -24,16 +24,19 @@ DOWNLOAD_CHOICES = {"scores": "Scores", "loadings": "Loadings", "samples": "Samp
 
 # ----------------------------------------------------------------- layout
 def downloads() -> html.Div:
+    choice = dcc.Dropdown(id=ids.DOWNLOAD_TABLE, value="samples", clearable=False, searchable=False,
+                          options=[{"label": label, "value": key} for key, label in DOWNLOAD_CHOICES.items()],
+                          className="ld-download-choice")
     return html.Div(
         [
-            dcc.Dropdown(id=ids.DOWNLOAD_TABLE, value="samples", clearable=False, searchable=False,
-                         options=[{"label": label, "value": key} for key, label in DOWNLOAD_CHOICES.items()],
-                         className="ld-download-choice"),
+            fields.field_label("Table to download", choice, hidden=True),
+            choice,
             html.Button("CSV", id=ids.DOWNLOAD_CSV, n_clicks=0, className="ld-button ld-button-quiet"),
             html.Button("XLSX", id=ids.DOWNLOAD_XLSX, n_clicks=0, className="ld-button ld-button-quiet"),
             dcc.Download(id=ids.DOWNLOAD),
         ],
         className="ld-downloads",
+        role="group",
         **{"aria-label": "Download a table"},
     )
 
@@ -49,7 +52,7 @@ def side_panels() -> list:
         html.Section(
             [html.H2("Selection"),
              html.Div(html.P("Drag a box or lasso on the score plot or a diagnostics plot to select samples.",
-                             className="ld-muted"), id=ids.SELECTION_PANEL)],
+                             className="ld-muted"), id=ids.SELECTION_PANEL, **{"aria-live": "polite"})],
             className="ld-panel ld-selection",
         ),
     ]
@@ -90,6 +93,8 @@ def explain_view(result: dict | None, sample: str | None):
     return html.Div(
         [
             html.H3(sample, className="ld-sample-id"),
+            html.Button("Add to the selection", id=ids.EXPLAIN_SELECT, n_clicks=0,
+                        className="ld-button ld-button-quiet ld-button-small"),
             html.P("Left out of this fit; compared with the new-sample limit." if info["excluded"] else None,
                    className="ld-muted"),
             html.P(info["sentence"], className="ld-sentence"),
@@ -97,14 +102,16 @@ def explain_view(result: dict | None, sample: str | None):
                 f"T² {_fmt(info['t2'])} (limit {_fmt(info['t2_limit'])}) · SPE {_fmt(info['spe'])} "
                 f"(limit {_fmt(info['spe_limit'])}) at {level}: {_lower_first(figures.REGION_TEXT[region])}.",
                 className="ld-stats"),
-            dcc.Graph(id=ids.GRAPH_SPE_CONTRIB, config=SMALL_GRAPH_CONFIG,
-                      figure=_small(figures.contribution_figure(
-                          names, signed_spe, title="SPE contributions", top=TOP_VARIABLES,
-                          value_title="squared residual × its sign"))),
-            dcc.Graph(id=ids.GRAPH_T2_CONTRIB, config=SMALL_GRAPH_CONFIG,
-                      figure=_small(figures.contribution_figure(
-                          names, t2_parts, title="T² contributions", top=TOP_VARIABLES,
-                          value_title="contribution to T²"))),
+            plot_table.plot_figure(dcc.Graph(
+                id=ids.GRAPH_SPE_CONTRIB, config=SMALL_GRAPH_CONFIG,
+                figure=_small(figures.contribution_figure(
+                    names, signed_spe, title="SPE contributions", top=TOP_VARIABLES,
+                    value_title="squared residual × its sign"))), class_name="ld-graph-small"),
+            plot_table.plot_figure(dcc.Graph(
+                id=ids.GRAPH_T2_CONTRIB, config=SMALL_GRAPH_CONFIG,
+                figure=_small(figures.contribution_figure(
+                    names, t2_parts, title="T² contributions", top=TOP_VARIABLES,
+                    value_title="contribution to T²"))), class_name="ld-graph-small"),
             html.Div(html.Table(
                 [html.Thead(html.Tr([html.Th("Variable"), html.Th("Value"), html.Th("SD from mean"),
                                      html.Th("Residual")])),
@@ -165,6 +172,17 @@ def leave_out(applied: dict | None, selection: dict | None) -> dict | None:
     return {**(applied or {}), "exclude": merged}
 
 
+def with_sample(selection: dict | None, sample: str | None, result: dict | None) -> dict | None:
+    """The selection store with ``sample`` added (the explained sample, chosen without a
+    pointer); None when there is no sample or it is already selected. No plot shows the
+    new selection yet, so every plot draws it."""
+    chosen = list((selection or {}).get("sample_ids") or [])
+    if not sample or sample in chosen:
+        return None
+    return {**(selection or {}), "dataset_id": (selection or {}).get("dataset_id") or (result or {}).get("dataset_id"),
+            "fingerprint": (result or {}).get("fingerprint"), "sample_ids": chosen + [sample], "drawn_on": None}
+
+
 def cleared_selection(selection: dict | None) -> dict:
     """The selection store after "Clear": no samples, and no plot that already shows
     that (so every plot is drawn again without the old selection)."""
@@ -208,6 +226,21 @@ def _explain(sample, result):
 )
 def _selection(selection):
     return selection_view(selection)
+
+
+@callback(
+    Output(ids.SELECTION_STORE, "data", allow_duplicate=True),
+    Input(ids.EXPLAIN_SELECT, "n_clicks"),
+    State(ids.VIEW_SAMPLE, "data"),
+    State(ids.SELECTION_STORE, "data"),
+    State(ids.FIT_RESULT, "data"),
+    prevent_initial_call=True,
+)
+def _add_explained(clicks, sample, selection, result):
+    if not clicks:
+        return no_update
+    new = with_sample(selection, sample, result)
+    return new if new is not None else no_update
 
 
 @callback(

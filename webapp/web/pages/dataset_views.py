@@ -21,8 +21,9 @@ import pandas as pd
 from dash import ALL, Input, Output, Patch, State, callback, clientside_callback, ctx, dcc, html, no_update
 
 from analysis import diagnostics
-from webapp.web.ui import figures, ids
+from webapp.web.ui import figures, ids, plot_table
 from webapp.web.ui.graph_config import GRAPH_CONFIG
+from webapp.web.ui.grid_options import ONE_TAB_STOP
 
 LIMIT_LEVELS = (0.95, 0.99)
 EXPLORE_CACHE = "explore"  # HOME/cache/explore: metadata columns in model order
@@ -35,18 +36,16 @@ CAUTION = (
 
 # ----------------------------------------------------------------- layout
 def _graph(graph_id: str) -> html.Div:
-    return html.Div(
-        [
-            # No loading overlay: it hides and re-shows the plot, which costs a WebGL redraw.
-            dcc.Graph(id=graph_id, config=GRAPH_CONFIG, figure=figures.empty_figure("Fitting…")),
-            html.Div(
-                [html.Span("Save picture:", className="ld-muted"),
-                 html.Button("PNG", id=ids.image_button(graph_id, "png"), n_clicks=0, className="ld-link-button"),
-                 html.Button("SVG", id=ids.image_button(graph_id, "svg"), n_clicks=0, className="ld-link-button")],
-                className="ld-picture-links",
-            ),
-        ],
-        className="ld-graph",
+    # A named figure with its numbers one click away (plot_table.plot_figure).
+    return plot_table.plot_figure(
+        # No loading overlay: it hides and re-shows the plot, which costs a WebGL redraw.
+        dcc.Graph(id=graph_id, config=GRAPH_CONFIG, figure=figures.empty_figure("Fitting…")),
+        html.Div(
+            [html.Span("Save picture:", className="ld-muted"),
+             html.Button("PNG", id=ids.image_button(graph_id, "png"), n_clicks=0, className="ld-link-button"),
+             html.Button("SVG", id=ids.image_button(graph_id, "svg"), n_clicks=0, className="ld-link-button")],
+            className="ld-picture-links",
+        ),
     )
 
 
@@ -84,7 +83,7 @@ def tab_content(tab: str) -> list:
                 defaultColDef={"sortable": True, "filter": True, "resizable": True, "minWidth": 100, "flex": 1},
                 dashGridOptions={"rowSelection": {"mode": "singleRow", "checkboxes": False,
                                                   "enableClickSelection": True},
-                                 "animateRows": False},
+                                 "animateRows": False, **ONE_TAB_STOP},
                 getRowId="params.data.sample_id",
                 className="ag-theme-quartz ld-grid",
                 style={"height": "520px"},
@@ -619,6 +618,17 @@ for _graph_id in (ids.GRAPH_SCORES, ids.GRAPH_T2_SPE, ids.GRAPH_T2_CHART, ids.GR
 )
 def _row_clicked(cell):
     sample = (cell or {}).get("rowId")
+    return sample if sample else no_update
+
+
+@callback(
+    Output(ids.VIEW_SAMPLE, "data", allow_duplicate=True),
+    Input(ids.OUTLIER_GRID, "selectedRows"),
+    prevent_initial_call=True,
+)
+def _row_selected(rows):
+    # Space on a row of the table selects it without a click: the keyboard way to explain it.
+    sample = ((rows or [{}])[-1] or {}).get("sample_id")
     return sample if sample else no_update
 
 

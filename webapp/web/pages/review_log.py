@@ -12,7 +12,7 @@ from dash import Input, Output, State, callback, dcc, html
 from urllib.parse import urlencode
 
 from webapp import url_state
-from webapp.web.ui import ids
+from webapp.web.ui import fields, ids
 
 dash.register_page(__name__, path="/review/log", name="Review log", title="Review log · LatentDesk")
 
@@ -93,11 +93,14 @@ def layout(dataset=None, action=None, actor=None, **_query) -> html.Div:
                 [
                     html.Div(
                         [
-                            dcc.Dropdown(id=ids.LOG_ACTION_FILTER, value=action, placeholder="All actions",
-                                         options=[{"label": label, "value": key} for key, label in ACTIONS.items()]),
-                            dcc.Dropdown(id=ids.LOG_ACTOR_FILTER, value=actor, placeholder="Everyone",
-                                         options=[{"label": name, "value": str(pid)} for pid, name in people
-                                                  if pid is not None]),
+                            *fields.labelled("Show the action", dcc.Dropdown(
+                                id=ids.LOG_ACTION_FILTER, value=action, placeholder="All actions",
+                                options=[{"label": label, "value": key} for key, label in ACTIONS.items()]),
+                                hidden=True),
+                            *fields.labelled("Show the person", dcc.Dropdown(
+                                id=ids.LOG_ACTOR_FILTER, value=actor, placeholder="Everyone",
+                                options=[{"label": name, "value": str(pid)} for pid, name in people
+                                         if pid is not None]), hidden=True),
                             html.A("Export CSV", href=url_state.review_log_csv_url(dataset_id), id=ids.LOG_EXPORT,
                                    className="ld-button ld-button-quiet"),
                             html.A("Printable sign-off report", href=url_state.signoff_report_url(dataset_id),

@@ -24,7 +24,8 @@ from flask_login import current_user
 from analysis.errors import InputError
 from webapp import auth
 from webapp import url_state
-from webapp.web.ui import ids
+from webapp.web.ui import fields, ids
+from webapp.web.ui.grid_options import ONE_TAB_STOP
 
 dash.register_page(__name__, path=url_state.upload_url(), name="Upload", title="Upload · LatentDesk",
                    nav=True, order=1, min_role="analyst")
@@ -156,22 +157,19 @@ def layout(**_query) -> html.Div:
                            "until you confirm below.", className="ld-muted"),
                     html.Div(
                         [
-                            html.Div([html.Label("Sample ids", className="ld-field-label"),
-                                      dcc.Dropdown(id=ids.UPLOAD_ID_COLUMN, placeholder="detect automatically")],
-                                     className="ld-field"),
-                            html.Div([html.Label("Sheet (XLSX)", className="ld-field-label"),
-                                      dcc.Input(id=ids.UPLOAD_SHEET, type="text", placeholder="first sheet",
-                                                debounce=True, className="ld-input")], className="ld-field"),
-                            html.Div([html.Label("Values below a detection limit", className="ld-field-label"),
-                                      dcc.RadioItems(id=ids.UPLOAD_BELOW_LIMIT, value="half", **radio,
-                                                     options=[{"label": f" {v}", "value": k}
-                                                              for k, v in BELOW_LIMIT.items()])],
-                                     className="ld-field ld-field-wide"),
-                            html.Div([html.Label("Text in a numeric column", className="ld-field-label"),
-                                      dcc.RadioItems(id=ids.UPLOAD_BAD_CELLS, value="error", **radio,
-                                                     options=[{"label": f" {v}", "value": k}
-                                                              for k, v in BAD_CELLS.items()])],
-                                     className="ld-field ld-field-wide"),
+                            html.Div(fields.labelled("Sample ids", dcc.Dropdown(
+                                id=ids.UPLOAD_ID_COLUMN, placeholder="detect automatically")), className="ld-field"),
+                            html.Div(fields.labelled("Sheet (XLSX)", dcc.Input(
+                                id=ids.UPLOAD_SHEET, type="text", placeholder="first sheet", debounce=True,
+                                className="ld-input")), className="ld-field"),
+                            html.Div(fields.labelled("Values below a detection limit", dcc.RadioItems(
+                                id=ids.UPLOAD_BELOW_LIMIT, value="half", **radio,
+                                options=[{"label": f" {v}", "value": k} for k, v in BELOW_LIMIT.items()])),
+                                className="ld-field ld-field-wide"),
+                            html.Div(fields.labelled("Text in a numeric column", dcc.RadioItems(
+                                id=ids.UPLOAD_BAD_CELLS, value="error", **radio,
+                                options=[{"label": f" {v}", "value": k} for k, v in BAD_CELLS.items()])),
+                                className="ld-field ld-field-wide"),
                         ],
                         className="ld-settings-row",
                     ),
@@ -199,6 +197,7 @@ def layout(**_query) -> html.Div:
                         ],
                         defaultColDef={"resizable": True, "sortable": False, "minWidth": 90},
                         columnSize="responsiveSizeToFit",
+                        dashGridOptions=ONE_TAB_STOP,
                         className="ag-theme-quartz ld-grid",
                         style={"height": "360px"},
                     ),
