@@ -69,6 +69,16 @@ def test_location_wins_on_load_and_back(app):
     assert dataset.form_values(state)["components"] == "2"
 
 
+def test_a_control_changed_together_with_the_address_wins(app):
+    # The address decides only when it changed alone; with a control in the same round trip
+    # it is the page's own earlier write (common practice for URL-synced state).
+    dataset, *_ = _pages()
+    assert dataset.deciding_trigger([ids.DATASET_LOCATION]) == ids.DATASET_LOCATION
+    assert dataset.deciding_trigger([ids.DATASET_LOCATION, ids.VIEW_TABS]) == ids.VIEW_TABS
+    assert dataset.deciding_trigger([ids.VIEW_TABS, ids.DATASET_LOCATION]) == ids.VIEW_TABS
+    assert dataset.deciding_trigger([]) is None
+
+
 def test_view_control_change_keeps_applied_settings(app):
     dataset, *_ = _pages()
     applied = dataset.applied_settings(ViewState(components=4, exclude=("W-001",)))

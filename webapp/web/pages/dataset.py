@@ -172,6 +172,20 @@ def sync_state(trigger: str | None, search: str | None, view: dict, applied: dic
     return state_from_controls(view, applied), [], False
 
 
+def deciding_trigger(triggered: list) -> str | None:
+    """The change ``sync_state`` follows when several inputs changed in one round trip.
+
+    The address wins only when it changed alone (a reload, back/forward). When a
+    control and the address arrive together, the address is this page's own
+    earlier write and the control is the newer intent: following the address
+    would undo the user's change (a tab jumping back)."""
+    changed = [t for t in triggered if t is not None]
+    if not changed:
+        return None
+    others = [t for t in changed if t != ids.DATASET_LOCATION]
+    return others[0] if others else ids.DATASET_LOCATION
+
+
 def initial_selection(dataset_id: int, query, user) -> tuple[dict[str, Any], list[str]]:
     """The selection store's first value, and notes: the selection of the saved view the
     link names (``view=<id>``, ``webapp.services.views.saved_selection``), else nothing."""
@@ -435,7 +449,8 @@ def _sync(search, _clicks, applied, view_list, form_list, pathname, dataset_id):
         raise PreventUpdate
     view = {key: value for (_, _, key), value in zip(_VIEW_INPUTS, view_list)}
     form = {key: value for (_, key), value in zip(_FORM_FIELDS, form_list)}
-    state, notes, set_controls = sync_state(ctx.triggered_id, search, view, applied, form)
+    trigger = deciding_trigger(list((ctx.triggered_prop_ids or {}).values()))
+    state, notes, set_controls = sync_state(trigger, search, view, applied, form)
     query = url_state.page_query(state, url_state.view_id_from_query(search))  # keeps view=<id>
     new_search = f"?{query}" if query else ""
     new_applied = applied_settings(state)
