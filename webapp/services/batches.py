@@ -337,7 +337,7 @@ def _batch_dict(session, batch_id: int, info: Mapping[str, Any] | None = None) -
         raise BatchNotFound(batch_id)
     info = info or reference.get_reference_model(batch.reference_model_id)
     limits = _limits(info)
-    samples = store.samples_of(session, batch.id)
+    samples = store.samples_of(session, batch.id, with_values=False)
     outcomes = store.outcomes_of(session, [s.id for s in samples])
     return {
         "id": batch.id,
@@ -513,7 +513,7 @@ def _check_samples(samples) -> list[str]:
 
 def _targets(session, batch_id: int, wanted: list[str]):
     """The batch's rows of ``wanted``; InputError for ids not in it or samples not flagged."""
-    rows = {s.sample_id: s for s in store.samples_of(session, batch_id)}
+    rows = {s.sample_id: s for s in store.samples_of(session, batch_id, with_values=False)}
     unknown = [s for s in wanted if s not in rows]
     if unknown:
         raise InputError(f"sample(s) not in batch {batch_id}: {_listed(unknown)}", field="samples")

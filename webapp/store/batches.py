@@ -12,7 +12,7 @@ from datetime import datetime
 from typing import Any, Iterable
 
 from sqlalchemy import func, select, update
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, defer
 
 from webapp.store.engine import add_and_flush
 from webapp.store.tables import Batch, BatchOutcome, BatchSample
@@ -86,18 +86,20 @@ def series(session: Session, reference_model_id: int) -> list[tuple]:
     )]
 
 
-def samples_of(session: Session, batch_id: int) -> list[BatchSample]:
-    """The batch's samples in run order."""
-    return list(session.scalars(
-        select(BatchSample).where(BatchSample.batch_id == batch_id).order_by(BatchSample.run_index)
-    ))
+def samples_of(session: Session, batch_id: int, *, with_values: bool = True) -> list[BatchSample]:
+    """The batch's samples in run order; ``with_values=False`` leaves the measured values
+    (one number per variable) unread until asked for."""
+    query = select(BatchSample).where(BatchSample.batch_id == batch_id).order_by(BatchSample.run_index)
+    if not with_values:
+        query = query.options(defer(BatchSample.measured))
+    return list(session.scalars(query))
 
 
 def checked_samples(session: Session, reference_model_id: int) -> list[BatchSample]:
-    """Every checked sample of a reference model, in run order."""
+    """Every checked sample of a reference model, in run order (measured values unread)."""
     return list(session.scalars(
         select(BatchSample).where(BatchSample.reference_model_id == reference_model_id)
-        .order_by(BatchSample.run_index)
+        .order_by(BatchSample.run_index).options(defer(BatchSample.measured))
     ))
 
 
