@@ -31,7 +31,7 @@ def _sub_commands(parser: argparse.ArgumentParser, prefix: str = "") -> list[str
 
 
 def _api_rules(home: Path) -> list[str]:
-    from webapp import create_app
+    from webapp.app import create_app
 
     app = create_app({"TESTING": True, "SECRET_KEY": "docs-test", "HOME": str(home)})
     rules = sorted(

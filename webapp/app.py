@@ -42,11 +42,11 @@ INDEX_STRING = """<!DOCTYPE html>
 
 def _register_blueprints(server: Flask) -> None:
     """The plain Flask routes: sign-in and sign-out, then the JSON API."""
-    from webapp import api
+    from webapp.api.routes import BLUEPRINTS
     from webapp.web import signin
 
     server.register_blueprint(signin.bp)
-    for blueprint in api.BLUEPRINTS:
+    for blueprint in BLUEPRINTS:
         server.register_blueprint(blueprint)
 
 

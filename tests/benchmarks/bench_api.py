@@ -28,7 +28,8 @@ import numpy as np
 import pandas as pd
 
 from analysis.pca import PCAModel
-from webapp import auth, create_app
+from webapp import auth
+from webapp.app import create_app
 from webapp.store import accounts, session_scope
 
 

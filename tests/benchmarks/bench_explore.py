@@ -84,7 +84,7 @@ def invented_data(rows: int, cols: int, seed: int = 20261205) -> bytes:
 def prepare(home: Path, raw: bytes):
     from werkzeug.security import generate_password_hash
 
-    from webapp import create_app
+    from webapp.app import create_app
     from webapp.services import ingest
     from webapp.store import accounts, session_scope
 

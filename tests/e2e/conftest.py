@@ -56,7 +56,7 @@ class LiveServer:
 
 @pytest.fixture(scope="session")
 def demo_server(tmp_path_factory):
-    from webapp import create_app
+    from webapp.app import create_app
     from webapp.cli.serve import prepare_demo
 
     home = tmp_path_factory.mktemp("demo-home")

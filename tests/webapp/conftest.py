@@ -27,7 +27,7 @@ import pytest
 from sqlalchemy import create_engine, text
 from werkzeug.security import generate_password_hash
 
-from webapp import create_app
+from webapp.app import create_app
 from webapp.store import accounts, session_scope
 
 PG_BIN = Path("/usr/lib/postgresql/15/bin")

@@ -38,7 +38,8 @@ def _config(home: Path, database_url: str | None) -> dict:
 
 def prepared_home(home: Path, database_url: str | None, users: list[tuple[str, str, str]]) -> dict:
     """Migrate, add ``(name, role, display name)`` users; return name -> {id, password, headers}."""
-    from webapp import auth, create_app
+    from webapp import auth
+    from webapp.app import create_app
     from webapp.store import accounts, session_scope
 
     app = create_app(_config(home, database_url))
@@ -66,7 +67,7 @@ def running_server(home: Path, database_url: str | None, workers: int = 2, threa
         env.pop("LATENTDESK_DATABASE_URL", None)
     process = subprocess.Popen(
         [sys.executable, "-m", "gunicorn", "-w", str(workers), "--threads", str(threads), "-k", "gthread",
-         "-b", f"127.0.0.1:{port}", "--timeout", "120", "--log-level", "warning", "webapp:create_app()"],
+         "-b", f"127.0.0.1:{port}", "--timeout", "120", "--log-level", "warning", "webapp.app:create_app()"],
         cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
     )
     base = f"http://127.0.0.1:{port}"

@@ -12,7 +12,7 @@ import stat
 
 import pytest
 
-from webapp import create_app
+from webapp.app import create_app
 from webapp.config import ConfigError, load_config
 
 

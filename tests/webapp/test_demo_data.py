@@ -288,7 +288,7 @@ def test_survey_reversed_block_stands_out():
 @pytest.fixture(scope="module")
 def demo_home(tmp_path_factory):
     """A demo home prepared twice, as a restarted ``latentdesk demo`` does: (app, printed users)."""
-    from webapp import create_app
+    from webapp.app import create_app
     from webapp.cli import serve
 
     home = str(tmp_path_factory.mktemp("demo") / "home")

@@ -23,7 +23,8 @@ import pytest
 from werkzeug.routing import Rule
 
 from tests.webapp.conftest import add_user, csrf_from, login
-from webapp import auth, create_app
+from webapp import auth
+from webapp.app import create_app
 from webapp.store import accounts, session_scope, utcnow
 from webapp.store.tables import ROLES
 

@@ -124,7 +124,7 @@ def test_hard_kill_before_commit_leaves_no_dataset(app, tmp_path):
     script = textwrap.dedent(
         f"""
         import os
-        from webapp import create_app
+        from webapp.app import create_app
         from webapp.services import ingest
         from webapp.store import accounts, datasets, session_scope
         from werkzeug.security import generate_password_hash

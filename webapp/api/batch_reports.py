@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from flask import Blueprint, Response
 
-from webapp.api.datasets import requires
+from webapp.api.responses import requires
 from webapp.services import batches
 
 bp = Blueprint("api_batch_reports", __name__)

@@ -10,43 +10,32 @@ from __future__ import annotations
 from flask import Blueprint, Response, request
 
 from analysis.errors import InputError
-
-from webapp.api.datasets import (
+from webapp.api.responses import (
+    API_PREFIX,
     MULTIPART_ALLOWANCE,
-    _form_text,
-    _too_large_message,
+    form_text,
+    json_body,
     json_error,
     json_ok,
     register_common_errors,
+    register_not_found,
     requires,
+    too_large_message,
 )
-from webapp.api.monitoring import _body, _user
+from webapp.auth import api_user
 from webapp.services import batches
 from webapp.services import reference_models as reference
 from webapp.services.context import max_upload_bytes
 from webapp.services.exports import to_csv_bytes
-from webapp.services.review_rules import ReviewRefused
 
 bp = Blueprint("api_batches", __name__)
-API = "/api/v1"
 OUTCOME_FIELDS = {"samples", "outcome", "reason", "cause", "password"}
 TRUE, FALSE = {"1", "true", "yes", "on"}, {"", "0", "false", "no", "off"}
 register_common_errors(bp)
 
 
-@bp.errorhandler(ReviewRefused)
-def _refused(exc: ReviewRefused):
-    return json_error(exc.code, str(exc), exc.status)
-
-
-@bp.errorhandler(reference.ReferenceModelNotFound)
-def _no_reference_model(exc):
-    return json_error("not_found", f"no reference model with id {exc.args[0]}", 404)
-
-
-@bp.errorhandler(batches.BatchNotFound)
-def _no_batch(exc):
-    return json_error("not_found", f"no batch with id {exc.args[0]}", 404)
+register_not_found(bp, reference.ReferenceModelNotFound, "reference model")
+register_not_found(bp, batches.BatchNotFound, "batch")
 
 
 @bp.errorhandler(batches.BatchSampleNotFound)
@@ -66,7 +55,7 @@ def _retest() -> bool:
     return value in TRUE
 
 
-@bp.post(f"{API}/reference-models/<int:reference_model_id>/batches")
+@bp.post(f"{API_PREFIX}/reference-models/<int:reference_model_id>/batches")
 @requires("analyst")
 def check_batch(reference_model_id: int):
     request.max_content_length = max_upload_bytes() + MULTIPART_ALLOWANCE
@@ -76,50 +65,50 @@ def check_batch(reference_model_id: int):
                           field="file")
     raw = upload.read()
     if len(raw) > max_upload_bytes():
-        return json_error("too_large", _too_large_message(), 413)
-    options = {"id_column": _form_text("id_column"), "sheet": _form_text("sheet")}
+        return json_error("too_large", too_large_message(), 413)
+    options = {"id_column": form_text("id_column"), "sheet": form_text("sheet")}
     for name in ("below_limit", "bad_cells"):
-        if _form_text(name):
-            options[name] = _form_text(name)
-    batch = batches.check_batch(reference_model_id, raw, upload.filename or "", _user(), retest=_retest(),
+        if form_text(name):
+            options[name] = form_text(name)
+    batch = batches.check_batch(reference_model_id, raw, upload.filename or "", api_user(), retest=_retest(),
                                 **options)
     return json_ok(status=201, batch=batch)
 
 
-@bp.get(f"{API}/batches/<int:batch_id>")
+@bp.get(f"{API_PREFIX}/batches/<int:batch_id>")
 @requires("viewer")
 def get_batch(batch_id: int):
     return json_ok(batch=batches.batch_info(batch_id))
 
 
-@bp.get(f"{API}/batches/<int:batch_id>/samples.csv")
+@bp.get(f"{API_PREFIX}/batches/<int:batch_id>/samples.csv")
 @requires("viewer")
 def batch_samples_csv(batch_id: int):
     return _csv(batches.batch_samples_frame(batch_id), f"batch-{batch_id}-samples.csv")
 
 
-@bp.get(f"{API}/batches/<int:batch_id>/contributions/<path:sample_id>")
+@bp.get(f"{API_PREFIX}/batches/<int:batch_id>/contributions/<path:sample_id>")
 @requires("viewer")
 def sample_contributions(batch_id: int, sample_id: str):
     return json_ok(**batches.sample_contributions(batch_id, sample_id))
 
 
-@bp.get(f"{API}/reference-models/<int:reference_model_id>/chart")
+@bp.get(f"{API_PREFIX}/reference-models/<int:reference_model_id>/chart")
 @requires("viewer")
 def chart(reference_model_id: int):
     return json_ok(chart=batches.chart(reference_model_id))
 
 
-@bp.get(f"{API}/reference-models/<int:reference_model_id>/chart.csv")
+@bp.get(f"{API_PREFIX}/reference-models/<int:reference_model_id>/chart.csv")
 @requires("viewer")
 def chart_csv(reference_model_id: int):
     return _csv(batches.chart_frame(reference_model_id), f"reference-model-{reference_model_id}-chart.csv")
 
 
-@bp.post(f"{API}/batches/<int:batch_id>/outcomes")
+@bp.post(f"{API_PREFIX}/batches/<int:batch_id>/outcomes")
 @requires("reviewer")
 def record_outcome(batch_id: int):
-    body = _body(OUTCOME_FIELDS, required=("samples", "outcome", "reason"))
+    body = json_body(OUTCOME_FIELDS, required=("samples", "outcome", "reason"))
     batch = batches.record_outcome(batch_id, body["samples"], body["outcome"], body["reason"],
-                                   body.get("password"), _user(), cause=body.get("cause"))
+                                   body.get("password"), api_user(), cause=body.get("cause"))
     return json_ok(batch=batch)

@@ -2,7 +2,7 @@
 
 One success shape ``{"ok": true, ...}`` and one error shape
 ``{"ok": false, "error": {"code", "message"}}`` (docs/design.md section 5, docs/api.md).
-``json_ok`` and ``json_error`` are shared with the review API. Every error
+The shapes and shared errors live in ``webapp.api.responses``. Every error
 under ``/api/`` is answered as JSON with a 4xx status for bad input or missing
 rights; a file intake refuses is a 400 with intake's message, never a 500.
 Routes call services only; user text (ids, column names) goes out as JSON
@@ -10,10 +10,6 @@ strings, never as HTML.
 """
 
 from __future__ import annotations
-
-import json
-import math
-from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -24,83 +20,30 @@ from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
 import analysis
 from analysis.errors import InputError
 from webapp import auth
+from webapp.api.responses import (
+    API_PREFIX,
+    HTTP_CODES,
+    MULTIPART_ALLOWANCE,
+    form_text,
+    json_body,
+    json_error,
+    json_response,
+    json_ok,
+    register_common_errors,
+    requires,
+    too_large_message,
+)
 from webapp.services import ingest, modelling
 from webapp.services.context import max_upload_bytes, session_scope
 from webapp.services.exports import to_csv_bytes
 
 bp = Blueprint("api", __name__)
 
-API_PREFIX = "/api/v1"
-MULTIPART_ALLOWANCE = 1024**2  # room for the multipart envelope around the file
-HTTP_CODES = {
-    400: "bad_request",
-    401: "unauthenticated",
-    403: "forbidden",
-    404: "not_found",
-    405: "method_not_allowed",
-    409: "conflict",
-    413: "too_large",
-    415: "unsupported_media_type",
-    429: "too_many_requests",
-}
-
-
-def jsonable(value: Any) -> Any:
-    """``value`` with numpy types made plain and NaN/inf made null (strict JSON)."""
-    if isinstance(value, dict):
-        return {str(k): jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [jsonable(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return [jsonable(v) for v in value.tolist()]
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if value is pd.NA or value is pd.NaT:
-        return None
-    return value
-
-
-def _json_response(body: dict[str, Any], status: int) -> Response:
-    # Strict JSON (allow_nan=False) and no key sorting: large tables stay fast.
-    text = json.dumps(body, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
-    return Response(text + "\n", status=status, mimetype="application/json")
-
-
-def json_ok(status: int = 200, **payload: Any) -> Response:
-    """``{"ok": true, **payload}`` with ``status``."""
-    return _json_response({"ok": True, **jsonable(payload)}, status)
-
-
-def json_error(code: str, message: str, status: int, *, field: str | None = None) -> Response:
-    """``{"ok": false, "error": {"code", "message"}}`` with ``status``; ``field`` names the
-    JSON key at fault when one is known."""
-    error = {"code": code, "message": str(message)}
-    if field:
-        error["field"] = field
-    return _json_response({"ok": False, "error": error}, status)
-
-
 def _is_api_path() -> bool:
     return request.path.startswith("/api/") or request.path == "/health"
 
 
 # --- errors -----------------------------------------------------------------
-
-
-def _input_error(exc: InputError):
-    return json_error("bad_input", str(exc), 400, field=exc.field)
-
-
-def _no_dataset(exc):
-    return json_error("not_found", f"no dataset with id {exc.args[0]}", 404)
-
-
-def register_common_errors(blueprint: Blueprint) -> None:
-    """Errors every JSON blueprint answers alike: bad input (400), unknown dataset (404)."""
-    blueprint.register_error_handler(InputError, _input_error)
-    blueprint.register_error_handler(ingest.DatasetNotFound, _no_dataset)
 
 
 register_common_errors(bp)
@@ -116,14 +59,9 @@ def _no_sample(exc):
     return json_error("not_found", f"no sample with id {exc.args[0]!r} in this dataset", 404)
 
 
-def _too_large_message() -> str:
-    limit = current_app.config.get("MAX_UPLOAD_MB")
-    return f"the upload is larger than the limit of {limit} MB (LATENTDESK_MAX_UPLOAD_MB)"
-
-
 @bp.errorhandler(RequestEntityTooLarge)
 def _too_large(exc):
-    return json_error("too_large", _too_large_message(), 413)
+    return json_error("too_large", too_large_message(), 413)
 
 
 @bp.app_errorhandler(HTTPException)
@@ -155,11 +93,6 @@ def _no_store(response: Response) -> Response:
 # --- auth -------------------------------------------------------------------
 
 
-def requires(role: str):
-    """Route decorator: 401 without a user, 403 below ``role`` (``webapp.auth`` decides)."""
-    return auth.role_required(role)
-
-
 def _user_id() -> int:
     return auth.api_user().id
 
@@ -179,11 +112,6 @@ def health():
     return json_ok(version=analysis.__version__, database="ok")
 
 
-def _form_text(name: str) -> str | None:
-    """A form field with blanks trimmed; None when absent or empty."""
-    return (request.form.get(name) or "").strip() or None
-
-
 @bp.post(f"{API_PREFIX}/datasets")
 @requires("analyst")
 def upload_dataset():
@@ -193,15 +121,15 @@ def upload_dataset():
         return json_error("bad_input", "send the data file as the multipart field 'file'", 400)
     raw = upload.read()
     if len(raw) > max_upload_bytes():
-        return json_error("too_large", _too_large_message(), 413)
+        return json_error("too_large", too_large_message(), 413)
     options = {
-        "id_column": _form_text("id_column"),
-        "sheet": _form_text("sheet"),
+        "id_column": form_text("id_column"),
+        "sheet": form_text("sheet"),
         "group_columns": [c.strip() for c in request.form.getlist("group_column") if c.strip()],
     }
     for name in ("below_limit", "bad_cells"):
-        if _form_text(name):
-            options[name] = _form_text(name)
+        if form_text(name):
+            options[name] = form_text(name)
     dataset = ingest.ingest_upload(raw, upload.filename or "", _user_id(), **options)
     return json_ok(status=201, dataset=dataset)
 
@@ -226,22 +154,11 @@ def list_models(dataset_id: int):
     return json_ok(dataset_id=dataset_id, models=modelling.recorded_models(dataset_id))
 
 
-def _json_body() -> dict[str, Any]:
-    body = request.get_json(silent=True)
-    if body is None and request.get_data():
-        raise InputError("the request body is not valid JSON")
-    if body is None:
-        return {}
-    if not isinstance(body, dict):
-        raise InputError("the request body must be a JSON object")
-    return body
-
-
 @bp.post(f"{API_PREFIX}/datasets/<int:dataset_id>/models")
 @requires("analyst")
 def fit_model(dataset_id: int):
     # Without "exclude" the approved exclusions apply; an explicit list is a what-if preview.
-    _, info = modelling.get_model(dataset_id, _json_body(), user_id=_user_id())
+    _, info = modelling.get_model(dataset_id, json_body(), user_id=_user_id())
     return json_ok(model=info)
 
 
@@ -317,7 +234,7 @@ def model_samples(model_id: int):
         for sample_id, meta, excluded, scores, t2, t2_limit, spe, spe_limit, flags in columns
     ]
     body = {"ok": True, "model_id": model_id, "fingerprint": info["fingerprint"], "samples": samples}
-    return _json_response(body, 200)
+    return json_response(body, 200)
 
 
 @bp.get(f"{API_PREFIX}/models/<int:model_id>/samples.csv")

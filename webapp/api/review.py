@@ -13,26 +13,18 @@ from typing import Any
 from flask import Blueprint, Response, request
 
 from analysis.errors import InputError
-from webapp.api.datasets import _json_body, json_error, json_ok, register_common_errors, requires
+from webapp.api.responses import API_PREFIX, json_body, json_error, json_ok, register_common_errors, register_not_found, requires
+from webapp.auth import api_user
 from webapp.services import exclusions, ingest, review, views
 from webapp.services.context import session_scope
 from webapp.services.exports import to_csv_bytes
-from webapp.services.review_rules import ReviewRefused
 
 bp = Blueprint("api_review", __name__)
-API = "/api/v1"
 LOG_FILTERS = ("action", "actor", "since", "until")
 register_common_errors(bp)
 
 
-@bp.errorhandler(ReviewRefused)
-def _refused(exc: ReviewRefused):
-    return json_error(exc.code, str(exc), exc.status)
-
-
-@bp.errorhandler(review.ProposalNotFound)
-def _no_proposal(exc):
-    return json_error("not_found", f"no exclusion proposal with id {exc.args[0]}", 404)
+register_not_found(bp, review.ProposalNotFound, "exclusion proposal")
 
 
 @bp.errorhandler(views.ViewNotFound)
@@ -40,26 +32,14 @@ def _no_view(exc):
     return json_error("not_found", f"no saved view with id {exc.args[0]!r}", 404)
 
 
-def _user():
-    from webapp.auth import api_user
-
-    return api_user()
-
-
-# --- proposals and decisions --------------------------------------------------------------
-
-
-@bp.post(f"{API}/datasets/<int:dataset_id>/exclusions")
+@bp.post(f"{API_PREFIX}/datasets/<int:dataset_id>/exclusions")
 @requires("analyst")
 def propose(dataset_id: int):
-    body = _json_body()
-    unknown = sorted(set(body) - {"samples", "reason_category", "reason", "action", "settings"})
-    if unknown:
-        raise InputError(f"unknown field(s): {', '.join(unknown)}")
+    body = json_body({"samples", "reason_category", "reason", "action", "settings"})
     ingest.dataset_info(dataset_id)
     proposal = review.propose(
         dataset_id,
-        _user(),
+        api_user(),
         samples=body.get("samples"),
         reason_category=body.get("reason_category"),
         reason=body.get("reason"),
@@ -69,7 +49,7 @@ def propose(dataset_id: int):
     return json_ok(status=201, proposal=proposal)
 
 
-@bp.get(f"{API}/datasets/<int:dataset_id>/exclusions")
+@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>/exclusions")
 @requires("viewer")
 def list_proposals(dataset_id: int):
     ingest.dataset_info(dataset_id)
@@ -80,17 +60,17 @@ def list_proposals(dataset_id: int):
     )
 
 
-@bp.get(f"{API}/exclusions/<int:proposal_id>")
+@bp.get(f"{API_PREFIX}/exclusions/<int:proposal_id>")
 @requires("viewer")
 def get_proposal(proposal_id: int):
     return json_ok(proposal=review.get_proposal(proposal_id))
 
 
 def _sign(proposal_id: int, decision: str):
-    body = _json_body()
+    body = json_body()
     proposal = review.sign(
         proposal_id,
-        _user(),
+        api_user(),
         decision=decision,
         password=body.get("password"),
         comment=body.get("comment", ""),
@@ -98,23 +78,23 @@ def _sign(proposal_id: int, decision: str):
     return json_ok(proposal=proposal)
 
 
-@bp.post(f"{API}/exclusions/<int:proposal_id>/approve")
+@bp.post(f"{API_PREFIX}/exclusions/<int:proposal_id>/approve")
 @requires("reviewer")
 def approve(proposal_id: int):
     return _sign(proposal_id, "approve")
 
 
-@bp.post(f"{API}/exclusions/<int:proposal_id>/reject")
+@bp.post(f"{API_PREFIX}/exclusions/<int:proposal_id>/reject")
 @requires("reviewer")
 def reject(proposal_id: int):
     return _sign(proposal_id, "reject")
 
 
-@bp.post(f"{API}/exclusions/<int:proposal_id>/withdraw")
+@bp.post(f"{API_PREFIX}/exclusions/<int:proposal_id>/withdraw")
 @requires("analyst")
 def withdraw(proposal_id: int):
-    body = _json_body()
-    return json_ok(proposal=review.withdraw(proposal_id, _user(), comment=body.get("comment", "")))
+    body = json_body()
+    return json_ok(proposal=review.withdraw(proposal_id, api_user(), comment=body.get("comment", "")))
 
 
 # --- the review log -----------------------------------------------------------------------
@@ -145,13 +125,13 @@ def _log_entries(dataset_id: int) -> list[dict[str, Any]]:
     )
 
 
-@bp.get(f"{API}/datasets/<int:dataset_id>/review-log")
+@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>/review-log")
 @requires("viewer")
 def review_log(dataset_id: int):
     return json_ok(dataset_id=dataset_id, entries=_log_entries(dataset_id))
 
 
-@bp.get(f"{API}/datasets/<int:dataset_id>/review-log.csv")
+@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>/review-log.csv")
 @requires("viewer")
 def review_log_csv(dataset_id: int):
     frame = review.log_frame(_log_entries(dataset_id))
@@ -165,7 +145,7 @@ def review_log_csv(dataset_id: int):
     )
 
 
-@bp.get(f"{API}/review-log/verify")
+@bp.get(f"{API_PREFIX}/review-log/verify")
 @requires("viewer")
 def verify_log():
     from webapp.services import audit
@@ -179,13 +159,10 @@ def verify_log():
 # --- saved views --------------------------------------------------------------------------
 
 
-@bp.post(f"{API}/views")
+@bp.post(f"{API_PREFIX}/views")
 @requires("analyst")
 def save_view():
-    body = _json_body()
-    unknown = sorted(set(body) - {"dataset_id", "query", "title", "note", "selection", "page"})
-    if unknown:
-        raise InputError(f"unknown field(s): {', '.join(unknown)}")
+    body = json_body({"dataset_id", "query", "title", "note", "selection", "page"})
     dataset_id = body.get("dataset_id")
     if isinstance(dataset_id, bool) or not isinstance(dataset_id, int):
         raise InputError(f"dataset_id must be a whole number, got {dataset_id!r}")
@@ -193,7 +170,7 @@ def save_view():
     if not isinstance(query, (str, dict)):
         raise InputError("query must be the page's query string (text) or an object of its keys")
     view = views.save_view(
-        _user(),
+        api_user(),
         dataset_id,
         query=query,
         title=body.get("title"),
@@ -204,14 +181,14 @@ def save_view():
     return json_ok(status=201, view=view)
 
 
-@bp.get(f"{API}/views/<view_id>")
+@bp.get(f"{API_PREFIX}/views/<view_id>")
 @requires("viewer")
 def get_view(view_id: str):
-    opened = views.open_view(view_id, user_id=_user().id)
+    opened = views.open_view(view_id, user_id=api_user().id)
     return json_ok(**opened)
 
 
-@bp.get(f"{API}/datasets/<int:dataset_id>/views")
+@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>/views")
 @requires("viewer")
 def list_views(dataset_id: int):
     ingest.dataset_info(dataset_id)
@@ -227,7 +204,7 @@ def _render_report(dataset_id: int, render):
     if proposal is not None and not proposal.isdigit():
         return None, Response("proposal must be a whole number", status=400, mimetype="text/plain")
     try:
-        return render(dataset_id, int(proposal) if proposal else None, printed_by=_user().display_name), None
+        return render(dataset_id, int(proposal) if proposal else None, printed_by=api_user().display_name), None
     except (ingest.DatasetNotFound, review.ProposalNotFound):
         return None, Response("not found", status=404, mimetype="text/plain")
 

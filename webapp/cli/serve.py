@@ -84,7 +84,8 @@ def prepare_demo(overrides: Mapping[str, Any]) -> list[tuple[str, str, str]]:
     """Home folder, secret key, schema, demo users (fresh random passwords), the two
     invented demo datasets and the lab scenario's approved reference model with three
     later weeks checked against it. Returns (name, role, password) per user."""
-    from webapp import auth, create_app
+    from webapp import auth
+    from webapp.app import create_app
     from webapp.services.demo_data import lab_scenario, survey_scenario
     from webapp.services.ingest import ingest_upload
     from webapp.store import accounts, session_scope
