@@ -3,7 +3,7 @@
 A model file is plain JSON anyone can read::
 
     {"format": "latentdesk-model", "version": 1, "analysis_version": "...",
-     "fingerprint": "...", "settings": {...}, "preprocessing": {...},
+     "fingerprint": "...", "hash_scheme": "rfc8785", "settings": {...}, "preprocessing": {...},
      "variables": [...], "loadings": [[...], ...], "eigenvalues": [...], "limits": {...}, ...}
 
 Floats are written with Python's shortest round-trip representation, so a
@@ -13,14 +13,17 @@ key, every shape and that the stored limits still follow from the stored
 eigenvalues; any problem is a ``ModelFileError`` naming it.
 
 A model's fingerprint (docs/design.md section 3) is the SHA-256 of canonical JSON
-(sorted keys, no spaces) of the dataset's SHA-256, the preprocessing
-settings, the variable selection, the number of components, the sorted
-excluded sample ids and the analysis version.
+(RFC 8785, ``analysis.canonical_json``) of the dataset's SHA-256, the
+preprocessing settings, the variable selection, the number of components,
+the sorted excluded sample ids and the analysis version.  A file names the
+canonical JSON its hashes were computed under in ``hash_scheme``: its
+fingerprint and, for a reference model, the SHA-256 the database keeps of
+the whole file.  Files written before the key existed read as
+``ld-json-ascii-1`` (``fingerprint_scheme``) and load as before.
 """
 
 from __future__ import annotations
 
-import hashlib
 import json
 import math
 import os
@@ -30,6 +33,7 @@ from pathlib import Path
 import numpy as np
 
 import analysis
+from analysis.canonical_json import LEGACY_ASCII, RFC8785, canonical_sha256
 from analysis.diagnostics import check_confidence
 from analysis.errors import InputError
 from analysis.pca import PCAModel
@@ -41,11 +45,6 @@ _LIMIT_RTOL = 1e-9
 
 class ModelFileError(InputError):
     """A model file that cannot be read: not JSON, another format or version, or damaged."""
-
-
-def canonical_json(obj) -> str:
-    """JSON with sorted keys and no spaces: equal content gives equal text."""
-    return json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
 
 
 def model_fingerprint(
@@ -69,7 +68,18 @@ def model_fingerprint(
     }
     if intake is not None:
         payload["intake"] = intake
-    return hashlib.sha256(canonical_json(payload).encode("ascii")).hexdigest()
+    return canonical_sha256(payload, RFC8785)
+
+
+def fingerprint_scheme(document: dict) -> str:
+    """The canonical JSON scheme a model file's hashes were computed under (``hash_scheme``).
+
+    A file without the key was written before it existed: ``ld-json-ascii-1``.
+    """
+    scheme = document.get("hash_scheme", LEGACY_ASCII)
+    if scheme not in (RFC8785, LEGACY_ASCII):
+        raise ModelFileError(f"unknown 'hash_scheme' {scheme!r} (known: {RFC8785}, {LEGACY_ASCII})")
+    return scheme
 
 
 def _float_or_none(value):
@@ -108,6 +118,7 @@ def model_to_dict(model: PCAModel, fingerprint=None, extra=None) -> dict:
         "version": FORMAT_VERSION,
         "analysis_version": analysis.__version__,
         "fingerprint": fingerprint,
+        "hash_scheme": RFC8785,
         "settings": {
             "n_components": int(model.n_components_),
             "scaling": model.scaling,
@@ -231,6 +242,7 @@ def model_from_dict(document) -> PCAModel:
         raise ModelFileError(
             f"model format version {version!r} is not supported; this LatentDesk reads version {FORMAT_VERSION}"
         )
+    fingerprint_scheme(document)  # an unknown scheme is refused
     settings = _require(document, "settings", dict)
     prep = _require(document, "preprocessing", dict)
     variables = _names(document, "variables")

@@ -41,20 +41,17 @@ INDEX_STRING = """<!DOCTYPE html>
 
 
 def _register_blueprints(server: Flask) -> None:
-    """The plain Flask routes: sign-in and sign-out, then the JSON API."""
+    """The plain Flask routes: sign-in and sign-out, then the JSON API. Routes take row ids
+    as ``<id:name>`` (``webapp.api.responses.IdConverter``); a JSON body too large or too
+    deeply nested is refused before any view reads it (after the sign-in check)."""
+    from webapp.api.responses import install_request_checks
     from webapp.api.routes import BLUEPRINTS
     from webapp.web import signin
 
+    install_request_checks(server)
     server.register_blueprint(signin.bp)
     for blueprint in BLUEPRINTS:
         server.register_blueprint(blueprint)
-
-
-def _security_headers(response):
-    response.headers.setdefault("X-Content-Type-Options", "nosniff")
-    response.headers.setdefault("X-Frame-Options", "DENY")
-    response.headers.setdefault("Referrer-Policy", "same-origin")
-    return response
 
 
 def _assets_folder() -> Path:
@@ -104,6 +101,8 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     key is missing outside demo mode.
     """
     from webapp import auth, store
+    from webapp.services import webhooks
+    from webapp.web import security_headers
 
     settings = load_config(config)
     Path(settings["HOME"]).mkdir(parents=True, exist_ok=True)
@@ -117,7 +116,8 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
 
     store.init_app(server)
     auth.init_app(server)
+    webhooks.init_app(server)
     _register_blueprints(server)
-    server.after_request(_security_headers)
     _mount_dash(server)
+    security_headers.init_app(server, server.extensions[DASH_KEY].csp_hashes)
     return server

@@ -34,7 +34,7 @@ from analysis.monitoring.limits import (
     check_confidence_levels,
     score_limits,
 )
-from analysis.monitoring.scoring import NewSampleScores, score_new_samples
+from analysis.monitoring.scoring import NewSampleScores, combined_index, score_new_samples
 from analysis.monitoring.contributions import (
     RBC_DIRECTION_TOL,
     ReconstructionContributions,
@@ -49,7 +49,9 @@ from analysis.monitoring.run_rules import (
     RunOneSide,
     Trend,
     check_run_rules,
+    longest_window,
     rule_from_config,
+    rules_from_config,
 )
 from analysis.monitoring.ewma_charts import (
     MEWMA_BLOCK,
@@ -66,6 +68,7 @@ from analysis.monitoring.ewma_charts import (
 from analysis.monitoring.explanation import explain_new_sample
 
 __all__ = [
+    "combined_index",
     # limits
     "DEFAULT_CONFIDENCE_LEVELS",
     "LEVELS",
@@ -89,7 +92,9 @@ __all__ = [
     "RunOneSide",
     "Trend",
     "check_run_rules",
+    "longest_window",
     "rule_from_config",
+    "rules_from_config",
     # ewma
     "MEWMA_BLOCK",
     "MEWMA_HORIZON",

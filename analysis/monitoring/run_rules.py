@@ -51,9 +51,14 @@ def _check_level(level) -> None:
         raise InputError(f"level={level!r} must be 'warning' or 'action'")
 
 
-def _check_count(name: str, value, minimum: int) -> None:
+MAX_WINDOW = 50  # the longest pattern a rule may look at (common practice uses 9 or fewer points)
+
+
+def _check_count(name: str, value, minimum: int, maximum: int | None = None) -> None:
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < minimum:
         raise InputError(f"{name}={value!r} must be a whole number of at least {minimum}")
+    if maximum is not None and value > maximum:
+        raise InputError(f"{name}={value!r} must be a whole number from {minimum} to {maximum}")
 
 
 def _beyond(x: np.ndarray, chart: ChartLimits, level: str):
@@ -105,6 +110,11 @@ class BeyondLimit:
     def config(self) -> dict:
         return {"rule": self.kind, "level": self.level}
 
+    @property
+    def window(self) -> int:
+        """Points the rule looks at, the one it fires at included."""
+        return 1
+
     def violations(self, x: np.ndarray, chart: ChartLimits) -> list[RuleViolation]:
         return [
             RuleViolation(self.id, self.label, self.source, (i,), i, side)
@@ -131,7 +141,7 @@ class KOfMBeyond:
 
     def __post_init__(self):
         _check_count("k", self.k, 1)
-        _check_count("m (window)", self.m, max(int(self.k), 1))
+        _check_count("m (window)", self.m, max(int(self.k), 1), MAX_WINDOW)
         _check_level(self.level)
 
     @property
@@ -150,6 +160,11 @@ class KOfMBeyond:
 
     def config(self) -> dict:
         return {"rule": self.kind, "k": int(self.k), "m": int(self.m), "level": self.level}
+
+    @property
+    def window(self) -> int:
+        """Points the rule looks at, the one it fires at included."""
+        return int(self.m)
 
     def violations(self, x: np.ndarray, chart: ChartLimits) -> list[RuleViolation]:
         found = []
@@ -175,7 +190,7 @@ class RunOneSide:
     kind: ClassVar[str] = "run"
 
     def __post_init__(self):
-        _check_count("length", self.length, 2)
+        _check_count("length", self.length, 2, MAX_WINDOW)
 
     @property
     def id(self) -> str:
@@ -194,6 +209,11 @@ class RunOneSide:
 
     def config(self) -> dict:
         return {"rule": self.kind, "length": int(self.length)}
+
+    @property
+    def window(self) -> int:
+        """Points the rule looks at, the one it fires at included."""
+        return int(self.length)
 
     def violations(self, x: np.ndarray, chart: ChartLimits) -> list[RuleViolation]:
         if chart.centre is None:
@@ -217,7 +237,7 @@ class Trend:
     kind: ClassVar[str] = "trend"
 
     def __post_init__(self):
-        _check_count("length", self.length, 3)
+        _check_count("length", self.length, 3, MAX_WINDOW)
 
     @property
     def id(self) -> str:
@@ -233,6 +253,11 @@ class Trend:
 
     def config(self) -> dict:
         return {"rule": self.kind, "length": int(self.length)}
+
+    @property
+    def window(self) -> int:
+        """Points the rule looks at, the one it fires at included."""
+        return int(self.length)
 
     def violations(self, x: np.ndarray, chart: ChartLimits) -> list[RuleViolation]:
         step = np.diff(x)
@@ -262,6 +287,30 @@ def rule_from_config(config) -> BeyondLimit | KOfMBeyond | RunOneSide | Trend:
     if unknown:
         raise InputError(f"run rule {config['rule']!r} has no setting(s) {', '.join(unknown)}")
     return cls(**params)
+
+
+def rules_from_config(configs) -> tuple:
+    """Run rules from a list of ``config()`` dicts; InputError naming the first bad one."""
+    if not isinstance(configs, (list, tuple)) or not configs:
+        raise InputError("run rules are given as a non-empty list of rule settings, e.g. "
+                         '[{"rule": "beyond", "level": "action"}, {"rule": "run", "length": 8}]')
+    rules = []
+    for position, config in enumerate(configs):
+        try:
+            rules.append(rule_from_config(config))
+        except (InputError, TypeError) as exc:
+            raise InputError(f"run rule {position + 1}: {exc}") from exc
+    ids = [rule.id for rule in rules]
+    repeated = sorted({i for i in ids if ids.count(i) > 1})
+    if repeated:
+        raise InputError(f"run rule(s) given more than once: {', '.join(repeated)}")
+    return tuple(rules)
+
+
+def longest_window(rules) -> int:
+    """The most points any of ``rules`` looks at: a rule's firing at a new point depends on that
+    point and the ``longest_window - 1`` points before it only."""
+    return max((rule.window for rule in rules), default=1)
 
 
 def _series(values, what: str) -> np.ndarray:

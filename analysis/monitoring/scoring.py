@@ -220,6 +220,17 @@ def _new_rows(model: PCAModel, X) -> tuple[np.ndarray, list | None, np.ndarray]:
     return values, ids, missing.any(axis=1)
 
 
+def combined_index(model: PCAModel, t2, spe, confidence_levels=DEFAULT_CONFIDENCE_LEVELS,
+                   spe_method: str = "jackson-mudholkar") -> tuple[np.ndarray, ChartLimits]:
+    """(phi, its chart limits) of given T² and SPE values (Yue & Qin 2001; ``score_new_samples``)."""
+    _check_fitted(model)
+    levels = check_confidence_levels(confidence_levels)
+    t2, spe = (np.asarray(v, dtype=np.float64).ravel() for v in (t2, spe))
+    if t2.shape != spe.shape:
+        raise InputError(f"T² and SPE must have one value per sample each, got {t2.size} and {spe.size}")
+    return _combined_index(model, t2, spe, levels, model.spe_limit(levels[1], spe_method))
+
+
 def _combined_index(model, t2, spe, levels, spe_action):
     """phi and its chart (Yue & Qin 2001); see ``score_new_samples``."""
     if spe_action <= 0.0:

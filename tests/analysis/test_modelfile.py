@@ -6,6 +6,7 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
+import rfc8785
 from sklearn.datasets import load_wine
 
 import analysis
@@ -15,6 +16,7 @@ from analysis.modelfile import (
     FORMAT_NAME,
     FORMAT_VERSION,
     ModelFileError,
+    fingerprint_scheme,
     load_model,
     model_fingerprint,
     model_from_dict,
@@ -168,9 +170,9 @@ def test_damaged_files_name_the_file(tmp_path, document):
 
 
 def test_fingerprint_is_sha256_of_canonical_json():
-    # docs/design.md section 3: SHA-256 of canonical JSON (sorted keys, separators (",", ":")) of the dataset SHA-256,
+    # docs/design.md section 3: SHA-256 of RFC 8785 canonical JSON of the dataset SHA-256,
     # preprocessing, variable selection, component count, sorted excluded ids and the analysis version.
-    # Reference: Python's hashlib/json (FIPS 180-4 SHA-256; RFC 8259 JSON).
+    # Reference: hashlib (FIPS 180-4 SHA-256) over the rfc8785 package's bytes (RFC 8785, 2020).
     expected_payload = {
         "analysis_version": analysis.__version__,
         "dataset_sha256": "f" * 64,
@@ -180,12 +182,49 @@ def test_fingerprint_is_sha256_of_canonical_json():
         "n_components": 3,
         "excluded": ["s1", "s2"],
     }
-    expected = hashlib.sha256(
-        json.dumps(expected_payload, sort_keys=True, separators=(",", ":")).encode()
-    ).hexdigest()
+    expected = hashlib.sha256(rfc8785.dumps(expected_payload)).hexdigest()
     got = model_fingerprint("f" * 64, "autoscale", ["b", "a"], ["c", "a", "b"], 3, ["s2", "s1"])
     assert got == expected
     assert model_fingerprint("f" * 64, "autoscale", ["a", "b"], ["c", "a", "b"], 3, ["s1", "s2"]) == expected
+
+
+def test_fingerprint_of_non_ascii_names_is_rfc8785_not_escaped_text():
+    # RFC 8785 section 3.2.2.2: text outside the control characters is written as UTF-8, not \u escapes
+    # (which the fingerprint used before, scheme ld-json-ascii-1).
+    payload = {
+        "analysis_version": analysis.__version__, "dataset_sha256": "e" * 64, "scaling": "autoscale",
+        "log10": [], "variables": ["Fe µg/L", "\U0001d4b3 index"], "n_components": 1, "excluded": ["Probe-Ü"],
+        "intake": {"roles": {"\U0001f600": "id", "\ufb33": "group"}},
+    }
+    got = model_fingerprint("e" * 64, "autoscale", [], ["Fe µg/L", "\U0001d4b3 index"], 1, ["Probe-Ü"],
+                            intake={"roles": {"\U0001f600": "id", "\ufb33": "group"}})
+    assert got == hashlib.sha256(rfc8785.dumps(payload)).hexdigest()
+    legacy = json.dumps(payload, sort_keys=True, separators=(",", ":"), ensure_ascii=True)
+    assert got != hashlib.sha256(legacy.encode("ascii")).hexdigest()
+
+
+def test_new_files_name_their_scheme_and_files_of_the_older_code_still_load(tmp_path, wine):
+    original = PCAModel(n_components=2).fit(wine)
+    path = tmp_path / "model.json"
+    save_model(original, path, fingerprint="f" * 64)
+    document = json.loads(path.read_text(encoding="utf-8"))
+    assert document["hash_scheme"] == "rfc8785" and fingerprint_scheme(document) == "rfc8785"
+    # The older code wrote the same document without the key (format version 1 throughout).
+    del document["hash_scheme"]
+    old = tmp_path / "old.json"
+    old.write_text(json.dumps(document, indent=1), encoding="utf-8")
+    loaded, read_back = read_model_file(old)
+    assert fingerprint_scheme(read_back) == "ld-json-ascii-1" and read_back["fingerprint"] == "f" * 64
+    _assert_same_behaviour(original, loaded, wine)
+
+
+def test_an_unknown_hash_scheme_is_refused(tmp_path, wine):
+    document = model_to_dict(PCAModel(n_components=2).fit(wine), "f" * 64)
+    document["hash_scheme"] = "sorted-keys"
+    path = tmp_path / "model.json"
+    path.write_text(json.dumps(document), encoding="utf-8")
+    with pytest.raises(ModelFileError, match="model file model.json: unknown 'hash_scheme' 'sorted-keys'"):
+        load_model(path)
 
 
 def test_fingerprint_changes_with_every_input(monkeypatch):

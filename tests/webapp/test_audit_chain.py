@@ -1,18 +1,23 @@
 """The review log's hash chain: canonical JSON, entry hashes, verification, tampering.
 
 Sources: SHA-256 test vector "abc" from NIST FIPS 180-2 (2002), Appendix B.1; canonical JSON
-as in RFC 8785 (JSON Canonicalization Scheme, 2020) section 3.2.3 (members sorted by name) for
-the subset we use (strings, integers, maps, lists); a hash chain where each record carries the
-digest of its predecessor (Haber & Stornetta 1991, "How to time-stamp a digital document",
-Journal of Cryptology 3(2), 99-111).  The database part runs on SQLite and on PostgreSQL.
+by RFC 8785 (JSON Canonicalization Scheme, Rundgren, Jordan & Erdtman 2020), computed here with
+the ``rfc8785`` package directly (its own examples are checked in tests/analysis/test_canonical_json.py);
+entries written before migration 0006_hash_scheme by the legacy form ``ld-json-1``, Python's
+``json.dumps(sort_keys=True, separators=(",", ":"), ensure_ascii=False)``, written out here; a hash
+chain where each record carries the digest of its predecessor (Haber & Stornetta 1991, "How to
+time-stamp a digital document", Journal of Cryptology 3(2), 99-111).  The database part runs on
+SQLite and on PostgreSQL.
 """
 
 from __future__ import annotations
 
 import hashlib
+import json
 from datetime import datetime, timezone
 
 import pytest
+import rfc8785
 
 from webapp.services import audit
 
@@ -22,24 +27,6 @@ def test_sha256_is_the_standard_one():
     assert hashlib.sha256(b"abc").hexdigest() == (
         "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
     )
-
-
-def test_canonical_json_sorts_keys_and_drops_whitespace():
-    # RFC 8785 section 3.2.3: members sorted by name; no whitespace between tokens.
-    assert audit.canonical_json({"b": 1, "a": [2, {"d": "x", "c": None}]}) == (
-        '{"a":[2,{"c":null,"d":"x"}],"b":1}'
-    )
-
-
-def test_canonical_json_keeps_non_ascii_as_utf8():
-    # RFC 8785 section 3.2.2.2: strings are output as UTF-8, not \u escapes, outside control chars.
-    assert audit.canonical_json({"name": "Jörg Ødegård"}) == '{"name":"Jörg Ødegård"}'
-
-
-def test_canonical_json_refuses_nan():
-    # RFC 8259 section 6: NaN and Infinity are not JSON numbers.
-    with pytest.raises(ValueError):
-        audit.canonical_json({"x": float("nan")})
 
 
 def test_json_safe_turns_non_finite_into_null():
@@ -75,8 +62,18 @@ def test_entry_hash_is_sha256_of_the_hand_written_canonical_body():
     assert got == expected
 
 
-def _chain(n: int) -> list[dict]:
-    """Build a chain by the definition in the module docstring (independent of verify)."""
+def _legacy_bytes(body) -> bytes:
+    """The ld-json-1 form, written out here: what entries were hashed over before 0006_hash_scheme."""
+    return json.dumps(body, sort_keys=True, separators=(",", ":"), ensure_ascii=False).encode("utf-8")
+
+
+def _chain(n: int, schemes=None) -> list[dict]:
+    """Build a chain by the definition in the module docstring (independent of verify).
+
+    ``schemes`` lists each entry's scheme (default: all ``rfc8785``).
+    """
+    schemes = schemes or ["rfc8785"] * n
+    serialise = {"rfc8785": rfc8785.dumps, "ld-json-1": _legacy_bytes}
     entries, prev = [], audit.GENESIS_HASH
     for seq in range(1, n + 1):
         entry = {
@@ -86,8 +83,11 @@ def _chain(n: int) -> list[dict]:
             "actor_name": f"user {seq % 3}",
             "action": "propose" if seq % 2 else "approve",
             "dataset_id": 1,
-            "payload": {"n": seq, "samples": [f"S{seq}"]},
+            # 1e-7, 1e16 and a name outside the BMP: the two schemes give different bytes for them.
+            "payload": {"n": seq, "samples": [f"S{seq}"], "limit": 1e-7 * seq, "big": 1e16, "\ufb33": 1,
+                        "\U0001f600": "Grün"},
             "prev_hash": prev,
+            "hash_scheme": schemes[seq - 1],
         }
         body = {
             "seq": seq,
@@ -98,8 +98,7 @@ def _chain(n: int) -> list[dict]:
             "payload": entry["payload"],
             "prev_hash": prev,
         }
-        text = audit.canonical_json(body)
-        entry["hash"] = hashlib.sha256(text.encode("utf-8")).hexdigest()
+        entry["hash"] = hashlib.sha256(serialise[entry["hash_scheme"]](body)).hexdigest()
         prev = entry["hash"]
         entries.append(entry)
     return entries
@@ -154,6 +153,46 @@ def test_entry_added_behind_the_heads_back_is_caught():
     assert (ok, broken) == (False, 4), reason
 
 
+def test_each_entry_verifies_under_its_recorded_scheme():
+    entries = _chain(6, ["ld-json-1"] * 3 + ["rfc8785"] * 3)
+    assert audit.verify_entries(entries, _head(entries)) == (True, None, "intact: 6 entries")
+
+
+@pytest.mark.parametrize("victim,other", [(2, "rfc8785"), (5, "ld-json-1")])
+def test_relabelling_an_entrys_scheme_is_caught(victim, other):
+    entries = _chain(6, ["ld-json-1"] * 3 + ["rfc8785"] * 3)
+    entries[victim - 1]["hash_scheme"] = other
+    ok, broken, reason = audit.verify_entries(entries, _head(entries))
+    assert not ok and broken == victim, reason
+
+
+def test_a_legacy_entry_after_an_rfc8785_one_is_refused():
+    entries = _chain(3, ["rfc8785", "ld-json-1", "ld-json-1"])
+    ok, broken, reason = audit.verify_entries(entries, _head(entries))
+    assert (ok, broken) == (False, 2) and "legacy" in reason
+
+
+def test_an_unknown_scheme_is_refused():
+    entries = _chain(2)
+    entries[1]["hash_scheme"] = "ld-json-ascii-1"  # the model files' legacy form, never the log's
+    ok, broken, reason = audit.verify_entries(entries, _head(entries))
+    assert (ok, broken) == (False, 2) and "unknown hashing scheme 'ld-json-ascii-1'" in reason
+
+
+def test_entry_hash_follows_rfc8785_numbers_and_key_order():
+    at = datetime(2026, 1, 2, 3, 4, 5, 6, tzinfo=timezone.utc)
+    # Written by hand after RFC 8785: 1e-7 and 1e16 as ECMAScript writes them (section 3.2.2.3),
+    # U+1F600 (UTF-16 D83D DE00) before U+FB33 (section 3.2.3).
+    text = (
+        '{"action":"note","actor":{"id":null,"name":"System"},"at":"2026-01-02T03:04:05.000006Z",'
+        '"dataset_id":null,"payload":{"big":10000000000000000,"limit":1e-7,"\U0001f600":1,"\ufb33":2},'
+        '"prev_hash":"' + "0" * 64 + '","seq":1}'
+    )
+    got = audit.entry_hash(seq=1, at=at, actor={"id": None, "name": "System"}, action="note", dataset_id=None,
+                           payload={"limit": 1e-7, "big": 1e16, "\ufb33": 2, "\U0001f600": 1}, prev_hash="0" * 64)
+    assert got == hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
 # --- the stored chain, on SQLite and PostgreSQL -------------------------------------------
 
 from sqlalchemy.exc import DBAPIError  # noqa: E402
@@ -198,6 +237,29 @@ def _as_superuser(app, sql: str) -> None:
 
 def test_stored_chain_verifies(stored_chain):
     assert _verify(stored_chain) == (True, None, "intact: 5 entries")
+
+
+def test_a_new_entrys_hash_is_recomputed_from_its_stored_columns_with_rfc8785(stored_chain):
+    """What an auditor does in any language: read the row, build the body, RFC 8785, SHA-256."""
+    with stored_chain.app_context(), session_scope() as s:
+        audit.append(s, actor_id=None, actor_name="Ana Analyst", action="note",
+                     payload={"limit": 1e-7, "big": 1e16, "\ufb33": "dalet", "\U0001f600": "Grün"})
+    with get_engine(stored_chain).connect() as conn:
+        row = conn.exec_driver_sql(
+            "SELECT seq, at, actor_id, actor_name, action, dataset_id, payload, prev_hash, hash, hash_scheme "
+            "FROM review_log ORDER BY seq DESC LIMIT 1"
+        ).mappings().one()
+    at = row["at"] if isinstance(row["at"], datetime) else datetime.fromisoformat(row["at"])
+    payload = json.loads(row["payload"]) if isinstance(row["payload"], str) else row["payload"]
+    body = {
+        "seq": row["seq"], "at": at.strftime("%Y-%m-%dT%H:%M:%S.%fZ"),
+        "actor": {"id": row["actor_id"], "name": row["actor_name"]}, "action": row["action"],
+        "dataset_id": row["dataset_id"], "payload": payload, "prev_hash": row["prev_hash"],
+    }
+    assert row["hash_scheme"] == "rfc8785"
+    assert hashlib.sha256(rfc8785.dumps(body)).hexdigest() == row["hash"]
+    assert hashlib.sha256(_legacy_bytes(body)).hexdigest() != row["hash"]  # the payload tells the schemes apart
+    assert _verify(stored_chain) == (True, None, "intact: 6 entries")
 
 
 @pytest.mark.parametrize("statement", ["UPDATE review_log SET action = 'x' WHERE seq = 2",

@@ -342,7 +342,7 @@ def test_a_drift_across_two_batches_is_caught_by_a_run_rule(client, team, ref_id
     }]
     assert last["flagged"] and two["n_flagged"] >= 1 and two["state"] == "open"
     chart = _ok(client.get(f"/api/v1/reference-models/{ref_id}/chart", headers=team["viewer"].headers))["chart"]
-    assert [s["sample"] for s in chart["samples"]] == [f"D-{k + 1}" for k in range(6)]
+    assert chart["series"]["sample"] == [f"D-{k + 1}" for k in range(6)]
     assert [(b["id"], b["first_run"], b["last_run"]) for b in chart["batches"]] == [(one["id"], 1, 3),
                                                                                  (two["id"], 4, 6)]
     assert any(v["rule"] == "6-trend" and v["fired_at_sample"] == "D-6" for v in chart["violations"])

@@ -92,15 +92,17 @@ def checked(app, team, ref_id):
 
 # ---------------------------------------------------------------- figure builders
 def _hand_chart(n: int) -> dict:
-    """A chart dict written by hand: two batches, sample 3 flagged, sample 2 beyond the warning limit."""
-    samples = [
-        {"sample": f"S{i}", "run_index": i, "batch_id": 7 if i <= n // 2 else 8, "t2": float(i), "spe": 0.5 * i,
-         "scores": [i - 3.0, 1.0], "flagged": i == 3, "t2_exceeds_warning": i in (2, 3),
-         "spe_exceeds_warning": False}
-        for i in range(1, n + 1)
-    ]
+    """A chart dict written by hand: two batches, sample 3 flagged, sample 2 beyond the T² warning limit
+    (7 > 6.25) only."""
+    runs = range(1, n + 1)
+    series = {
+        "sample": [f"S{i}" for i in runs], "run_index": list(runs),
+        "batch_id": [7 if i <= n // 2 else 8 for i in runs],
+        "t2": [{2: 7.0, 3: 10.0}.get(i, 1.0 + i % 3) for i in runs], "spe": [0.25 * (i % 4) for i in runs],
+        "scores": [[i - 3.0 for i in runs], [1.0] * n], "flagged": [i == 3 for i in runs], "outcome": [None] * n,
+    }
     return {
-        "name": "Line 9", "version": 2, "n_training_samples": 40, "samples": samples,
+        "name": "Line 9", "version": 2, "n_training_samples": 40, "series": series,
         "limits": {"t2_limit": 9.5, "t2_warning_limit": 6.25, "spe_limit": 4.0, "spe_warning_limit": 3.0,
                    "confidence": {"warning": 0.95, "action": 0.99}},
         "batches": [{"id": 7, "first_run": 1}, {"id": 8, "first_run": n // 2 + 1}, {"id": 9, "first_run": 0}],
@@ -120,7 +122,7 @@ def test_chart_marks_flagged_points_by_shape_and_draws_limits_and_boundaries():
     fig = mf.control_chart_figure(chart, "t2")
     by_name = {t.name: t for t in fig.data}
     flagged = by_name["Flagged (action limit or run rule)"]
-    assert list(flagged.x) == [3] and list(flagged.y) == [3.0] and flagged.marker.symbol == "x"
+    assert list(flagged.x) == [3] and list(flagged.y) == [10.0] and flagged.marker.symbol == "x"
     assert list(by_name["Beyond the warning limit only"].x) == [2]
     assert list(by_name["Within the warning limit"].x) == [1, 4, 5, 6]
     assert len({t.marker.symbol for t in fig.data}) == 3  # shape, not colour alone
@@ -138,11 +140,12 @@ def test_score_chart_values_and_webgl_above_the_threshold():
     values = np.concatenate([np.asarray(t.y) for t in fig.data])
     assert sorted(values) == sorted(i - 3.0 for i in range(1, 2401))
     assert _hlines(fig) == [0.0]  # no score limits given: the centre line only
-    assert list(mf.statistic_values(chart["samples"][:3], "PC2")) == [1.0, 1.0, 1.0]
+    assert list(mf.statistic_values(chart["series"], "PC2")[:3]) == [1.0, 1.0, 1.0]
 
 
 def test_empty_chart_says_so():
-    chart = {**_hand_chart(1), "samples": [], "batches": []}
+    chart = {**_hand_chart(1), "batches": []}
+    chart["series"] = {key: [] for key in chart["series"]}
     fig = mf.control_chart_figure(chart, "spe")
     assert not fig.data and "No batch has been checked" in fig.layout.annotations[0].text
 

@@ -9,6 +9,7 @@ US FDA 21 CFR Part 11 section 11.50 (printed name, date and time, meaning) and 1
 from __future__ import annotations
 
 import io
+from html.parser import HTMLParser
 
 import pytest
 from review_helpers import actor, propose, sign
@@ -379,6 +380,49 @@ def test_signoff_report_names_the_signature_and_escapes_user_text(client, team, 
     assert "<svg" in html  # explained variance before/after as a static chart
     assert client.get(f"/-/review/datasets/{dataset_id}/report?proposal=999",
                       headers=team["viewer"].headers).status_code == 404
+
+
+HOSTILE = "<script>alert(1)</script> \"'&"
+
+
+class _Reader(HTMLParser):
+    """The elements a browser would build from the page, and its text with references decoded."""
+
+    def __init__(self):
+        super().__init__(convert_charrefs=True)
+        self.tags, self.text = [], []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append(tag)
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+def test_signoff_report_shows_a_hostile_sample_id_reason_and_printed_name_as_text(app, client, team):
+    # HTML Living Standard, section 13.1.2: "<" opens a tag and "&" a character reference, and quotes
+    # end attribute values; all of them must reach the page as references and be read back as text.
+    frame = wine_frame().head(40)
+    frame.loc[2, "sample"] = HOSTILE
+    upload = client.post(
+        "/api/v1/datasets", data={"file": (io.BytesIO(wine_csv(frame)), "hostile.csv"), "id_column": "sample"},
+        headers=team["analyst"].headers, content_type="multipart/form-data",
+    )
+    assert upload.status_code == 201, upload.get_json()
+    dataset_id = upload.get_json()["dataset"]["id"]
+    made = propose(client, team["analyst"], dataset_id, samples=(HOSTILE,), reason=HOSTILE)
+    assert made.status_code == 201, made.get_json()
+    signer = actor(app, "reviewer", HOSTILE)
+    assert sign(client, signer, made.get_json()["proposal"]["id"]).status_code == 200
+    html = client.get(f"/-/review/datasets/{dataset_id}/report", headers=team["viewer"].headers).get_data(as_text=True)
+    assert "<script>" not in html and "\"'&" not in html
+    reader = _Reader()
+    reader.feed(html)
+    assert "script" not in reader.tags
+    text = "".join(reader.text)
+    assert f"exclude {HOSTILE}" in text  # the sample id in the proposal's heading
+    assert f"Reason: {HOSTILE}" in text and f"Printed name: {HOSTILE}" in text
+    assert f"approved exclusions now{HOSTILE}" in text
 
 
 def test_dataset_page_links_follow_selection_and_role():

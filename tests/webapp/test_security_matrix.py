@@ -48,10 +48,10 @@ class Route:
 
 
 def _fill(rule: Rule) -> str:
-    """A concrete path for a rule: numbers for ints, a harmless word otherwise."""
+    """A concrete path for a rule: numbers for ints and ids, a harmless word otherwise."""
     def value(match: re.Match) -> str:
         converter = match.group(1) or "default"
-        return {"int": "1", "float": "1.0", "path": "x/y"}.get(converter, "x1")
+        return {"int": "1", "id": "1", "float": "1.0", "path": "x/y"}.get(converter, "x1")
 
     return re.sub(r"<(?:(\w+)(?:\([^)]*\))?:)?\w+>", value, rule.rule)
 

@@ -25,7 +25,7 @@ def _not_found() -> Response:
     return Response("not found", status=404, mimetype="text/plain")
 
 
-@bp.get("/-/monitoring/batches/<int:batch_id>/report")
+@bp.get("/-/monitoring/batches/<id:batch_id>/report")
 @requires("viewer")
 def batch_report(batch_id: int):
     from webapp.services.batch_report import report_html
@@ -37,7 +37,7 @@ def batch_report(batch_id: int):
     return Response(html, mimetype="text/html", headers=NO_STORE)
 
 
-@bp.get("/-/monitoring/batches/<int:batch_id>/report.pdf")
+@bp.get("/-/monitoring/batches/<id:batch_id>/report.pdf")
 @requires("viewer")
 def batch_report_pdf(batch_id: int):
     from webapp.services.batch_pdf import report_pdf

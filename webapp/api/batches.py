@@ -55,7 +55,7 @@ def _retest() -> bool:
     return value in TRUE
 
 
-@bp.post(f"{API_PREFIX}/reference-models/<int:reference_model_id>/batches")
+@bp.post(f"{API_PREFIX}/reference-models/<id:reference_model_id>/batches")
 @requires("analyst")
 def check_batch(reference_model_id: int):
     request.max_content_length = max_upload_bytes() + MULTIPART_ALLOWANCE
@@ -75,37 +75,38 @@ def check_batch(reference_model_id: int):
     return json_ok(status=201, batch=batch)
 
 
-@bp.get(f"{API_PREFIX}/batches/<int:batch_id>")
+@bp.get(f"{API_PREFIX}/batches/<id:batch_id>")
 @requires("viewer")
 def get_batch(batch_id: int):
     return json_ok(batch=batches.batch_info(batch_id))
 
 
-@bp.get(f"{API_PREFIX}/batches/<int:batch_id>/samples.csv")
+@bp.get(f"{API_PREFIX}/batches/<id:batch_id>/samples.csv")
 @requires("viewer")
 def batch_samples_csv(batch_id: int):
     return _csv(batches.batch_samples_frame(batch_id), f"batch-{batch_id}-samples.csv")
 
 
-@bp.get(f"{API_PREFIX}/batches/<int:batch_id>/contributions/<path:sample_id>")
+@bp.get(f"{API_PREFIX}/batches/<id:batch_id>/contributions/<path:sample_id>")
 @requires("viewer")
 def sample_contributions(batch_id: int, sample_id: str):
     return json_ok(**batches.sample_contributions(batch_id, sample_id))
 
 
-@bp.get(f"{API_PREFIX}/reference-models/<int:reference_model_id>/chart")
+@bp.get(f"{API_PREFIX}/reference-models/<id:reference_model_id>/chart")
 @requires("viewer")
 def chart(reference_model_id: int):
-    return json_ok(chart=batches.chart(reference_model_id))
+    derived = request.args.get("derived") or None
+    return json_ok(chart=batches.chart(reference_model_id, derived=derived))
 
 
-@bp.get(f"{API_PREFIX}/reference-models/<int:reference_model_id>/chart.csv")
+@bp.get(f"{API_PREFIX}/reference-models/<id:reference_model_id>/chart.csv")
 @requires("viewer")
 def chart_csv(reference_model_id: int):
     return _csv(batches.chart_frame(reference_model_id), f"reference-model-{reference_model_id}-chart.csv")
 
 
-@bp.post(f"{API_PREFIX}/batches/<int:batch_id>/outcomes")
+@bp.post(f"{API_PREFIX}/batches/<id:batch_id>/outcomes")
 @requires("reviewer")
 def record_outcome(batch_id: int):
     body = json_body(OUTCOME_FIELDS, required=("samples", "outcome", "reason"))

@@ -140,7 +140,7 @@ def list_datasets():
     return json_ok(datasets=ingest.list_datasets())
 
 
-@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>")
+@bp.get(f"{API_PREFIX}/datasets/<id:dataset_id>")
 @requires("viewer")
 def get_dataset(dataset_id: int):
     dataset = ingest.dataset_info(dataset_id)
@@ -148,13 +148,13 @@ def get_dataset(dataset_id: int):
     return json_ok(dataset=dataset)
 
 
-@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>/models")
+@bp.get(f"{API_PREFIX}/datasets/<id:dataset_id>/models")
 @requires("viewer")
 def list_models(dataset_id: int):
     return json_ok(dataset_id=dataset_id, models=modelling.recorded_models(dataset_id))
 
 
-@bp.post(f"{API_PREFIX}/datasets/<int:dataset_id>/models")
+@bp.post(f"{API_PREFIX}/datasets/<id:dataset_id>/models")
 @requires("analyst")
 def fit_model(dataset_id: int):
     # Without "exclude" the approved exclusions apply; an explicit list is a what-if preview.
@@ -175,7 +175,7 @@ def _confidence_arg() -> float | None:
     return confidence
 
 
-@bp.get(f"{API_PREFIX}/models/<int:model_id>")
+@bp.get(f"{API_PREFIX}/models/<id:model_id>")
 @requires("viewer")
 def get_model(model_id: int):
     _, info = modelling.model_by_id(model_id, confidence=_confidence_arg())
@@ -204,7 +204,7 @@ def _plain(values) -> list:
     return pd.Series(values, dtype=object).where(pd.notna(pd.Series(values)), None).tolist()
 
 
-@bp.get(f"{API_PREFIX}/models/<int:model_id>/samples")
+@bp.get(f"{API_PREFIX}/models/<id:model_id>/samples")
 @requires("viewer")
 def model_samples(model_id: int):
     frame = modelling.samples_table(model_id, confidence=_confidence_arg())
@@ -237,14 +237,14 @@ def model_samples(model_id: int):
     return json_response(body, 200)
 
 
-@bp.get(f"{API_PREFIX}/models/<int:model_id>/samples.csv")
+@bp.get(f"{API_PREFIX}/models/<id:model_id>/samples.csv")
 @requires("viewer")
 def model_samples_csv(model_id: int):
     frame = modelling.samples_table(model_id, confidence=_confidence_arg())
     return _csv(frame, f"model-{model_id}-samples.csv")
 
 
-@bp.get(f"{API_PREFIX}/models/<int:model_id>/variables")
+@bp.get(f"{API_PREFIX}/models/<id:model_id>/variables")
 @requires("viewer")
 def model_variables(model_id: int):
     frame = modelling.variables_table(model_id)
@@ -261,13 +261,13 @@ def model_variables(model_id: int):
     return json_ok(model_id=model_id, fingerprint=frame.attrs["model"]["fingerprint"], variables=variables)
 
 
-@bp.get(f"{API_PREFIX}/models/<int:model_id>/variables.csv")
+@bp.get(f"{API_PREFIX}/models/<id:model_id>/variables.csv")
 @requires("viewer")
 def model_variables_csv(model_id: int):
     return _csv(modelling.variables_table(model_id), f"model-{model_id}-variables.csv")
 
 
-@bp.get(f"{API_PREFIX}/models/<int:model_id>/contributions/<path:sample_id>")
+@bp.get(f"{API_PREFIX}/models/<id:model_id>/contributions/<path:sample_id>")
 @requires("viewer")
 def sample_contributions(model_id: int, sample_id: str):
     result = modelling.contributions(model_id, sample_id, confidence=_confidence_arg())

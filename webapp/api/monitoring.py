@@ -18,7 +18,7 @@ from webapp.services import reference_models as reference
 from webapp.services.exports import to_csv_bytes
 
 bp = Blueprint("api_monitoring", __name__)
-PROPOSE_FIELDS = {"model_id", "name", "note", "confidence"}
+PROPOSE_FIELDS = {"model_id", "name", "note", "confidence", "run_rules"}
 SIGN_FIELDS = {"password", "comment"}
 register_common_errors(bp)
 
@@ -48,6 +48,7 @@ def propose():
         body.get("note", ""),
         body.get("confidence", list(reference.DEFAULT_CONFIDENCE)),
         user=api_user(),
+        run_rules=body.get("run_rules"),
     )
     return json_ok(status=201, reference_model=proposed)
 
@@ -58,19 +59,19 @@ def _sign(reference_model_id: int, sign):
     return json_ok(reference_model=signed)
 
 
-@bp.post(f"{API_PREFIX}/reference-models/<int:reference_model_id>/approve")
+@bp.post(f"{API_PREFIX}/reference-models/<id:reference_model_id>/approve")
 @requires("reviewer")
 def approve(reference_model_id: int):
     return _sign(reference_model_id, reference.approve)
 
 
-@bp.post(f"{API_PREFIX}/reference-models/<int:reference_model_id>/reject")
+@bp.post(f"{API_PREFIX}/reference-models/<id:reference_model_id>/reject")
 @requires("reviewer")
 def reject(reference_model_id: int):
     return _sign(reference_model_id, reference.reject)
 
 
-@bp.post(f"{API_PREFIX}/reference-models/<int:reference_model_id>/retire")
+@bp.post(f"{API_PREFIX}/reference-models/<id:reference_model_id>/retire")
 @requires("reviewer")
 def retire(reference_model_id: int):
     return _sign(reference_model_id, reference.retire)
@@ -95,13 +96,13 @@ def list_reference_models_csv():
     )
 
 
-@bp.get(f"{API_PREFIX}/reference-models/<int:reference_model_id>")
+@bp.get(f"{API_PREFIX}/reference-models/<id:reference_model_id>")
 @requires("viewer")
 def get_reference_model(reference_model_id: int):
     return json_ok(reference_model=reference.get_reference_model(reference_model_id))
 
 
-@bp.get(f"{API_PREFIX}/reference-models/<int:reference_model_id>/model.json")
+@bp.get(f"{API_PREFIX}/reference-models/<id:reference_model_id>/model.json")
 @requires("viewer")
 def model_file(reference_model_id: int):
     document = reference.model_document(reference_model_id)

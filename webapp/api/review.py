@@ -13,11 +13,14 @@ from typing import Any
 from flask import Blueprint, Response, request
 
 from analysis.errors import InputError
-from webapp.api.responses import API_PREFIX, json_body, json_error, json_ok, register_common_errors, register_not_found, requires
+from webapp.api.responses import (
+    API_PREFIX, json_body, json_error, json_ok, query_id, register_common_errors, register_not_found, requires,
+)
 from webapp.auth import api_user
 from webapp.services import exclusions, ingest, review, views
 from webapp.services.context import session_scope
 from webapp.services.exports import to_csv_bytes
+from webapp.store.ids import check_id
 
 bp = Blueprint("api_review", __name__)
 LOG_FILTERS = ("action", "actor", "since", "until")
@@ -32,7 +35,7 @@ def _no_view(exc):
     return json_error("not_found", f"no saved view with id {exc.args[0]!r}", 404)
 
 
-@bp.post(f"{API_PREFIX}/datasets/<int:dataset_id>/exclusions")
+@bp.post(f"{API_PREFIX}/datasets/<id:dataset_id>/exclusions")
 @requires("analyst")
 def propose(dataset_id: int):
     body = json_body({"samples", "reason_category", "reason", "action", "settings"})
@@ -49,7 +52,7 @@ def propose(dataset_id: int):
     return json_ok(status=201, proposal=proposal)
 
 
-@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>/exclusions")
+@bp.get(f"{API_PREFIX}/datasets/<id:dataset_id>/exclusions")
 @requires("viewer")
 def list_proposals(dataset_id: int):
     ingest.dataset_info(dataset_id)
@@ -60,7 +63,7 @@ def list_proposals(dataset_id: int):
     )
 
 
-@bp.get(f"{API_PREFIX}/exclusions/<int:proposal_id>")
+@bp.get(f"{API_PREFIX}/exclusions/<id:proposal_id>")
 @requires("viewer")
 def get_proposal(proposal_id: int):
     return json_ok(proposal=review.get_proposal(proposal_id))
@@ -78,19 +81,19 @@ def _sign(proposal_id: int, decision: str):
     return json_ok(proposal=proposal)
 
 
-@bp.post(f"{API_PREFIX}/exclusions/<int:proposal_id>/approve")
+@bp.post(f"{API_PREFIX}/exclusions/<id:proposal_id>/approve")
 @requires("reviewer")
 def approve(proposal_id: int):
     return _sign(proposal_id, "approve")
 
 
-@bp.post(f"{API_PREFIX}/exclusions/<int:proposal_id>/reject")
+@bp.post(f"{API_PREFIX}/exclusions/<id:proposal_id>/reject")
 @requires("reviewer")
 def reject(proposal_id: int):
     return _sign(proposal_id, "reject")
 
 
-@bp.post(f"{API_PREFIX}/exclusions/<int:proposal_id>/withdraw")
+@bp.post(f"{API_PREFIX}/exclusions/<id:proposal_id>/withdraw")
 @requires("analyst")
 def withdraw(proposal_id: int):
     body = json_body()
@@ -113,25 +116,22 @@ def _when(name: str) -> datetime | None:
 
 def _log_entries(dataset_id: int) -> list[dict[str, Any]]:
     ingest.dataset_info(dataset_id)
-    actor = request.args.get("actor")
-    if actor is not None and not actor.strip().isdigit():
-        raise InputError(f"'actor' must be a user id (a whole number), got {actor!r}")
     return review.log_for_dataset(
         dataset_id,
         actions=[a for a in request.args.getlist("action") if a] or None,
-        actor_id=int(actor) if actor else None,
+        actor_id=query_id("actor"),
         since=_when("since"),
         until=_when("until"),
     )
 
 
-@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>/review-log")
+@bp.get(f"{API_PREFIX}/datasets/<id:dataset_id>/review-log")
 @requires("viewer")
 def review_log(dataset_id: int):
     return json_ok(dataset_id=dataset_id, entries=_log_entries(dataset_id))
 
 
-@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>/review-log.csv")
+@bp.get(f"{API_PREFIX}/datasets/<id:dataset_id>/review-log.csv")
 @requires("viewer")
 def review_log_csv(dataset_id: int):
     frame = review.log_frame(_log_entries(dataset_id))
@@ -163,12 +163,10 @@ def verify_log():
 @requires("analyst")
 def save_view():
     body = json_body({"dataset_id", "query", "title", "note", "selection", "page"})
-    dataset_id = body.get("dataset_id")
-    if isinstance(dataset_id, bool) or not isinstance(dataset_id, int):
-        raise InputError(f"dataset_id must be a whole number, got {dataset_id!r}")
+    dataset_id = check_id(body.get("dataset_id"), "dataset_id")
     query = body.get("query", "")
     if not isinstance(query, (str, dict)):
-        raise InputError("query must be the page's query string (text) or an object of its keys")
+        raise InputError("query must be the page's query string (text) or an object of its keys", field="query")
     view = views.save_view(
         api_user(),
         dataset_id,
@@ -188,7 +186,7 @@ def get_view(view_id: str):
     return json_ok(**opened)
 
 
-@bp.get(f"{API_PREFIX}/datasets/<int:dataset_id>/views")
+@bp.get(f"{API_PREFIX}/datasets/<id:dataset_id>/views")
 @requires("viewer")
 def list_views(dataset_id: int):
     ingest.dataset_info(dataset_id)
@@ -200,16 +198,17 @@ def list_views(dataset_id: int):
 
 def _render_report(dataset_id: int, render):
     """The report rendered for the dataset (and ``?proposal=N``), or the 400/404 answer."""
-    proposal = request.args.get("proposal")
-    if proposal is not None and not proposal.isdigit():
-        return None, Response("proposal must be a whole number", status=400, mimetype="text/plain")
     try:
-        return render(dataset_id, int(proposal) if proposal else None, printed_by=api_user().display_name), None
+        proposal = query_id("proposal")
+    except InputError as exc:
+        return None, Response(str(exc), status=400, mimetype="text/plain")
+    try:
+        return render(dataset_id, proposal, printed_by=api_user().display_name), None
     except (ingest.DatasetNotFound, review.ProposalNotFound):
         return None, Response("not found", status=404, mimetype="text/plain")
 
 
-@bp.get("/-/review/datasets/<int:dataset_id>/report")
+@bp.get("/-/review/datasets/<id:dataset_id>/report")
 @requires("viewer")
 def signoff_report(dataset_id: int):
     from webapp.services.signoff_report import report_html
@@ -220,7 +219,7 @@ def signoff_report(dataset_id: int):
     return Response(html, mimetype="text/html", headers={"Cache-Control": "no-store"})
 
 
-@bp.get("/-/review/datasets/<int:dataset_id>/report.pdf")
+@bp.get("/-/review/datasets/<id:dataset_id>/report.pdf")
 @requires("viewer")
 def signoff_report_pdf(dataset_id: int):
     from webapp.services.signoff_pdf import report_pdf

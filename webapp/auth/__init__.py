@@ -2,7 +2,8 @@
 
 - Browser sessions: flask-login with strong session protection; cookies are
   HttpOnly, SameSite=Lax, and Secure when ``SECURE_COOKIES`` is on.
-- Passwords: scrypt (RFC 7914) through werkzeug's ``generate_password_hash``.
+- Passwords: scrypt (RFC 7914) through werkzeug's ``generate_password_hash``; new
+  ones must pass ``check_new_password`` (policy in ``webapp.auth.passwords``).
 - Lockout: after ``LOCKOUT_ATTEMPTS`` failures an account is locked for
   ``LOCKOUT_MINUTES``; a client address with ``ADDRESS_LOCKOUT_ATTEMPTS``
   failures inside that window is refused too. Both live in the database, so
@@ -33,13 +34,13 @@ from flask_login import LoginManager, UserMixin, current_user, logout_user
 from werkzeug.exceptions import HTTPException
 from werkzeug.security import check_password_hash, generate_password_hash
 
+from webapp.auth import passwords
 from webapp.store import accounts, session_scope, utcnow
 from webapp.store.tables import ROLES
 
 ROLE_RANK = {role: rank for rank, role in enumerate(ROLES)}
 TOKEN_PREFIX = "ldt_"
 TOKEN_TOUCH_INTERVAL = timedelta(minutes=1)
-MIN_PASSWORD_LENGTH = 10
 # Sign-in attempts feed the lockout (minutes) and a security review (weeks); older ones are
 # deleted at every successful sign-in and at server start, so an attack cannot fill the database.
 LOGIN_ATTEMPT_RETENTION = timedelta(days=90)
@@ -109,11 +110,13 @@ def verify_password(password_hash: str, password: str) -> bool:
     return check_password_hash(password_hash, password)
 
 
-def check_new_password(password: str) -> None:
-    from analysis.errors import InputError
+def check_new_password(password: str, name: str | None = None) -> None:
+    """Raise InputError unless ``password`` may be set for the account ``name``.
 
-    if len(password) < MIN_PASSWORD_LENGTH:
-        raise InputError(f"password too short: at least {MIN_PASSWORD_LENGTH} characters needed")
+    The one check every way of setting a password goes through; the policy
+    (NIST SP 800-63B, 2017, section 5.1.1.2) lives in ``webapp.auth.passwords``.
+    """
+    passwords.check(password, name)
 
 
 def generate_password() -> str:

@@ -1,22 +1,27 @@
-"""The review sub-commands of ``latentdesk``: ``log verify``.
+"""The review sub-commands of ``latentdesk``: ``log verify`` and ``log head``.
 
 ``latentdesk log verify`` recomputes the review log's hash chain on the
 configured database: exit 0 when intact, 1 with the first broken entry named.
+``latentdesk log head`` prints the chain head (entry count, last entry, its
+hash and UTC time) to be kept outside the database, so a later truncation of
+the log can be noticed (docs/design.md, section 6).
 """
 
 from __future__ import annotations
 
 import argparse
+import json
 from pathlib import Path
+from typing import Any, Callable
 
 from analysis.errors import InputError
 
 EXIT_OK, EXIT_BROKEN = 0, 1
 
 
-def _cmd_log_verify(args: argparse.Namespace) -> int:
+def _read_log(read: Callable[[Any], Any]) -> Any:
+    """``read(session)`` on the configured database, which must exist and be migrated; reads only."""
     from webapp.config import load_config
-    from webapp.services import audit
     from webapp.store import engine_session, make_engine
     from webapp.store.engine import current_revision, database_url
 
@@ -26,18 +31,50 @@ def _cmd_log_verify(args: argparse.Namespace) -> int:
     engine = make_engine(url)
     try:
         if current_revision(engine) is None:
-            raise InputError("the database has no LatentDesk tables yet; nothing to verify")
+            raise InputError("the database has no LatentDesk tables yet; there is no review log to read")
         with engine_session(engine) as session:
-            intact, broken, reason = audit.verify_chain(session)
-            head = audit.chain_head_summary(session)
+            return read(session)
     finally:
         engine.dispose()
+
+
+def _cmd_log_verify(args: argparse.Namespace) -> int:
+    from webapp.services import audit
+
+    intact, broken, reason, head = _read_log(lambda session: (*audit.verify_chain(session),
+                                                               audit.chain_head_summary(session)))
     if intact:
         print(f"review log {reason}; chain head {head['hash']}")
         return EXIT_OK
     where = f"entry {broken}" if broken is not None else "the chain head"
     print(f"review log BROKEN at {where}: {reason}")
     return EXIT_BROKEN
+
+
+def _entry_number(text: str) -> int:
+    if not text.isdigit() or int(text) < 1:
+        raise argparse.ArgumentTypeError(f"an entry number is a whole number from 1, got {text!r}")
+    return int(text)
+
+
+def _cmd_log_head(args: argparse.Namespace) -> int:
+    """Print the chain head (or entry ``--entry``); exit 1 when it names no stored entry."""
+    from webapp.services import audit
+
+    head = _read_log(lambda session: audit.chain_head_record(session, args.entry))
+    found = head["seq"] == 0 or head["at"] is not None
+    if args.json:
+        print(json.dumps({k: head[k] for k in ("entries", "seq", "hash", "at")}))
+    elif head["seq"] is None:
+        print(f"review log: {head['entries']} entries; the chain head row is missing (run `latentdesk log verify`)")
+    elif not found:
+        print(f"review log: {head['entries']} entries; entry {head['seq']} is not in the log "
+              "(run `latentdesk log verify`)")
+    else:
+        what = "chain head entry" if args.entry is None else "entry"
+        written = f"written {head['at']} (UTC)" if head["at"] is not None else "the log is empty"
+        print(f"review log: {head['entries']} entries; {what} {head['seq']}, hash {head['hash']}, {written}")
+    return EXIT_OK if found else EXIT_BROKEN
 
 
 def add_review_commands(commands) -> None:
@@ -47,3 +84,10 @@ def add_review_commands(commands) -> None:
         "verify", help="check the review log's hash chain: exit 0 intact, 1 with the first broken entry named"
     )
     verify.set_defaults(handler=_cmd_log_verify)
+    head = log_commands.add_parser(
+        "head", help="print the chain head (entries, last entry, its hash and UTC time) to keep outside the database"
+    )
+    head.add_argument("--entry", type=_entry_number, metavar="N",
+                      help="print entry N of the current log instead, to compare with a head kept earlier")
+    head.add_argument("--json", action="store_true", help="one JSON object: entries, seq, hash, at")
+    head.set_defaults(handler=_cmd_log_head)

@@ -96,6 +96,7 @@ def prepare_demo(overrides: Mapping[str, Any]) -> list[tuple[str, str, str]]:
         with session_scope() as s:
             for name, role, printed in DEMO_USERS:
                 password = auth.generate_password()
+                auth.check_new_password(password, name)
                 user = accounts.get_user_by_name(s, name)
                 if user is None:
                     accounts.add_user(s, name, role, auth.hash_password(password), printed)

@@ -16,6 +16,7 @@ import secrets
 import tomllib
 from pathlib import Path
 from typing import Any, Mapping
+from urllib.parse import urlsplit
 
 from analysis.errors import InputError
 
@@ -38,7 +39,15 @@ SETTINGS: dict[str, tuple[type, Any]] = {
     "ADDRESS_LOCKOUT_ATTEMPTS": (int, 20),
     "PROXY_HOPS": (int, 0),
     "MIGRATE_ON_START": (bool, True),
+    # Outgoing alert when a checked batch has flags (webapp/services/webhooks.py); off when unset.
+    "WEBHOOK_URL": (str, None),
+    "WEBHOOK_SECRET": (str, None),
+    "WEBHOOK_ATTEMPTS": (int, 5),
+    "WEBHOOK_BACKOFF_SECONDS": (int, 1),
+    "WEBHOOK_BACKOFF_MAX_SECONDS": (int, 60),
+    "WEBHOOK_TIMEOUT_SECONDS": (int, 5),
 }
+WEBHOOK_SCHEMES = ("http", "https")
 
 
 class ConfigError(InputError):
@@ -112,6 +121,32 @@ def demo_secret_key(home: Path) -> str:
     return key
 
 
+def _check_webhook(config: dict[str, Any]) -> None:
+    """An empty URL turns the webhook off; a set one must be an http(s) address with a host.
+
+    The messages name the setting but not the whole address, which may carry a token.
+    """
+    url = (config["WEBHOOK_URL"] or "").strip()
+    config["WEBHOOK_URL"] = url or None
+    config["WEBHOOK_SECRET"] = config["WEBHOOK_SECRET"] or None
+    if not url:
+        return
+    parts = urlsplit(url)
+    if parts.scheme.lower() not in WEBHOOK_SCHEMES:
+        raise ConfigError(
+            f"LATENTDESK_WEBHOOK_URL must be an http:// or https:// address, got scheme {parts.scheme or 'none'!r}"
+        )
+    if not parts.hostname:
+        raise ConfigError("LATENTDESK_WEBHOOK_URL has no host name (expected e.g. https://alerts.example/hook)")
+    try:
+        parts.port
+    except ValueError:
+        raise ConfigError("LATENTDESK_WEBHOOK_URL has a port that is not a number from 0 to 65535") from None
+    for name in ("WEBHOOK_ATTEMPTS", "WEBHOOK_TIMEOUT_SECONDS"):
+        if config[name] < 1:
+            raise ConfigError(f"LATENTDESK_{name} must be at least 1, got {config[name]}")
+
+
 def load_config(
     overrides: Mapping[str, Any] | None = None,
     *,
@@ -150,4 +185,5 @@ def load_config(
         raise ConfigError("MAX_UPLOAD_MB must be at least 1")
     if config["LOCKOUT_ATTEMPTS"] < 1 or config["ADDRESS_LOCKOUT_ATTEMPTS"] < 1:
         raise ConfigError("LOCKOUT_ATTEMPTS and ADDRESS_LOCKOUT_ATTEMPTS must be at least 1")
+    _check_webhook(config)
     return config

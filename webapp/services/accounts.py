@@ -49,7 +49,7 @@ def add_user(
     name, role = _check_name(name), _check_role(role)
     if password is None:
         password = auth.generate_password()
-    auth.check_new_password(password)
+    auth.check_new_password(password, name)
     engine = _engine(overrides)
     try:
         with engine_session(engine) as s:

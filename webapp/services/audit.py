@@ -2,7 +2,11 @@
 
 Every entry stores the hash of the entry before it (``prev_hash``) and its own
 ``hash`` = SHA-256 over canonical JSON of
-``{seq, at, actor, action, dataset_id, payload, prev_hash}``.  Editing or
+``{seq, at, actor, action, dataset_id, payload, prev_hash}``, and the name of
+the canonical JSON it was hashed under (``hash_scheme``): ``rfc8785`` for new
+entries, ``ld-json-1`` for entries written before migration 0006_hash_scheme
+(``analysis.canonical_json``).  Verification recomputes each entry under its
+own scheme; a legacy entry after an RFC 8785 one is refused.  Editing or
 deleting a stored entry breaks the chain at that entry; deleting entries at the
 tail is caught by the chain head row, which the app moves forward in the same
 transaction as every append.  ``verify_chain`` names the first broken entry.
@@ -13,32 +17,25 @@ PostgreSQL a transaction-scoped advisory lock, on SQLite ``BEGIN IMMEDIATE``;
 
 References: US FDA 21 CFR Part 11, 11.10(e) (secure, time-stamped audit trails
 that never obscure earlier entries); EU GMP Annex 11 (2011), section 9.
-Canonical JSON: sorted keys, no insignificant whitespace, UTF-8 (the subset of
-RFC 8785 that our payloads need: strings, integers, finite floats, lists, maps).
+Canonical JSON: RFC 8785, JSON Canonicalization Scheme (Rundgren, Jordan &
+Erdtman 2020), so any RFC 8785 implementation recomputes a hash (docs/design.md,
+"The review log").
 """
 
 from __future__ import annotations
 
-import hashlib
-import json
 import math
 from collections.abc import Iterable, Mapping
 from datetime import datetime, timezone
 from typing import Any
 
+from analysis.canonical_json import LEGACY_UTF8, RFC8785, CanonicalJSONError, canonical_sha256
+
 GENESIS_HASH = "0" * 64
+HASH_SCHEME = RFC8785  # what new entries are hashed under
+LEGACY_HASH_SCHEME = LEGACY_UTF8  # entries written before migration 0006_hash_scheme
 # Any constant shared by every process; it only names the lock.
 _PG_CHAIN_LOCK_KEY = 0x1A7E_4E5C
-
-
-def canonical_json(value: Any) -> str:
-    """Serialise ``value`` the one way the hash is computed over.
-
-    NaN and infinity are refused (they have no JSON form); tuples become lists.
-    """
-    return json.dumps(
-        value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False
-    )
 
 
 def json_safe(value: Any) -> Any:
@@ -89,8 +86,9 @@ def entry_hash(
     dataset_id: int | None,
     payload: Mapping[str, Any],
     prev_hash: str,
+    scheme: str = HASH_SCHEME,
 ) -> str:
-    """SHA-256 (hex) of the canonical JSON of one log entry's content."""
+    """SHA-256 (hex) of the canonical JSON (under ``scheme``) of one log entry's content."""
     body = {
         "seq": int(seq),
         "at": at if isinstance(at, str) else utc_iso(at),
@@ -100,7 +98,7 @@ def entry_hash(
         "payload": payload,
         "prev_hash": prev_hash,
     }
-    return hashlib.sha256(canonical_json(body).encode("utf-8")).hexdigest()
+    return canonical_sha256(body, scheme)
 
 
 def actor_of(actor_id: int | None, actor_name: str) -> dict[str, Any]:
@@ -114,7 +112,9 @@ def verify_entries(
     """Check a chain of entries given in ``seq`` order.
 
     Each entry is a mapping with keys seq, at, actor_id, actor_name, action,
-    dataset_id, payload, prev_hash, hash.  ``head`` (optional) is the recorded
+    dataset_id, payload, prev_hash, hash, hash_scheme; its hash is recomputed
+    under its own ``hash_scheme``, and a legacy scheme is accepted only before
+    the first entry hashed under RFC 8785.  ``head`` (optional) is the recorded
     chain head ``{"seq", "hash"}``; it catches entries removed from the end.
 
     Returns ``(ok, first_broken_seq, reason)``; ``(True, None, "...")`` when intact.
@@ -122,6 +122,7 @@ def verify_entries(
     expected_seq = 1
     prev_hash = GENESIS_HASH
     count = 0
+    current_seen = False
     for entry in entries:
         seq = int(entry["seq"])
         if seq != expected_seq:
@@ -138,15 +139,27 @@ def verify_entries(
                 f"entry {seq} does not point at the entry before it "
                 f"(stored prev_hash {str(entry['prev_hash'])[:12]}..., expected {prev_hash[:12]}...)"
             )
-        recomputed = entry_hash(
-            seq=seq,
-            at=entry["at"],
-            actor=actor_of(entry["actor_id"], entry["actor_name"]),
-            action=entry["action"],
-            dataset_id=entry["dataset_id"],
-            payload=entry["payload"],
-            prev_hash=entry["prev_hash"],
-        )
+        scheme = entry["hash_scheme"]
+        if scheme not in (HASH_SCHEME, LEGACY_HASH_SCHEME):
+            return False, seq, f"entry {seq} names an unknown hashing scheme {scheme!r}"
+        if scheme == LEGACY_HASH_SCHEME and current_seen:
+            return False, seq, (
+                f"entry {seq} claims the legacy hashing scheme {scheme!r} after entries hashed under {HASH_SCHEME}"
+            )
+        current_seen = current_seen or scheme == HASH_SCHEME
+        try:
+            recomputed = entry_hash(
+                seq=seq,
+                at=entry["at"],
+                actor=actor_of(entry["actor_id"], entry["actor_name"]),
+                action=entry["action"],
+                dataset_id=entry["dataset_id"],
+                payload=entry["payload"],
+                prev_hash=entry["prev_hash"],
+                scheme=scheme,
+            )
+        except CanonicalJSONError as exc:
+            return False, seq, f"entry {seq} cannot be hashed under {scheme}: {exc}"
         if recomputed != entry["hash"]:
             return False, seq, f"entry {seq} was changed after it was written (its hash does not match its content)"
         prev_hash = entry["hash"]
@@ -218,6 +231,7 @@ def append(
         payload=body,
         prev_hash=prev_hash,
         hash=digest,
+        hash_scheme=HASH_SCHEME,
     )
     if not store.move_chain_head(session, head.seq, seq, digest):
         raise ChainMoved(f"the review log head moved while entry {seq} was being written")
@@ -240,6 +254,7 @@ def entry_dict(row) -> dict[str, Any]:
         "payload": row.payload,
         "prev_hash": row.prev_hash,
         "hash": row.hash,
+        "hash_scheme": row.hash_scheme,
     }
 
 
@@ -260,3 +275,23 @@ def chain_head_summary(session) -> dict[str, Any]:
 
     head = store.chain_head(session)
     return {"seq": head.seq, "hash": head.hash} if head is not None else {"seq": None, "hash": None}
+
+
+def chain_head_record(session, seq: int | None = None) -> dict[str, Any]:
+    """The chain head as the reports and ``latentdesk log head`` print it, to be kept outside the database.
+
+    Keys: ``seq`` and ``hash`` (``chain_head_summary``), ``at`` (UTC time of the entry
+    ``seq``; None when the log is empty or that entry is gone) and ``entries`` (how
+    many entries the log holds).  With ``seq``, the same for the stored entry ``seq``
+    (``hash`` None when there is none), to compare with a head kept earlier: a log
+    whose entry ``seq`` is gone or has another hash was truncated or rewritten.
+    """
+    from webapp.store import review as store
+
+    if seq is None:
+        head = chain_head_summary(session)
+        entry = store.log_entry_at(session, head["seq"]) if head["seq"] else None
+    else:
+        entry = store.log_entry_at(session, seq)
+        head = {"seq": seq, "hash": entry.hash if entry is not None else None}
+    return {**head, "at": utc_iso(entry.at) if entry is not None else None, "entries": store.count_log(session)}

@@ -77,7 +77,8 @@ def _batch(data: Mapping[str, Any], s: _Styles) -> list:
             [("file", _t(b["file_name"])), ("file SHA-256", _t(b["file_sha256"])), ("uploaded", uploaded),
              ("samples, flagged", f"{b['n_samples']} samples, {b['n_flagged']} flagged"), ("state", state),
              ("review log", f"{_t(chain['status'])}<br/>chain head at printing: entry {_t(chain['head_seq'])}, "
-                            f"<font face='{MONO}'>{_t(chain['head_hash'])}</font>")],
+                            f"<font face='{MONO}'>{_t(chain['head_hash'])}</font>"
+                            + (f", written {_t(chain['head_at'])} (UTC)" if chain["head_at"] else ""))],
             s, mono=("file SHA-256",),
         ),
     ]

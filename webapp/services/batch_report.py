@@ -10,18 +10,17 @@ printing time, so a later rewrite of the log can be noticed against the paper.
 
 ``report_data`` gathers and formats the content once; ``report_html`` renders
 it with the autoescaping Jinja2 template ``webapp/templates/batch_report.html``
-(user text is shown as text, never as HTML), and
+(``webapp.services.templates``; user text is shown as text, never as HTML), and
 ``webapp.services.batch_pdf.report_pdf`` draws the same content as a PDF.
 """
 
 from __future__ import annotations
 
-from pathlib import Path
 from typing import Any, Mapping
 
-from jinja2 import Environment, FileSystemLoader, select_autoescape
+from markupsafe import Markup
 
-from webapp.services import audit, batches
+from webapp.services import audit, batches, templates
 from webapp.services import reference_models as reference
 from webapp.services.context import session_scope
 from webapp.services.signoff_report import _STYLE, chain_status
@@ -30,7 +29,6 @@ CAUTION = (
     "Flags support, and never replace, QA judgement and site procedures; "
     "regulated use needs the site's own validation."
 )
-TEMPLATES = Path(__file__).resolve().parent.parent / "templates"
 STYLE = _STYLE + "tr.flagged td{background:#fbf4ef}\n"
 
 
@@ -86,7 +84,8 @@ def report_data(batch_id, *, printed_by: str | None = None) -> dict[str, Any]:
     levels), ``samples`` (run_index, sample, t2, spe, limits as text, flagged,
     flags, outcome), ``violations`` (rule firings at the batch's samples),
     ``outcomes`` (every signed outcome with ``standing``), ``chain`` (status,
-    head_seq, head_hash), ``printed_at`` (UTC), ``printed_by``, ``caution``.
+    head_seq, head_hash, head_at: the chain head at printing), ``printed_at`` (UTC),
+    ``printed_by``, ``caution``.
 
     Raises ``batches.BatchNotFound``.
     """
@@ -94,7 +93,7 @@ def report_data(batch_id, *, printed_by: str | None = None) -> dict[str, Any]:
     model = reference.get_reference_model(info["reference_model_id"])
     with session_scope() as session:
         intact, broken, reason = audit.verify_chain(session)
-        head = audit.chain_head_summary(session)
+        head = audit.chain_head_record(session)
     chain = {"intact": intact, "broken_at": broken, "reason": reason}
     limits = info["limits"]
     samples = info["samples"]
@@ -116,7 +115,8 @@ def report_data(batch_id, *, printed_by: str | None = None) -> dict[str, Any]:
         ],
         "violations": [_violation(s, r) for s in samples for r in s["rules"]],
         "outcomes": _outcomes(samples),
-        "chain": {"status": chain_status(chain), "head_seq": head["seq"], "head_hash": head["hash"]},
+        "chain": {"status": chain_status(chain), "head_seq": head["seq"], "head_hash": head["hash"],
+                  "head_at": head["at"]},
         "printed_at": audit.utc_iso(audit.now_utc()),
         "printed_by": printed_by,
         "caution": CAUTION,
@@ -126,5 +126,4 @@ def report_data(batch_id, *, printed_by: str | None = None) -> dict[str, Any]:
 def report_html(batch_id, *, printed_by: str | None = None) -> str:
     """The batch report as an HTML document; raises ``batches.BatchNotFound``."""
     data = report_data(batch_id, printed_by=printed_by)
-    environment = Environment(loader=FileSystemLoader(TEMPLATES), autoescape=select_autoescape(["html"]))
-    return environment.get_template("batch_report.html").render(style=STYLE, **data)
+    return templates.render("batch_report.html", style=Markup(STYLE), **data)  # our constant: kept as CSS

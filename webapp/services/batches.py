@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+from types import SimpleNamespace
 from typing import Any, Iterable, Mapping
 
 import numpy as np
@@ -34,7 +35,7 @@ from analysis import monitoring as mon
 from analysis.errors import InputError
 from analysis.intake import read_table
 from analysis.modelfile import model_from_dict
-from webapp.services import audit, ingest, review
+from webapp.services import audit, ingest, monitoring_charts, review, webhooks
 from webapp.services import reference_models as reference
 from webapp.services.context import max_upload_bytes, session_scope
 from webapp.services.review_rules import MAX_COMMENT_CHARS, MAX_REASON_CHARS, clean_text, conflict, forbidden
@@ -131,12 +132,21 @@ def _matched(model, info: Mapping[str, Any], document: Mapping[str, Any], raw: b
 # --- run rules over the continuing series -------------------------------------------------
 
 
-def _chart_series(scored, earlier: list[tuple]) -> list[tuple[str, mon.ChartLimits, np.ndarray]]:
+def _earlier_scores(session, earlier: list) -> np.ndarray:
+    """Scores of earlier checked samples (rows of ``store.last_samples``), one row each."""
+    if not earlier:
+        return np.empty((0, 0))
+    batch_ids = {row.batch_id for row in earlier}
+    arrays = store.arrays_of(session, batch_ids)
+    first = store.first_runs(session, batch_ids)
+    return np.array([arrays[row.batch_id]["scores"][row.run_index - first[row.batch_id]] for row in earlier])
+
+
+def _chart_series(scored, earlier: list, earlier_scores: np.ndarray) -> list[tuple[str, mon.ChartLimits, np.ndarray]]:
     """(chart name, limits, values in run order: earlier samples then the new ones) per chart."""
-    old_t2 = np.array([row[4] for row in earlier], dtype=np.float64)
-    old_spe = np.array([row[5] for row in earlier], dtype=np.float64)
-    n_components = scored.scores.shape[1]
-    old_scores = np.array([row[3] for row in earlier], dtype=np.float64).reshape(len(earlier), n_components)
+    old_t2 = np.array([row.t2 for row in earlier], dtype=np.float64)
+    old_spe = np.array([row.spe for row in earlier], dtype=np.float64)
+    old_scores = earlier_scores.reshape(len(earlier), scored.scores.shape[1])
     charts = [("t2", scored.t2_chart, np.concatenate([old_t2, scored.t2])),
               ("spe", scored.spe_chart, np.concatenate([old_spe, scored.spe]))]
     for a, limits in enumerate(scored.score_charts):
@@ -144,15 +154,21 @@ def _chart_series(scored, earlier: list[tuple]) -> list[tuple[str, mon.ChartLimi
     return charts
 
 
-def _new_violations(scored, earlier: list[tuple], batch_id: int, first_run: int) -> dict[int, list[dict]]:
-    """Position in the batch -> the run-rule violations that fire at that new sample."""
+def _new_violations(scored, earlier: list, earlier_scores: np.ndarray, rules, batch_id: int,
+                    first_run: int) -> dict[int, list[dict]]:
+    """Position in the batch -> the run-rule violations that fire at that new sample.
+
+    ``earlier`` holds the last ``longest_window(rules) - 1`` checked samples:
+    a rule's firing at a point depends on that window only (``run_rules``),
+    so the violations equal those over the whole continuing series.
+    """
     n_old = len(earlier)
-    sample_of = [row[2] for row in earlier] + list(scored.sample_ids)
-    batch_of = [row[1] for row in earlier] + [batch_id] * len(scored.sample_ids)
-    run_of = [row[0] for row in earlier] + list(range(first_run, first_run + len(scored.sample_ids)))
+    sample_of = [row.sample_id for row in earlier] + list(scored.sample_ids)
+    batch_of = [row.batch_id for row in earlier] + [batch_id] * len(scored.sample_ids)
+    run_of = [row.run_index for row in earlier] + list(range(first_run, first_run + len(scored.sample_ids)))
     found: dict[int, list[dict]] = {}
-    for name, limits, values in _chart_series(scored, earlier):
-        for violation in mon.check_run_rules(values, limits, mon.DEFAULT_RULES):
+    for name, limits, values in _chart_series(scored, earlier, earlier_scores):
+        for violation in mon.check_run_rules(values, limits, rules):
             if violation.fired_at < n_old:
                 continue  # fired before this batch: stored with its own batch
             window = list(violation.indices)
@@ -167,10 +183,6 @@ def _new_violations(scored, earlier: list[tuple], batch_id: int, first_run: int)
                 "batches": sorted(set(batch_of[i] for i in window)),
             })
     return found
-
-
-def _measured(row: np.ndarray) -> list[float | None]:
-    return [float(v) if math.isfinite(v) else None for v in row.tolist()]
 
 
 # --- checking a batch ---------------------------------------------------------------------
@@ -221,51 +233,59 @@ def check_batch(reference_model_id, raw: bytes, filename: str, user, *, id_colum
     def work(session):
         if not retest:
             _refuse_repeats(session, info["id"], sha256, sample_ids)
-        earlier = store.series(session, info["id"])
-        first_run = (earlier[-1][0] if earlier else 0) + 1
-        violations = _new_violations(scored, earlier, THIS_BATCH, first_run)
-        flags = [bool(scored.t2_exceeds_action[i] or scored.spe_exceeds_action[i]) or i in violations
-                 for i in range(len(sample_ids))]
+        rules = reference.run_rules(info)
+        needed = mon.longest_window(rules) - 1  # earlier points the rules look back at
+        tail = store.last_samples(session, info["id"], max(needed, 1))
+        first_run = (tail[-1].run_index if tail else 0) + 1
+        earlier = tail[-needed:] if needed else []
+        violations = _new_violations(scored, earlier, _earlier_scores(session, earlier), rules, THIS_BATCH,
+                                     first_run)
+        flags = (scored.t2_exceeds_action | scored.spe_exceeds_action).tolist()
+        for i in violations:
+            flags[i] = True
         checked_at = audit.now_utc()
         # A batch without flags has nothing to review: it is reviewed as it is stored.
-        nothing_flagged = not any(flags)
+        n_flagged = sum(flags)
         batch = store.insert_batch(
             session, reference_model_id=info["id"], file_name=name, file_sha256=sha256, intake_options=options,
-            uploaded_by=user.id, created_at=checked_at, n_samples=len(sample_ids), n_flagged=sum(flags),
-            state="reviewed" if nothing_flagged else "open", reviewed_at=checked_at if nothing_flagged else None,
+            uploaded_by=user.id, created_at=checked_at, n_samples=len(sample_ids), n_flagged=n_flagged,
+            state="reviewed" if not n_flagged else "open", reviewed_at=checked_at if not n_flagged else None,
             warnings=list(warnings), retest=retest,
         )
         for fired in violations.values():
             for violation in fired:
                 violation["batches"] = sorted(batch.id if b == THIS_BATCH else b for b in violation["batches"])
+        columns = zip(sample_ids, scored.t2.tolist(), scored.spe.tolist(), scored.incomplete.tolist(),
+                      scored.t2_exceeds_warning.tolist(), scored.t2_exceeds_action.tolist(),
+                      scored.spe_exceeds_warning.tolist(), scored.spe_exceeds_action.tolist(), flags)
         rows = [
-            {
-                "batch_id": batch.id, "reference_model_id": info["id"], "run_index": first_run + i,
-                "sample_id": sample, "measured": _measured(values[i]),
-                "scores": [float(v) for v in scored.scores[i]], "t2": float(scored.t2[i]),
-                "spe": float(scored.spe[i]), "incomplete": bool(scored.incomplete[i]),
-                "t2_warning": bool(scored.t2_exceeds_warning[i]), "t2_action": bool(scored.t2_exceeds_action[i]),
-                "spe_warning": bool(scored.spe_exceeds_warning[i]), "spe_action": bool(scored.spe_exceeds_action[i]),
-                "flagged": flags[i], "violations": audit.json_safe(violations.get(i, [])),
-            }
-            for i, sample in enumerate(sample_ids)
+            {"batch_id": batch.id, "reference_model_id": info["id"], "run_index": first_run + i, "sample_id": sample,
+             "t2": t2, "spe": spe, "incomplete": incomplete, "t2_warning": t2_warning, "t2_action": t2_action,
+             "spe_warning": spe_warning, "spe_action": spe_action, "flagged": flagged,
+             "violations": violations.get(i, [])}
+            for i, (sample, t2, spe, incomplete, t2_warning, t2_action, spe_warning, spe_action, flagged)
+            in enumerate(columns)
         ]
-        n_flagged = sum(flags)
         store.insert_samples(session, rows)
+        store.insert_arrays(session, batch.id, scored.scores, values)
         audit.append(
             session, actor_id=user.id, actor_name=user.display_name, action="batch_checked",
             dataset_id=info["dataset_id"],
             payload={
                 "batch_id": batch.id, "reference_model_id": info["id"], "name": info["name"],
                 "version": info["version"], "account": user.name, "file": name, "file_sha256": sha256,
-                "n_samples": len(rows), "n_flagged": n_flagged, "retest": retest,
-                "flagged": [r["sample_id"] for r in rows if r["flagged"]][:1000],
+                "n_samples": len(sample_ids), "n_flagged": n_flagged, "retest": retest,
+                "flagged": [s for s, f in zip(sample_ids, flags) if f][:1000],
                 "first_run": first_run, "document_sha256": info["document_sha256"],
             },
         )
-        return _batch_dict(session, batch.id, info)
+        # answered from what was just written (no outcomes yet), not read back
+        return _batch_answer(session, batch, info, [SimpleNamespace(id=None, **row) for row in rows],
+                             scored.scores.tolist(), {})
 
-    return review.run_write(work)
+    checked = review.run_write(work)
+    webhooks.batch_checked(checked)  # queued: never blocks the upload (off by default)
+    return checked
 
 
 def _refuse_repeats(session, reference_model_id: int, sha256: str, sample_ids: list[str]) -> None:
@@ -307,12 +327,12 @@ def _limits(info: Mapping[str, Any]) -> dict[str, Any]:
     }
 
 
-def _sample_dict(row, limits: Mapping[str, Any], outcomes: list) -> dict[str, Any]:
+def _sample_dict(row, scores: list[float], limits: Mapping[str, Any], outcomes: list) -> dict[str, Any]:
     return {
         "sample": row.sample_id,
         "run_index": row.run_index,
         "batch_id": row.batch_id,
-        "scores": list(row.scores),
+        "scores": scores,
         "t2": row.t2,
         "spe": row.spe,
         "t2_limit": limits["t2_limit"],
@@ -336,9 +356,16 @@ def _batch_dict(session, batch_id: int, info: Mapping[str, Any] | None = None) -
     if batch is None:
         raise BatchNotFound(batch_id)
     info = info or reference.get_reference_model(batch.reference_model_id)
+    samples = store.samples_of(session, batch.id)
+    scores = store.arrays_of(session, [batch.id])[batch.id]["scores"].tolist()
+    return _batch_answer(session, batch, info, samples, scores, store.outcomes_of(session, batch_id=batch.id))
+
+
+def _batch_answer(session, batch, info: Mapping[str, Any], samples: list, scores: list[list[float]],
+                  outcomes: Mapping[int, list]) -> dict[str, Any]:
+    """The batch dict from its row, its samples in run order (rows with the ``BatchSample`` columns),
+    their scores and their outcomes by sample row id."""
     limits = _limits(info)
-    samples = store.samples_of(session, batch.id, with_values=False)
-    outcomes = store.outcomes_of(session, [s.id for s in samples])
     return {
         "id": batch.id,
         "reference_model_id": batch.reference_model_id,
@@ -356,7 +383,7 @@ def _batch_dict(session, batch_id: int, info: Mapping[str, Any] | None = None) -
         "retest": batch.retest,
         "warnings": list(batch.warnings),
         "limits": limits,
-        "samples": [_sample_dict(s, limits, outcomes[s.id]) for s in samples],
+        "samples": [_sample_dict(s, scores[i], limits, outcomes.get(s.id, [])) for i, s in enumerate(samples)],
     }
 
 
@@ -417,11 +444,13 @@ def sample_contributions(batch_id, sample_id) -> dict[str, Any]:
         batch = store.get_batch(session, known)
         if batch is None:
             raise BatchNotFound(batch_id)
-        row = next((s for s in store.samples_of(session, known) if s.sample_id == str(sample_id)), None)
-        if row is None:
+        samples = store.samples_of(session, known)
+        position = next((i for i, s in enumerate(samples) if s.sample_id == str(sample_id)), None)
+        if position is None:
             raise BatchSampleNotFound(sample_id)
+        row = samples[position]
         reference_model_id = batch.reference_model_id
-        measured = [np.nan if v is None else v for v in row.measured]
+        measured = store.arrays_of(session, [known], measured=True)[known]["measured"][position]
     info = reference.get_reference_model(reference_model_id)
     model = model_from_dict(reference.model_document(reference_model_id))
     names = list(model.variable_names_)
@@ -446,44 +475,97 @@ def sample_contributions(batch_id, sample_id) -> dict[str, Any]:
     }
 
 
-def chart(reference_model_id) -> dict[str, Any]:
-    """Every checked sample of a reference model in run order, with batch, T², SPE, limits, violations.
+def _scores_in_run_order(session, columns: Mapping[str, list]) -> np.ndarray:
+    """(n, A) scores of the chart's samples, from their batches' arrays."""
+    first: dict[int, int] = {}
+    for batch_id, run in zip(columns["batch_id"], columns["run_index"]):  # run order: a batch's first row
+        first.setdefault(batch_id, run)
+    arrays = store.arrays_of(session, first)
+    order = list(first)
+    start = dict(zip(order, np.cumsum([0] + [len(arrays[b]["scores"]) for b in order]).tolist()))
+    stacked = np.concatenate([arrays[b]["scores"] for b in order])
+    rows = [start[b] + run - first[b] for b, run in zip(columns["batch_id"], columns["run_index"])]
+    return stacked[rows]
 
-    ``limits``: the frozen new-sample limits at both levels; ``batches``: each
-    batch's first and last run index (the batch boundaries); ``violations``:
-    every run-rule violation with its rule, samples and batches.
-    """
-    info = reference.get_reference_model(reference_model_id)
-    limits = _limits(info)
-    with session_scope() as session:
-        rows = store.checked_samples(session, info["id"])
-        outcomes = store.outcomes_of(session, [r.id for r in rows])
-        batches = store.batches_of(session, info["id"])
-        samples = [_sample_dict(r, limits, outcomes[r.id]) for r in rows]
-    bounds: dict[int, list[int]] = {}
-    for s in samples:
-        bounds.setdefault(s["batch_id"], []).append(s["run_index"])
+
+def _series_columns(session, reference_model_id: int) -> dict[str, list]:
+    """Every checked sample in run order, column by column: sample, run_index, batch_id, t2, spe,
+    scores (one list per component), flagged, outcome (the standing outcome's code or None)."""
+    columns = store.chart_columns(session, reference_model_id)
+    if not columns["id"]:
+        return {"sample": [], "run_index": [], "batch_id": [], "t2": [], "spe": [], "scores": [], "flagged": [],
+                "outcome": []}
+    standing = {i: found[-1].outcome for i, found in
+                store.outcomes_of(session, reference_model_id=reference_model_id).items()}
     return {
-        "reference_model_id": info["id"],
-        "name": info["name"],
-        "version": info["version"],
-        "limits": limits,
-        "n_training_samples": info["n_samples"],
-        "batches": [
-            {"id": b.id, "file_name": b.file_name, "created_at": audit.utc_iso(b.created_at), "state": b.state,
-             "n_samples": b.n_samples, "n_flagged": b.n_flagged,
-             "first_run": min(bounds.get(b.id, [0])), "last_run": max(bounds.get(b.id, [0]))}
-            for b in batches
-        ],
-        "samples": samples,
-        "violations": [{**v, "fired_at_sample": s["sample"], "fired_at_run": s["run_index"]}
-                       for s in samples for v in s["rules"]],
+        "sample": columns["sample_id"],
+        "run_index": columns["run_index"],
+        "batch_id": columns["batch_id"],
+        "t2": columns["t2"],
+        "spe": columns["spe"],
+        "scores": _scores_in_run_order(session, columns).T.tolist(),
+        "flagged": columns["flagged"],
+        "outcome": [standing.get(i) for i in columns["id"]] if standing else [None] * len(columns["id"]),
     }
 
 
+def chart(reference_model_id, *, with_training: bool = True, derived: str | None = None) -> dict[str, Any]:
+    """Every checked sample of a reference model in run order, with batch, T², SPE, limits, violations.
+
+    ``series``: the checked samples column by column (``sample``,
+    ``run_index``, ``batch_id``, ``t2``, ``spe``, ``scores`` - one list per
+    component -, ``flagged``, ``outcome``); a point beyond a limit is read off
+    ``limits``, the frozen new-sample limits at both levels.  Columns, not one
+    object per sample: 100,000 samples stay a quick answer.  ``training``: the
+    training samples under the frozen model, the points before the first
+    batch (``reference_models.training_points``; omitted with
+    ``with_training=False``); ``batches``: each batch's first and last run
+    index (the batch boundaries); ``violations``: every run-rule violation
+    with its rule, samples and batches; ``run_rules``: the rules of this
+    reference model; ``derived`` (with ``derived=`` "ewma-t2", "mewma" or
+    "combined"): that chart of the checked samples
+    (``monitoring_charts.derived_chart``).
+    """
+    info = reference.get_reference_model(reference_model_id)
+    with session_scope() as session:
+        series = _series_columns(session, info["id"])
+        fired = store.violations_of(session, info["id"])
+        batches = store.batches_of(session, info["id"])
+    bounds: dict[int, list[int]] = {}
+    for batch_id, run in zip(series["batch_id"], series["run_index"]):
+        bounds.setdefault(batch_id, [run, run])[1] = run
+    answer = {
+        "reference_model_id": info["id"],
+        "name": info["name"],
+        "version": info["version"],
+        "limits": _limits(info),
+        "run_rules": info["run_rules"],
+        "n_training_samples": info["n_samples"],
+        "n_samples": len(series["sample"]),
+        "batches": [
+            {"id": b.id, "file_name": b.file_name, "created_at": audit.utc_iso(b.created_at), "state": b.state,
+             "n_samples": b.n_samples, "n_flagged": b.n_flagged,
+             "first_run": bounds.get(b.id, [0, 0])[0], "last_run": bounds.get(b.id, [0, 0])[1]}
+            for b in batches
+        ],
+        "series": series,
+        "violations": [{**v, "fired_at_sample": sample, "fired_at_run": run}
+                       for sample, run, violations in fired for v in violations],
+    }
+    if with_training:
+        answer["training"] = reference.training_points(info["id"])
+    if derived is not None:
+        answer["derived"] = monitoring_charts.derived_chart(info, series, derived)
+    return answer
+
+
 def chart_frame(reference_model_id) -> pd.DataFrame:
-    """The chart's samples as a table (the CSV twin of ``chart``)."""
-    return _frame(chart(reference_model_id)["samples"])
+    """Every checked sample of a reference model as a table, in run order (the CSV twin of
+    ``chart``, with the columns of ``batch_samples_frame``)."""
+    info = reference.get_reference_model(reference_model_id)
+    with session_scope() as session:
+        samples = [s for b in store.batches_of(session, info["id"]) for s in _batch_dict(session, b.id, info)["samples"]]
+    return _frame(sorted(samples, key=lambda s: s["run_index"]))
 
 
 # --- outcomes -----------------------------------------------------------------------------
@@ -513,7 +595,7 @@ def _check_samples(samples) -> list[str]:
 
 def _targets(session, batch_id: int, wanted: list[str]):
     """The batch's rows of ``wanted``; InputError for ids not in it or samples not flagged."""
-    rows = {s.sample_id: s for s in store.samples_of(session, batch_id, with_values=False)}
+    rows = {s.sample_id: s for s in store.samples_of(session, batch_id)}
     unknown = [s for s in wanted if s not in rows]
     if unknown:
         raise InputError(f"sample(s) not in batch {batch_id}: {_listed(unknown)}", field="samples")
@@ -557,9 +639,8 @@ def record_outcome(batch_id, samples, outcome, reason, password, user, cause=Non
         for row in targets:
             store.insert_outcome(session, batch_sample_id=row.id, outcome=outcome, reason=text, cause=found,
                                  signer_id=user.id, printed_name=user.display_name, signed_at=signed_at)
-        flagged = [r.id for r in rows.values() if r.flagged]
-        decided = store.outcomes_of(session, flagged)
-        complete = all(decided[i] for i in flagged)
+        decided = store.outcomes_of(session, batch_id=known)
+        complete = all(decided.get(r.id) for r in rows.values() if r.flagged)
         batch = store.get_batch(session, known)
         reviewed_now = complete and batch.state == "open"
         if reviewed_now and not store.mark_reviewed(session, known, signed_at):

@@ -54,19 +54,20 @@ class FitSettings:
             raise InputError(f"the fit settings must be an object of named settings, got {settings!r}")
         unknown = sorted(set(settings) - set(FIELDS))
         if unknown:
-            raise InputError(f"unknown setting(s): {', '.join(map(str, unknown))}; allowed: {', '.join(FIELDS)}")
+            raise InputError(f"unknown setting(s): {', '.join(map(str, unknown))}; allowed: {', '.join(FIELDS)}",
+                             field=str(unknown[0]))
         scaling = settings.get("scaling", "autoscale")
         if scaling not in SCALINGS:
-            raise InputError(f"'scaling' must be one of {', '.join(SCALINGS)}, got {scaling!r}")
+            raise InputError(f"'scaling' must be one of {', '.join(SCALINGS)}, got {scaling!r}", field="scaling")
         chosen = set(_names(settings.get("variables"), "variables"))
         missing = sorted(chosen - set(dataset_variables))
         if missing:
-            raise InputError(f"unknown variable(s) in 'variables': {', '.join(missing[:10])}")
+            raise InputError(f"unknown variable(s) in 'variables': {', '.join(missing[:10])}", field="variables")
         variables = tuple(v for v in dataset_variables if v in chosen) if chosen else tuple(dataset_variables)
         log10 = tuple(sorted(set(_names(settings.get("log10"), "log10"))))
         not_used = [v for v in log10 if v not in variables]
         if not_used:
-            raise InputError(f"'log10' names variable(s) not in the model: {', '.join(not_used[:10])}")
+            raise InputError(f"'log10' names variable(s) not in the model: {', '.join(not_used[:10])}", field="log10")
         return cls(
             scaling=scaling,
             components=_components(settings.get("components", AUTO)),
@@ -102,21 +103,23 @@ def _names(value: Any, name: str) -> list[str]:
     if value is None:
         return []
     if isinstance(value, str) or not isinstance(value, (list, tuple)):
-        raise InputError(f"'{name}' must be a list of names, got {value!r}")
+        raise InputError(f"'{name}' must be a list of names, got {value!r:.80}", field=name)
     return [str(v) for v in value]
 
 
 def _components(value: Any) -> int | str:
-    if isinstance(value, str) and value.strip().isdigit():
+    if isinstance(value, str) and value.strip().isascii() and value.strip().isdigit():
         value = int(value)
     if value == AUTO:
         return AUTO
     if isinstance(value, bool) or not isinstance(value, int) or value < 1:
-        raise InputError(f"'components' must be a whole number of at least 1 or \"auto\", got {value!r}")
+        raise InputError(f"'components' must be a whole number of at least 1 or \"auto\", got {value!r:.80}",
+                         field="components")
     return value
 
 
 def _confidence(value: Any) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value < 1:
-        raise InputError(f"'confidence' must be a number between 0 and 1 (e.g. 0.95), got {value!r}")
+        raise InputError(f"'confidence' must be a number between 0 and 1 (e.g. 0.95), got {value!r:.80}",
+                         field="confidence")
     return float(value)

@@ -15,7 +15,6 @@ are cached on disk (``HOME/cache/tables``) so fits do not re-read the file.
 from __future__ import annotations
 
 import hashlib
-import json
 from contextlib import contextmanager
 from pathlib import Path, PurePosixPath, PureWindowsPath
 from typing import Any, Iterator
@@ -23,6 +22,7 @@ from typing import Any, Iterator
 import diskcache
 from flask import current_app
 
+from analysis.canonical_json import canonical_sha256
 from analysis.errors import InputError
 from analysis.intake import read_table
 from analysis.table import Table
@@ -61,8 +61,7 @@ def intake_options(
 
 def options_key(sha256: str, options: dict[str, Any]) -> str:
     """Identity of a dataset: its bytes plus the options that turned them into a Table."""
-    canonical = json.dumps({"sha256": sha256, "intake": options}, sort_keys=True, separators=(",", ":"))
-    return hashlib.sha256(canonical.encode("utf-8")).hexdigest()
+    return canonical_sha256({"sha256": sha256, "intake": options})
 
 
 def display_name(filename: str) -> str:

@@ -27,7 +27,6 @@ Annex 11 (2011), section 14, in spirit; LatentDesk claims no compliance.
 from __future__ import annotations
 
 import copy
-import hashlib
 import json
 import math
 import re
@@ -35,8 +34,10 @@ from typing import Any, Iterable, Mapping
 
 import pandas as pd
 
+from analysis import monitoring as mon
 from analysis.errors import InputError
-from analysis.modelfile import canonical_json, model_from_dict, model_to_dict
+from analysis.canonical_json import canonical_sha256
+from analysis.modelfile import fingerprint_scheme, model_from_dict, model_to_dict
 from analysis.pca import PCAModel
 from webapp.services import audit, ingest, modelling, review
 from webapp.services.context import session_scope
@@ -48,13 +49,14 @@ from webapp.services.review_rules import (
     conflict,
 )
 from webapp.store import reference_models as store
+from webapp.store.ids import MAX_ID, check_id, is_id  # noqa: F401 - MAX_ID: webapp.services.batches reads it here
 from webapp.store.review import display_names
 from webapp.store.tables import REFERENCE_MODEL_STATES
 
 DEFAULT_CONFIDENCE = (0.95, 0.99)
+DEFAULT_RUN_RULES = tuple(rule.config() for rule in mon.DEFAULT_RULES)
 MAX_NAME_CHARS = 200
 MAX_NOTE_CHARS = 4000
-MAX_ID = 2**31 - 1  # the id columns are 32-bit integers on PostgreSQL
 SPE_METHOD = "jackson-mudholkar"
 # verb -> (signature step, meaning = the state it leads to)
 SIGNING = {
@@ -70,16 +72,6 @@ class ReferenceModelNotFound(LookupError):
 
 
 # --- checking what people send ------------------------------------------------------------
-
-
-def check_id(value, field: str) -> int:
-    """A whole-number id of a stored row from a request body; InputError naming ``field``."""
-    if isinstance(value, bool) or not isinstance(value, int):
-        shown = "nothing" if value is None else f"{type(value).__name__} {value!r}"[:80]
-        raise InputError(f"{field} must be a whole number (an id), got {shown}", field=field)
-    if not 1 <= value <= MAX_ID:
-        raise InputError(f"{field} {value} is out of range: ids run from 1 to {MAX_ID}", field=field)
-    return value
 
 
 def check_name(value) -> str:
@@ -129,9 +121,7 @@ def check_states(values: Iterable[str] | None) -> list[str] | None:
 
 def _known(reference_model_id) -> int | None:
     """The id when it could name a row, else None (such an id is simply not found)."""
-    if isinstance(reference_model_id, bool) or not isinstance(reference_model_id, int):
-        return None
-    return reference_model_id if 1 <= reference_model_id <= MAX_ID else None
+    return reference_model_id if is_id(reference_model_id) else None
 
 
 # --- the frozen content -------------------------------------------------------------------
@@ -160,8 +150,12 @@ def limits_at(model: PCAModel, confidence: float) -> dict[str, Any]:
 
 
 def document_sha256(document: Mapping[str, Any]) -> str:
-    """SHA-256 (hex) of the open model file's canonical JSON (sorted keys, no spaces)."""
-    return hashlib.sha256(canonical_json(document).encode("ascii")).hexdigest()
+    """SHA-256 (hex) of the open model file's canonical JSON, under the scheme the file names.
+
+    New files name RFC 8785 (``hash_scheme``); files frozen before that key
+    existed are hashed as they were then (``analysis.modelfile.fingerprint_scheme``).
+    """
+    return canonical_sha256(document, fingerprint_scheme(document))
 
 
 def model_file_bytes(document: Mapping[str, Any]) -> bytes:
@@ -170,7 +164,8 @@ def model_file_bytes(document: Mapping[str, Any]) -> bytes:
 
 
 def _frozen_content(model: PCAModel, info: Mapping[str, Any], dataset: Mapping[str, Any], units,
-                    *, name: str, version: int, note: str, warning: float, action: float, proposer: str):
+                    *, name: str, version: int, note: str, warning: float, action: float, proposer: str,
+                    run_rules: list[dict]):
     """(document, variables, limits, training) of a new proposal; the document loads back as a model."""
     log10 = set(info["settings"].get("log10") or [])
     variables = [{"name": v, "unit": units.get(v) or None, "log10": v in log10} for v in model.variable_names_]
@@ -183,7 +178,8 @@ def _frozen_content(model: PCAModel, info: Mapping[str, Any], dataset: Mapping[s
         "approved_exclusions": list(info.get("approved_exclusions") or []),
         "exclusions_signed_off": list(info["excluded"]) == list(info.get("approved_exclusions") or []),
     }
-    limits = {"spe_method": SPE_METHOD, "warning": limits_at(model, warning), "action": limits_at(model, action)}
+    limits = {"spe_method": SPE_METHOD, "warning": limits_at(model, warning), "action": limits_at(model, action),
+              "run_rules": run_rules}
     intake = dict(dataset["intake_options"])
     extra = {
         "dataset_sha256": dataset["sha256"],
@@ -240,6 +236,7 @@ def _as_dict(row, signatures, names: Mapping[int, str], supersedes: int | None) 
         "confidence": {"warning": row.warning_confidence, "action": row.action_confidence},
         "variables": list(row.variables),
         "limits": dict(row.limits),
+        "run_rules": described_rules(frozen_rule_configs(row.limits)),
         "training": dict(row.training),
         "n_components": row.training.get("n_components"),
         "n_samples": row.training.get("n_samples"),
@@ -383,6 +380,33 @@ def frozen_model(reference_model_id: int) -> tuple[PCAModel, dict[str, Any]]:
     return model_from_dict(document), info
 
 
+def training_points(reference_model_id) -> dict[str, Any]:
+    """The training samples under the frozen model, in the training data's row order: ids, scores,
+    T² and SPE (the points a chart shows before the first checked batch).
+
+    Scored with ``analysis.monitoring.score_new_samples`` on the model rebuilt
+    from the frozen file, so the values equal the fit's own.  The limits for
+    these points are the training (Phase I) ones, ``limits[...]["t2_training"]``
+    (Tracy, Young & Mason 1992).  ReferenceModelNotFound.
+    """
+    info = get_reference_model(reference_model_id)
+    with session_scope() as session:  # any state: a reviewer looks at the training points before signing
+        model = model_from_dict(_stored_document(store.get_reference_model(session, info["id"], with_document=True)))
+    data = ingest.load_table(info["dataset_id"]).data
+    used = data.drop(index=[s for s in info["training"]["excluded"] if s in data.index])
+    scored = mon.score_new_samples(model, used[list(model.variable_names_)],
+                                   (info["confidence"]["warning"], info["confidence"]["action"]),
+                                   spe_method=info["limits"]["spe_method"])
+    return {
+        "samples": [str(s) for s in scored.sample_ids],
+        "scores": scored.scores.tolist(),
+        "t2": scored.t2.tolist(),
+        "spe": scored.spe.tolist(),
+        "t2_limit": info["limits"]["action"]["t2_training"],
+        "t2_warning_limit": info["limits"]["warning"]["t2_training"],
+    }
+
+
 def download_name(info: Mapping[str, Any]) -> str:
     """A file name for the model file: ``reference-model-<name>-v<version>.json`` (ASCII only)."""
     slug = re.sub(r"[^A-Za-z0-9]+", "-", info["name"]).strip("-").lower()[:60] or "model"
@@ -392,7 +416,7 @@ def download_name(info: Mapping[str, Any]) -> str:
 # --- writing ------------------------------------------------------------------------------
 
 
-def propose(model_id, name, note="", confidence=DEFAULT_CONFIDENCE, *, user) -> dict[str, Any]:
+def propose(model_id, name, note="", confidence=DEFAULT_CONFIDENCE, *, user, run_rules=None) -> dict[str, Any]:
     """Propose fitted model ``model_id`` as version k of reference model ``name``; logged.
 
     Parameters
@@ -405,6 +429,10 @@ def propose(model_id, name, note="", confidence=DEFAULT_CONFIDENCE, *, user) -> 
         Confidence levels of the warning and action limits, 0 < warning < action < 1.
     user
         Has ``id``, ``name``, ``display_name``, ``role`` (analyst, reviewer or admin).
+    run_rules : list of dict, optional
+        The run rules for this reference model's charts as ``config()`` dicts
+        (``analysis.monitoring.rules_from_config``); default ``DEFAULT_RUN_RULES``.
+        Frozen with the model file.
 
     Returns the reference model dict (state ``proposed``).  Raises ReviewRefused
     (403) for a viewer, InputError naming the field, ModelNotFound (404).
@@ -413,6 +441,7 @@ def propose(model_id, name, note="", confidence=DEFAULT_CONFIDENCE, *, user) -> 
     name = check_name(name)
     text = clean_text(note, field="note", limit=MAX_NOTE_CHARS, required=False)
     warning, action = check_confidence_pair(confidence)
+    rules = check_run_rules(run_rules)
     model_id = check_id(model_id, "model_id")
     model, info = modelling.model_by_id(model_id)
     if info["id"] != model_id:
@@ -426,7 +455,7 @@ def propose(model_id, name, note="", confidence=DEFAULT_CONFIDENCE, *, user) -> 
         version = store.next_version(session, name)
         document, variables, limits, training = _frozen_content(
             model, info, dataset, units, name=name, version=version, note=text, warning=warning, action=action,
-            proposer=user.display_name,
+            proposer=user.display_name, run_rules=rules,
         )
         digest = document_sha256(document)
         row = store.insert_reference_model(
@@ -466,6 +495,7 @@ def propose(model_id, name, note="", confidence=DEFAULT_CONFIDENCE, *, user) -> 
                 "training_sha256": dataset["sha256"],
                 "document_sha256": digest,
                 "confidence": {"warning": warning, "action": action},
+                "run_rules": rules,
                 "variables": variables,
                 "excluded": training["excluded"],
             },
@@ -473,6 +503,34 @@ def propose(model_id, name, note="", confidence=DEFAULT_CONFIDENCE, *, user) -> 
         return _dict_in(session, row.id)
 
     return review.run_write(work)
+
+
+def check_run_rules(configs) -> list[dict]:
+    """The run rules of a proposal as normalised ``config()`` dicts (default ``DEFAULT_RUN_RULES``)."""
+    if configs is None:
+        return list(DEFAULT_RUN_RULES)
+    try:
+        return [rule.config() for rule in mon.rules_from_config(configs)]
+    except InputError as exc:
+        raise InputError(str(exc), field="run_rules") from exc
+
+
+def frozen_rule_configs(limits: Mapping[str, Any]) -> list[dict]:
+    """The run rules frozen with a reference model's limits (and so in its model file);
+    reference models proposed before rules were configurable use ``DEFAULT_RUN_RULES``."""
+    return list(limits.get("run_rules") or DEFAULT_RUN_RULES)
+
+
+def described_rules(configs: list[dict]) -> list[dict]:
+    """Each rule's settings with its id, label and published source (or ``common practice``)."""
+    return [{**rule.config(), "id": rule.id, "label": rule.label, "source": rule.source}
+            for rule in mon.rules_from_config(configs)]
+
+
+def run_rules(info: Mapping[str, Any]) -> tuple:
+    """The rule objects of a reference model dict (``get_reference_model``)."""
+    return mon.rules_from_config([{k: v for k, v in r.items() if k not in ("id", "label", "source")}
+                                  for r in info["run_rules"]])
 
 
 def _check_signer(user, proposed_by) -> None:

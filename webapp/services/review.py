@@ -141,7 +141,7 @@ def _fit_settings(settings: Mapping[str, Any] | None) -> dict[str, Any]:
     if settings is None:
         return {}
     if not isinstance(settings, Mapping):
-        raise InputError(f"'settings' must be an object of fit settings, got {settings!r}")
+        raise InputError(f"'settings' must be an object of fit settings, got {settings!r:.80}", field="settings")
     return {k: v for k, v in settings.items() if k != "exclude"}
 
 

@@ -101,13 +101,13 @@ def check_proposal(
     is reversed).
     """
     if action not in PROPOSAL_ACTIONS:
-        raise InputError(f"action must be one of {', '.join(PROPOSAL_ACTIONS)}, got {action!r}")
+        raise InputError(f"action must be one of {', '.join(PROPOSAL_ACTIONS)}, got {action!r:.80}", field="action")
     if not isinstance(samples, (list, tuple)) or not samples:
-        raise InputError("samples must be a non-empty list of sample ids")
+        raise InputError("samples must be a non-empty list of sample ids", field="samples")
     ids = []
     for value in samples:
         if not isinstance(value, (str, int)) or isinstance(value, bool):
-            raise InputError(f"sample id {value!r} is not text")
+            raise InputError(f"sample id {value!r:.80} in samples is not text", field="samples")
         ids.append(str(value))
     duplicates = sorted({s for s in ids if ids.count(s) > 1})
     if duplicates:

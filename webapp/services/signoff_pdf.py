@@ -280,8 +280,9 @@ def report_pdf(dataset_id: int, proposal_id: int | None = None, *, printed_by: s
             [Paragraph("approved exclusions now", s.head),
              Paragraph(_t(", ".join(data["approved_exclusions"]) or "none"), s.small)],
             [Paragraph("review log", s.head),
-             Paragraph(f"{_t(chain_status(chain))}<br/>chain head: entry {_t(chain['head_seq'])}, "
-                       f"<font face='{MONO}'>{_t(chain['head_hash'])}</font>", s.small)],
+             Paragraph(f"{_t(chain_status(chain))}<br/>chain head at printing: entry {_t(chain['head_seq'])}, "
+                       f"<font face='{MONO}'>{_t(chain['head_hash'])}</font>"
+                       + (f", written {_t(chain['head_at'])} (UTC)" if chain["head_at"] else ""), s.small)],
         ],
         [42 * mm, WIDTH - 42 * mm],
         header=False,

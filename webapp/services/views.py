@@ -44,7 +44,7 @@ def _selection(value) -> list[str]:
     if value is None:
         return []
     if not isinstance(value, (list, tuple)):
-        raise InputError("selection must be a list of sample ids")
+        raise InputError("selection must be a list of sample ids", field="selection")
     if len(value) > MAX_SELECTION:
         raise InputError(f"selection holds {len(value)} samples; the limit is {MAX_SELECTION}")
     return list(dict.fromkeys(str(v) for v in value))
@@ -77,7 +77,7 @@ def save_view(
     if not has_role(user.role, "analyst"):
         raise forbidden(f"a {user.role} cannot save views; analysts and reviewers can")
     if page not in PAGES:
-        raise InputError(f"page must be one of {', '.join(PAGES)}, got {page!r}")
+        raise InputError(f"page must be one of {', '.join(PAGES)}, got {page!r:.80}", field="page")
     title_text = clean_text(title, field="title", limit=MAX_TITLE_CHARS, required=True)
     note_text = clean_text(note, field="note", limit=MAX_NOTE_CHARS, required=False)
     chosen = _selection(selection)

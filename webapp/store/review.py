@@ -126,6 +126,11 @@ def count_log(session: Session) -> int:
     return session.scalar(select(func.count()).select_from(ReviewLogEntry)) or 0
 
 
+def log_entry_at(session: Session, seq: int) -> ReviewLogEntry | None:
+    """The log entry with sequence number ``seq``, or None when there is none."""
+    return session.scalar(select(ReviewLogEntry).where(ReviewLogEntry.seq == seq))
+
+
 # --- proposals and sign-offs --------------------------------------------------------------
 
 

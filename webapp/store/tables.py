@@ -17,6 +17,7 @@ from sqlalchemy import (
     ForeignKey,
     Index,
     Integer,
+    LargeBinary,
     MetaData,
     String,
     Text,
@@ -175,6 +176,8 @@ class ReviewLogEntry(Base):
     payload: Mapped[dict[str, Any]] = mapped_column(default=dict)
     prev_hash: Mapped[str] = mapped_column(String(64))
     hash: Mapped[str] = mapped_column(String(64))
+    # The canonical JSON ``hash`` was computed under (webapp.services.audit, migration 0006_hash_scheme).
+    hash_scheme: Mapped[str] = mapped_column(String(32))
 
 
 class SavedView(Base):
@@ -314,7 +317,8 @@ class BatchSample(Base):
 
     Append-only (migration 0004_batches). ``run_index`` continues across every
     batch of the reference model (1, 2, ...); ``violations`` holds the run-rule
-    violations that fired at this sample.
+    violations that fired at this sample. Its scores and measured values are
+    a row of its batch's ``BatchArrays``.
     """
 
     __tablename__ = "batch_samples"
@@ -328,8 +332,6 @@ class BatchSample(Base):
     reference_model_id: Mapped[int] = mapped_column(ForeignKey("reference_models.id"))
     run_index: Mapped[int] = mapped_column(Integer)
     sample_id: Mapped[str] = mapped_column(String(500))
-    measured: Mapped[list[Any]] = mapped_column(default=list)  # raw values, model variable order; None = missing
-    scores: Mapped[list[Any]] = mapped_column(default=list)
     t2: Mapped[float] = mapped_column(Float)
     spe: Mapped[float] = mapped_column(Float)
     incomplete: Mapped[bool] = mapped_column(Boolean, default=False)
@@ -339,6 +341,24 @@ class BatchSample(Base):
     spe_action: Mapped[bool] = mapped_column(Boolean)
     flagged: Mapped[bool] = mapped_column(Boolean)
     violations: Mapped[list[Any]] = mapped_column(default=list)
+
+
+class BatchArrays(Base):
+    """A batch's scores and measured values, one float64 matrix each (migration 0005_batch_arrays).
+
+    Little-endian float64 bytes, rows in run order (the batch's samples by
+    ``run_index``): ``scores`` n_samples x n_components, ``measured``
+    n_samples x n_variables in the model's variable order, NaN where a value
+    was missing. Append-only.
+    """
+
+    __tablename__ = "batch_arrays"
+
+    batch_id: Mapped[int] = mapped_column(ForeignKey("batches.id"), primary_key=True)
+    n_components: Mapped[int] = mapped_column(Integer)
+    n_variables: Mapped[int] = mapped_column(Integer)
+    scores: Mapped[bytes] = mapped_column(LargeBinary)
+    measured: Mapped[bytes] = mapped_column(LargeBinary)
 
 
 class BatchOutcome(Base):

@@ -1,5 +1,10 @@
 """Unknown addresses answer 404: Dash serves its page shell for any path, so the
-server checks the path against the registered pages before Dash sees it."""
+server checks the path against the registered pages before Dash sees it.
+
+A template part named ``<..._id>`` is a row id and must be spelled as one
+(``webapp.store.ids.parse_id``: ASCII digits, 1 to MAX_ID), else the path is no
+page; ``TOKEN_PARTS`` are the exceptions, ids that are not row numbers.
+"""
 
 from __future__ import annotations
 
@@ -7,15 +12,30 @@ import dash
 from flask import request
 
 from webapp.auth import denial, matches_path_template
+from webapp.store.ids import parse_id
 
 DASH_CATCH_ALL = ("/", "/<path:path>")  # the endpoints under which Dash serves its page shell
+TOKEN_PARTS = {"view_id"}  # a saved view is named by a random token (webapp.services.views)
+
+
+def _ids_fit(template: str, path: str) -> bool:
+    for part, value in zip(template.strip("/").split("/"), path.strip("/").split("/")):
+        name = part[1:-1] if part.startswith("<") and part.endswith(">") else ""
+        if name.endswith("_id") and name not in TOKEN_PARTS and parse_id(value) is None:
+            return False
+    return True
+
+
+def _fits(page: dict, path: str) -> bool:
+    template = page.get("path_template")
+    return page.get("path") == path or (matches_path_template(template, path) and _ids_fit(template, path))
 
 
 def is_page(path: str) -> bool:
-    """Whether ``path`` is the path of a registered page or fits a page's template."""
+    """Whether ``path`` is the path of a registered page or fits a page's template, its row ids
+    well formed (OWASP Input Validation Cheat Sheet: allow-list syntax before use)."""
     normal = "/" + path.strip("/")
-    return any(page.get("path") == normal or matches_path_template(page.get("path_template"), normal)
-               for page in dash.page_registry.values())
+    return any(_fits(page, normal) for page in dash.page_registry.values())
 
 
 def refuse_unknown_pages():

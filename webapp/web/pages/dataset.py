@@ -24,6 +24,7 @@ from flask_login import current_user
 from analysis.errors import InputError
 from webapp import auth, jobs
 from webapp import url_state
+from webapp.store.ids import parse_id
 from webapp.web.ui import fields, ids
 from webapp.url_state import ViewState
 
@@ -57,9 +58,12 @@ def dataset_or_none(dataset_id) -> dict | None:
     """The dataset record, or None for an id that is not a stored dataset."""
     from webapp.services import ingest
 
+    known = parse_id(dataset_id)
+    if known is None:
+        return None
     try:
-        return ingest.dataset_info(int(dataset_id))
-    except (TypeError, ValueError, ingest.DatasetNotFound):
+        return ingest.dataset_info(known)
+    except ingest.DatasetNotFound:
         return None
 
 

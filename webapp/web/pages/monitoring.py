@@ -18,6 +18,7 @@ from flask_login import current_user
 from analysis.errors import InputError
 from webapp import auth
 from webapp import url_state
+from webapp.store.ids import parse_id
 from webapp.web.pages.review import when
 from webapp.web.ui import ids
 from webapp.web.ui.fields import labelled
@@ -99,7 +100,7 @@ def propose_form(model_id: int | None) -> html.Section:
 def layout(model=None, **_query) -> html.Div:
     from webapp.services import reference_models as reference
 
-    model_id = int(model) if isinstance(model, str) and model.isdigit() else None
+    model_id = parse_id(model)
     return html.Div(
         [
             html.H1("Monitoring"),

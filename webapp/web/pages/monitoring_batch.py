@@ -18,6 +18,7 @@ from flask_login import current_user
 from analysis.errors import InputError
 from webapp import auth
 from webapp import url_state
+from webapp.store.ids import parse_id
 from webapp.web.pages.monitoring import CAUTION
 from webapp.web.pages.review import when
 from webapp.web.ui import ids
@@ -179,9 +180,12 @@ def outcome_form(batch: dict, user) -> html.Section | None:
 def _batch_or_none(batch_id):
     from webapp.services import batches
 
+    known = parse_id(batch_id)
+    if known is None:
+        return None
     try:
-        return batches.batch_info(int(batch_id))
-    except (TypeError, ValueError, batches.BatchNotFound):
+        return batches.batch_info(known)
+    except batches.BatchNotFound:
         return None
 
 

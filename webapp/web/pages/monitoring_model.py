@@ -19,9 +19,10 @@ from flask_login import current_user
 from analysis.errors import InputError
 from webapp import auth
 from webapp import url_state
+from webapp.store.ids import parse_id
 from webapp.web.pages.monitoring import CAUTION, signature_lines
 from webapp.web.pages.review import when
-from webapp.web.ui import ids
+from webapp.web.ui import ids, plot_table
 from webapp.web.ui.fields import labelled
 from webapp.web.ui.graph_config import GRAPH_CONFIG
 
@@ -38,9 +39,12 @@ def _num(value) -> str:
 def _model_or_none(reference_model_id):
     from webapp.services import reference_models as reference
 
+    known = parse_id(reference_model_id)
+    if known is None:
+        return None
     try:
-        return reference.get_reference_model(int(reference_model_id))
-    except (TypeError, ValueError, reference.ReferenceModelNotFound):
+        return reference.get_reference_model(known)
+    except reference.ReferenceModelNotFound:
         return None
 
 
@@ -77,6 +81,8 @@ def facts_block(info: dict) -> html.Div:
             variables,
             html.H3("Limits", className="ld-subhead"),
             limit_rows,
+            html.H3("Run rules on every chart", className="ld-subhead"),
+            html.Ul([html.Li(f"{r['label']} ({r['source']})") for r in info["run_rules"]]),
             html.P(f"Training data SHA-256: {info['training_sha256']}", className="ld-hash"),
             html.P(f"Model fingerprint: {info['fingerprint']}", className="ld-hash"),
             html.P(f"Model file SHA-256: {info['document_sha256']}", className="ld-hash"),
@@ -140,8 +146,11 @@ def upload_form(info: dict, user) -> html.Section | None:
 
 
 def _statistic_options(info: dict) -> list[dict]:
+    from webapp.services.monitoring_charts import DERIVED
+
     scores = [{"label": f" Score on PC{a}", "value": f"PC{a}"} for a in range(1, (info["n_components"] or 0) + 1)]
-    return [{"label": " Hotelling's T²", "value": "t2"}, {"label": " SPE", "value": "spe"}, *scores]
+    derived = [{"label": f" {title}", "value": key} for key, (title, _source) in DERIVED.items()]
+    return [{"label": " Hotelling's T²", "value": "t2"}, {"label": " SPE", "value": "spe"}, *scores, *derived]
 
 
 def violations_table(chart: dict) -> html.Table | html.P:
@@ -190,8 +199,11 @@ def chart_figure(reference_model_id: int, statistic: str = "t2"):
     """The continuing control chart of ``statistic`` (t2, spe or PC<k>) for the page."""
     from webapp.services import batches
     from webapp.services import reference_models as reference
-    from webapp.web.ui.monitoring_figures import control_chart_figure
+    from webapp.services.monitoring_charts import DERIVED
+    from webapp.web.ui.monitoring_figures import control_chart_figure, derived_chart_figure
 
+    if statistic in DERIVED:
+        return derived_chart_figure(batches.chart(reference_model_id, with_training=False, derived=statistic))
     info = reference.get_reference_model(reference_model_id)
     chart = batches.chart(reference_model_id)
     return control_chart_figure(chart, statistic, _score_limits(reference_model_id, statistic, info))
@@ -229,7 +241,7 @@ def layout(reference_model_id=None, **_query) -> html.Div:
                                                               className="ld-radio",
                                                               options=_statistic_options(info))),
                              className="ld-field"),
-                    dcc.Graph(id=ids.MON_CHART, config=GRAPH_CONFIG),
+                    plot_table.plot_figure(dcc.Graph(id=ids.MON_CHART, config=GRAPH_CONFIG)),
                     html.H3("Run-rule violations", className="ld-subhead"),
                     html.Div(violations, id=ids.MON_VIOLATIONS),
                     html.H3("Batches", className="ld-subhead"),

@@ -18,6 +18,7 @@ from flask_login import current_user
 from analysis.errors import InputError
 from webapp import auth
 from webapp import url_state
+from webapp.store.ids import parse_id
 from webapp.web.ui import ids, messages
 
 dash.register_page(__name__, path="/review", name="Review", title="Review · LatentDesk", nav=True, order=20)
@@ -212,13 +213,16 @@ def proposal_detail(proposal: dict) -> html.Div:
 def layout(proposal=None, dataset=None, **_query) -> html.Div:
     from webapp.services import review
 
-    dataset_id = int(dataset) if isinstance(dataset, str) and dataset.isdigit() else None
+    dataset_id = parse_id(dataset)
     names = _dataset_names()
     detail: Any = None
     if proposal is not None:
         try:
-            chosen = review.get_proposal(int(proposal))
-        except (ValueError, review.ProposalNotFound):
+            known = parse_id(proposal)
+            if known is None:  # not spelled as an id: no proposal can have it
+                raise review.ProposalNotFound(proposal)
+            chosen = review.get_proposal(known)
+        except review.ProposalNotFound:
             detail = html.P(f"There is no proposal {proposal}.", className="ld-alert")
         else:
             detail = html.Div(

@@ -12,6 +12,7 @@ from dash import Input, Output, State, callback, dcc, html
 from urllib.parse import urlencode
 
 from webapp import url_state
+from webapp.store.ids import parse_id
 from webapp.web.ui import fields, ids
 
 dash.register_page(__name__, path="/review/log", name="Review log", title="Review log · LatentDesk")
@@ -50,7 +51,7 @@ def log_table(entries: list[dict]) -> html.Table | html.P:
 def entries_for(dataset_id: int, action: str | None, actor: str | None) -> list[dict]:
     from webapp.services import review
 
-    actor_id = int(actor) if actor not in (None, "") and str(actor).isdigit() else None
+    actor_id = parse_id(str(actor)) if actor is not None else None
     return review.log_for_dataset(dataset_id, actions=[action] if action else None, actor_id=actor_id)
 
 
@@ -73,10 +74,10 @@ def _verify_banner() -> html.P:
 def layout(dataset=None, action=None, actor=None, **_query) -> html.Div:
     from webapp.services import ingest, review
 
-    if not (isinstance(dataset, str) and dataset.isdigit()):
+    dataset_id = parse_id(dataset)
+    if dataset_id is None:
         return html.Div([html.H1("Review log"), html.P("Open the log from a dataset or a proposal.",
                                                       className="ld-muted")])
-    dataset_id = int(dataset)
     try:
         info = ingest.dataset_info(dataset_id)
     except ingest.DatasetNotFound:

@@ -17,6 +17,7 @@ from webapp import auth
 from webapp.web.pages.review import CAUTION, comparison_block
 from webapp.services.review_rules import REASON_CATEGORIES
 from webapp import url_state
+from webapp.store.ids import parse_id
 from webapp.web.ui import ids, messages
 
 dash.register_page(
@@ -34,10 +35,10 @@ def layout(dataset=None, action="exclude", sample=None, **query) -> html.Div:
     from webapp.services import ingest, review
 
     samples = _list(sample)
-    if not (isinstance(dataset, str) and dataset.isdigit()):
+    dataset_id = parse_id(dataset)
+    if dataset_id is None:
         return html.Div([html.H1("Propose"), html.P(
             "Open a dataset, select samples on a plot and choose 'Propose exclusion'.", className="ld-muted")])
-    dataset_id = int(dataset)
     try:
         info = ingest.dataset_info(dataset_id)
     except ingest.DatasetNotFound:

@@ -22,6 +22,7 @@ from analysis.errors import InputError
 from webapp import auth
 from webapp.web.pages.review import when
 from webapp import url_state
+from webapp.store.ids import parse_id
 from webapp.web.ui import ids, messages
 
 dash.register_page(__name__, path="/views", name="Saved views", title="Saved views · LatentDesk", nav=True,
@@ -99,7 +100,7 @@ def _listed(dataset_id: int | None) -> html.Table | html.P:
 def layout(save=None, dataset=None, sel=None, **query) -> html.Div:
     from webapp.services.ingest import list_datasets
 
-    dataset_id = int(dataset) if isinstance(dataset, str) and dataset.isdigit() else None
+    dataset_id = parse_id(dataset)
     names = {d["id"]: d["name"] for d in list_datasets()}
     selection = [str(s) for s in sel] if isinstance(sel, (list, tuple)) else ([str(sel)] if sel else [])
     form = _save_form(dataset_id, query, selection) if save == "1" and dataset_id in names else None

@@ -47,6 +47,7 @@ PLOT_NAMES = {
     ids.GRAPH_SPE_CHART: "Control chart of SPE",
     ids.GRAPH_SPE_CONTRIB: "SPE contributions of the sample",
     ids.GRAPH_T2_CONTRIB: "T² contributions of the sample",
+    ids.MON_CHART: "Control chart across every checked batch",
 }
 SHOW, HIDE = "Show the numbers", "Hide the numbers"
 
