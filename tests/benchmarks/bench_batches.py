@@ -9,8 +9,10 @@ scoring, limits, run rules over the continuing series, store), then, after
 References measured in the same run and process: ``pandas.read_csv`` of the same
 bytes and ``PCAModel.transform`` of the same matrix (for the upload), and
 ``json.dumps`` of an equally long list of plain dicts (for the chart). Printed as
-seconds and as ratios. The issue's targets: a 10,000-sample batch under 1 s, the
-chart of 100,000 checked samples under 1 s.
+seconds and as ratios. Then the peak memory (``tracemalloc``) while one more batch is
+checked, against the batch table's size. The issue's targets: a 10,000-sample batch
+under 1 s, the chart of 100,000 checked samples under 1 s, memory within 3x the batch
+table.
 
 Not part of the default test run. Usage:
 
@@ -24,13 +26,16 @@ import io
 import json
 import tempfile
 import time
+import tracemalloc
 
 import numpy as np
 import pandas as pd
 
 from analysis.pca import PCAModel
 from webapp import auth
+from webapp.api.responses import json_text
 from webapp.app import create_app
+from webapp.services import batches
 from webapp.store import accounts, session_scope
 
 
@@ -95,7 +100,25 @@ def main() -> None:
         print(f"  batch {b + 1} ({args.batch} samples, {len(raw) / 1024**2:.1f} MB): {seconds:6.3f} s"
               f"   {seconds / reference:6.1f} x read_csv + transform ({reference:.3f} s)")
 
-    checked = args.batch * args.batches
+    # Memory: peak of Python's (and numpy's) allocations while the server checks one more batch and
+    # encodes its answer, the uploaded bytes already in memory (the test client's own copies of the
+    # request are left out), against the batch table (its DataFrame, ids included). Target: within 3x.
+    extra = _frame(args.batch, args.cols, 1_000_000 * (args.batches + 1), rng)
+    raw = extra.to_csv(index=False).encode()
+    table_bytes = extra.memory_usage(deep=True).sum()
+    with app.test_request_context():
+        with session_scope() as s:
+            row = accounts.get_user_by_name(s, "ana")
+            analyst = auth.CurrentUser(id=row.id, name=row.name, display_name=row.display_name, role=row.role)
+        tracemalloc.start()
+        answer = json_text({"ok": True, "batch": batches.check_batch(ref, raw, "extra.csv", analyst)})
+        _, peak = tracemalloc.get_traced_memory()
+        tracemalloc.stop()
+    del answer
+    print(f"  memory while checking one batch: peak {peak / 1024**2:.1f} MB = {peak / table_bytes:.2f} x the batch"
+          f" table ({table_bytes / 1024**2:.1f} MB); the upload itself is {len(raw) / 1024**2:.1f} MB")
+
+    checked = args.batch * (args.batches + 1)
     answer, t_chart = _timed(lambda: client.get(f"/api/v1/reference-models/{ref}/chart", headers=people["ana"]))
     ok(answer)
     plain = [{"run": i, "batch": 1, "sample": f"S{i:07d}", "t2": 1.0, "spe": 0.5, "scores": [0.1, 0.2, 0.3],

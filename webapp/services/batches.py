@@ -25,7 +25,6 @@ from __future__ import annotations
 
 import hashlib
 import math
-from types import SimpleNamespace
 from typing import Any, Iterable, Mapping
 
 import numpy as np
@@ -258,15 +257,11 @@ def check_batch(reference_model_id, raw: bytes, filename: str, user, *, id_colum
         columns = zip(sample_ids, scored.t2.tolist(), scored.spe.tolist(), scored.incomplete.tolist(),
                       scored.t2_exceeds_warning.tolist(), scored.t2_exceeds_action.tolist(),
                       scored.spe_exceeds_warning.tolist(), scored.spe_exceeds_action.tolist(), flags)
-        rows = [
-            {"batch_id": batch.id, "reference_model_id": info["id"], "run_index": first_run + i, "sample_id": sample,
-             "t2": t2, "spe": spe, "incomplete": incomplete, "t2_warning": t2_warning, "t2_action": t2_action,
-             "spe_warning": spe_warning, "spe_action": spe_action, "flagged": flagged,
-             "violations": violations.get(i, [])}
-            for i, (sample, t2, spe, incomplete, t2_warning, t2_action, spe_warning, spe_action, flagged)
-            in enumerate(columns)
+        samples = [
+            store.SampleRow(None, batch.id, first_run + i, *values_of_sample, violations.get(i, []))
+            for i, values_of_sample in enumerate(columns)
         ]
-        store.insert_samples(session, rows)
+        store.insert_samples(session, info["id"], samples)
         store.insert_arrays(session, batch.id, scored.scores, values)
         audit.append(
             session, actor_id=user.id, actor_name=user.display_name, action="batch_checked",
@@ -274,14 +269,13 @@ def check_batch(reference_model_id, raw: bytes, filename: str, user, *, id_colum
             payload={
                 "batch_id": batch.id, "reference_model_id": info["id"], "name": info["name"],
                 "version": info["version"], "account": user.name, "file": name, "file_sha256": sha256,
-                "n_samples": len(sample_ids), "n_flagged": n_flagged, "retest": retest,
+                "n_samples": len(samples), "n_flagged": n_flagged, "retest": retest,
                 "flagged": [s for s, f in zip(sample_ids, flags) if f][:1000],
                 "first_run": first_run, "document_sha256": info["document_sha256"],
             },
         )
         # answered from what was just written (no outcomes yet), not read back
-        return _batch_answer(session, batch, info, [SimpleNamespace(id=None, **row) for row in rows],
-                             scored.scores.tolist(), {})
+        return _batch_answer(session, batch, info, samples, scored.scores.tolist(), {})
 
     checked = review.run_write(work)
     webhooks.batch_checked(checked)  # queued: never blocks the upload (off by default)

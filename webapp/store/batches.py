@@ -30,11 +30,16 @@ def insert_batch(session: Session, **fields: Any) -> Batch:
     return add_and_flush(session, Batch(**fields))
 
 
-def insert_samples(session: Session, rows: Iterable[dict[str, Any]]) -> None:
-    """Add checked samples (dicts of ``BatchSample`` columns) in one statement."""
-    rows = list(rows)
-    if rows:
-        session.execute(BatchSample.__table__.insert(), rows)
+INSERT_CHUNK = 1000  # rows per INSERT statement: the parameter dicts of a large batch never all exist at once
+
+
+def insert_samples(session: Session, reference_model_id: int, samples: list["SampleRow"]) -> None:
+    """Add checked samples (``SampleRow``, ``id`` None) of one reference model, in chunks."""
+    for start in range(0, len(samples), INSERT_CHUNK):
+        session.execute(BatchSample.__table__.insert(), [
+            dict(zip(SampleRow._fields[1:], row[1:]), reference_model_id=reference_model_id)  # id: the database's
+            for row in samples[start:start + INSERT_CHUNK]
+        ])
 
 
 def get_batch(session: Session, batch_id: int) -> Batch | None:
