@@ -197,6 +197,16 @@ def test_propose_from_the_page_and_its_messages(app, client, team):
                                                           "weekly", 0.9, 0.99)
     assert chosen["state"] == "proposed" and chosen["confidence"] == {"warning": 0.9, "action": 0.99}
     assert "waits for a reviewer" in _text(message)
+    with app.test_request_context("/"):
+        message, none = listing.propose_reference_model(_user(team["analyst"]), model_id, "Cellar", "", 0.95, 0.99,
+                                                        [])
+        assert none is None and "run rules" in _text(message)
+        _, ticked = listing.propose_reference_model(_user(team["analyst"]), model_id, "Cellar", "", 0.95, 0.99,
+                                                    ["9-one-side", "beyond-action"])
+    # Nelson (1984) test 2: nine points in a row on one side of the centre line
+    assert [(r["id"], r["source"]) for r in ticked["run_rules"]] == [
+        ("beyond-action", "Western Electric (1956) rule 1; Nelson (1984) test 1"),
+        ("9-one-side", "Nelson (1984) test 2")]
 
 
 # ---------------------------------------------------------------- /monitoring/<id>

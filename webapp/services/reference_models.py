@@ -55,6 +55,15 @@ from webapp.store.tables import REFERENCE_MODEL_STATES
 
 DEFAULT_CONFIDENCE = (0.95, 0.99)
 DEFAULT_RUN_RULES = tuple(rule.config() for rule in mon.DEFAULT_RULES)
+# The rules a proposer picks from in the browser (the API takes any valid settings).
+RULE_CHOICES = (
+    {"rule": "beyond", "level": "action"},
+    {"rule": "beyond", "level": "warning"},
+    {"rule": "k_of_m", "k": 2, "m": 3, "level": "warning"},
+    {"rule": "run", "length": 8},
+    {"rule": "run", "length": 9},
+    {"rule": "trend", "length": 6},
+)
 MAX_NAME_CHARS = 200
 MAX_NOTE_CHARS = 4000
 SPE_METHOD = "jackson-mudholkar"

@@ -65,6 +65,26 @@ def _level_choice(control_id: str, value: float) -> dcc.Dropdown:
                         value=value, clearable=False)
 
 
+def _rule_choice() -> dcc.Checklist:
+    """The run rules to pick from, each with its published source; the defaults ticked."""
+    from webapp.services import reference_models as reference
+
+    choices = reference.described_rules(list(reference.RULE_CHOICES))
+    defaults = {r["id"] for r in reference.described_rules(list(reference.DEFAULT_RUN_RULES))}
+    return dcc.Checklist(id=ids.MON_PROPOSE_RULES, className="ld-checklist",
+                         options=[{"label": f" {r['label']} ({r['source']})", "value": r["id"]} for r in choices],
+                         value=[r["id"] for r in choices if r["id"] in defaults])
+
+
+def chosen_rules(rule_ids) -> list[dict]:
+    """The settings of the ticked rules (``RULE_CHOICES`` by id), in the catalogue's order."""
+    from webapp.services import reference_models as reference
+
+    ticked = set(rule_ids or [])
+    return [{k: v for k, v in r.items() if k not in ("id", "label", "source")}
+            for r in reference.described_rules(list(reference.RULE_CHOICES)) if r["id"] in ticked]
+
+
 def propose_form(model_id: int | None) -> html.Section:
     """The proposal form (analysts); the model id comes from the link of the dataset page."""
     if not auth.has_role(current_user.role, "analyst"):
@@ -87,6 +107,7 @@ def propose_form(model_id: int | None) -> html.Section:
                                                    maxLength=4000)),
                     *labelled("Warning confidence", _level_choice(ids.MON_PROPOSE_WARNING, 0.95)),
                     *labelled("Action confidence", _level_choice(ids.MON_PROPOSE_ACTION, 0.99)),
+                    *labelled("Run rules on every chart (T², SPE and the scores)", _rule_choice()),
                     html.Button("Propose", id=ids.MON_PROPOSE_SUBMIT, className="ld-button"),
                 ],
                 className="ld-form",
@@ -113,14 +134,16 @@ def layout(model=None, **_query) -> html.Div:
     )
 
 
-def propose_reference_model(user, model_id, name, note, warning, action):
-    """Propose for ``user``; returns (message component, reference model dict or None)."""
+def propose_reference_model(user, model_id, name, note, warning, action, rule_ids=None):
+    """Propose for ``user`` with the ticked run rules (``RULE_CHOICES`` ids; None: the defaults);
+    returns (message component, reference model dict or None)."""
     from webapp.services import reference_models as reference
 
     try:
         whole = isinstance(model_id, float) and model_id.is_integer()
+        rules = None if rule_ids is None else chosen_rules(rule_ids)
         chosen = reference.propose(int(model_id) if whole else model_id, name, note or "", [warning, action],
-                                   user=user)
+                                   user=user, run_rules=rules)
     except InputError as exc:  # ReviewRefused is an InputError too
         return html.P(str(exc), className="ld-alert", role="alert"), None
     except LookupError:
@@ -142,14 +165,15 @@ def propose_reference_model(user, model_id, name, note, warning, action):
     State(ids.MON_PROPOSE_NOTE, "value"),
     State(ids.MON_PROPOSE_WARNING, "value"),
     State(ids.MON_PROPOSE_ACTION, "value"),
+    State(ids.MON_PROPOSE_RULES, "value"),
     prevent_initial_call=True,
 )
-def _on_propose(n_clicks, model_id, name, note, warning, action):
+def _on_propose(n_clicks, model_id, name, note, warning, action, rule_ids):
     from webapp.services import reference_models as reference
 
     if not n_clicks:
         return no_update, no_update
-    message, chosen = propose_reference_model(current_user, model_id, name, note, warning, action)
+    message, chosen = propose_reference_model(current_user, model_id, name, note, warning, action, rule_ids or [])
     if chosen is None:
         return message, no_update
     return message, reference_model_table(reference.list_reference_models())
