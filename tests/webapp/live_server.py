@@ -116,13 +116,17 @@ def insert_proposals(app, dataset_id: int, proposer_id: int, proposer_name: str,
 
 
 def insert_dataset(app, uploader_id: int) -> int:
-    """A dataset row to hang proposals on (the bytes are not needed by the sign-off path)."""
+    """A dataset row to hang proposals on (the bytes are not needed by the sign-off path).
+
+    It counts 100 samples, so approving the load-test exclusions (S000, S001, ...) leaves
+    enough for a model (an approval is re-checked against the sample count).
+    """
     from webapp.store import datasets, session_scope
 
     with app.app_context(), session_scope() as s:
         row = datasets.insert_dataset(
             s, sha256="0" * 63 + "1", name="load-test.csv", stored_path="00/none", size_bytes=0,
-            id_column="sample", sheet=None, intake_options={}, n_samples=0, n_variables=0,
+            id_column="sample", sheet=None, intake_options={}, n_samples=100, n_variables=0,
             variables=[], metadata_columns=[], warnings=[], report={}, uploaded_by=uploader_id,
         )
         return row.id

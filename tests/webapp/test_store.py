@@ -96,10 +96,11 @@ def test_one_decision_per_proposal_is_enforced_by_the_database(engine):
                                      reason="typo", proposed_by=user.id)
         s.add(proposal)
         s.flush()
-        s.add(SignOff(proposal_id=proposal.id, signer_id=user.id, printed_name="A", meaning="approved"))
-        proposal_id, user_id = proposal.id, user.id
+        signer = _user(s, "rita", "reviewer")  # never the proposer (migration 0008_review_integrity)
+        s.add(SignOff(proposal_id=proposal.id, signer_id=signer.id, printed_name="A", meaning="approved"))
+        proposal_id, signer_id = proposal.id, signer.id
     with pytest.raises(IntegrityError), engine_session(engine) as s:
-        s.add(SignOff(proposal_id=proposal_id, signer_id=user_id, printed_name="B", meaning="rejected"))
+        s.add(SignOff(proposal_id=proposal_id, signer_id=signer_id, printed_name="B", meaning="rejected"))
 
 
 def test_model_fingerprints_are_unique(engine):
@@ -132,12 +133,24 @@ def test_json_columns_round_trip(engine):
         assert row.variables == ["v1", "v2"] and row.report == {"note": "é"}
 
 
-def test_failed_login_counter_adds_up(engine):
+def test_failed_login_counter_adds_up_and_locks_at_the_limit(engine):
+    # Lockout after a fixed number of failures: OWASP Authentication Cheat Sheet (account lockout).
     with engine_session(engine) as s:
         user_id = _user(s).id
+    now = datetime.now(timezone.utc)
+    until = now + timedelta(minutes=15)
     for expected in (1, 2, 3):
         with engine_session(engine) as s:
-            assert accounts.count_failed_login(s, user_id) == expected
+            assert accounts.reserve_password_check(s, user_id, now=now, max_failures=3, lock_until=until)
+            assert s.scalar(select(User.failed_logins).where(User.id == user_id)) == expected
+    with engine_session(engine) as s:
+        assert accounts.locked_until(s, user_id) == until
+        assert not accounts.reserve_password_check(s, user_id, now=now, max_failures=3, lock_until=until)
+    later = until + timedelta(seconds=1)  # the lock has run out: the count starts again at one
+    with engine_session(engine) as s:
+        assert accounts.reserve_password_check(s, user_id, now=later, max_failures=3, lock_until=later)
+        assert s.scalar(select(User.failed_logins).where(User.id == user_id)) == 1
+        assert accounts.locked_until(s, user_id) is None
     with engine_session(engine) as s:
         accounts.clear_failed_logins(s, user_id)
         assert s.scalar(select(User.failed_logins).where(User.id == user_id)) == 0

@@ -1,7 +1,10 @@
 """The review sub-commands of ``latentdesk``: ``log verify`` and ``log head``.
 
 ``latentdesk log verify`` recomputes the review log's hash chain on the
-configured database: exit 0 when intact, 1 with the first broken entry named.
+configured database and checks every record (proposals, sign-offs, reference
+models, signatures, batches, batch outcomes) against the log entry that wrote
+it (``webapp.services.record_audit``): exit 0 when both hold, 1 naming the first
+broken entry and every record that differs (table, id, field, entry seq).
 ``latentdesk log head`` prints the chain head (entry count, last entry, its
 hash and UTC time) to be kept outside the database, so a later truncation of
 the log can be noticed (docs/design.md, section 6).
@@ -39,16 +42,24 @@ def _read_log(read: Callable[[Any], Any]) -> Any:
 
 
 def _cmd_log_verify(args: argparse.Namespace) -> int:
-    from webapp.services import audit
+    from webapp.services import audit, record_audit
 
-    intact, broken, reason, head = _read_log(lambda session: (*audit.verify_chain(session),
-                                                               audit.chain_head_summary(session)))
+    intact, broken, reason, head, (checked, findings) = _read_log(
+        lambda session: (*audit.verify_chain(session), audit.chain_head_summary(session),
+                         record_audit.check_records(session))
+    )
     if intact:
         print(f"review log {reason}; chain head {head['hash']}")
-        return EXIT_OK
-    where = f"entry {broken}" if broken is not None else "the chain head"
-    print(f"review log BROKEN at {where}: {reason}")
-    return EXIT_BROKEN
+    else:
+        where = f"entry {broken}" if broken is not None else "the chain head"
+        print(f"review log BROKEN at {where}: {reason}")
+    if findings:
+        print(f"records DIFFER from the review log: {len(findings)} finding(s) in {checked} records checked")
+        for finding in findings:
+            print(f"  {finding}")
+    else:
+        print(f"records: {checked} checked, each matches the log entry that wrote it")
+    return EXIT_OK if intact and not findings else EXIT_BROKEN
 
 
 def _entry_number(text: str) -> int:
@@ -81,7 +92,8 @@ def add_review_commands(commands) -> None:
     log = commands.add_parser("log", help="the review log")
     log_commands = log.add_subparsers(dest="log_command", required=True, metavar="COMMAND")
     verify = log_commands.add_parser(
-        "verify", help="check the review log's hash chain: exit 0 intact, 1 with the first broken entry named"
+        "verify", help="check the review log's hash chain and every record against its log entry: "
+        "exit 0 intact, 1 naming the first broken entry and each record that differs"
     )
     verify.set_defaults(handler=_cmd_log_verify)
     head = log_commands.add_parser(

@@ -35,9 +35,11 @@ from webapp.services.review_rules import (
     MEANINGS,
     ReviewRefused,
     after_exclusions,
+    check_approval,
     check_can_propose,
     check_can_sign,
     check_can_withdraw,
+    check_not_in_open_proposal,
     check_open,
     check_proposal,
     clean_text,
@@ -212,6 +214,19 @@ def preview(
 # --- writing ------------------------------------------------------------------------------
 
 
+def _refuse_samples_in_open_proposals(session, dataset_id: int, samples: list[str]) -> None:
+    """409 when a sample already sits in another undecided proposal (``check_not_in_open_proposal``)."""
+    open_now = store.list_proposals(session, dataset_id=dataset_id, states=["proposed"])
+    check_not_in_open_proposal(samples, [(row.id, row.samples) for row in open_now])
+
+
+def _check_approval_in(session, row) -> None:
+    """``check_approval`` for proposal ``row`` against what is approved in this transaction."""
+    dataset = store.get_dataset(session, row.dataset_id)
+    check_approval(proposal_id=row.id, action=row.action, samples=row.samples, n_samples=dataset.n_samples,
+                   excluded_now=approved_in(session, row.dataset_id))
+
+
 def propose(
     dataset_id: int,
     user,
@@ -225,7 +240,8 @@ def propose(
     """Store a proposal with its comparison and log it; returns the proposal.
 
     ``user`` has ``id``, ``name``, ``display_name`` and ``role`` (webapp.auth.CurrentUser).
-    Raises ReviewRefused (403) for a viewer, InputError for a bad proposal.
+    Raises ReviewRefused (403 for a viewer, 409 for a sample already in another
+    open proposal), InputError for a bad proposal.
     """
     from webapp.services import ingest
 
@@ -240,11 +256,14 @@ def propose(
         known_samples=table.sample_ids,
         excluded_now=excluded_now,
     )
+    with session_scope() as session:  # before the fits; checked again under the write lock
+        _refuse_samples_in_open_proposals(session, dataset_id, ids)
     comparison = preview(dataset_id, action=action, samples=ids, settings=settings, user_id=user.id)
 
     def work(session):
         if approved_in(session, dataset_id) != excluded_now:
             raise conflict("the approved exclusions changed while the proposal was prepared; look again")
+        _refuse_samples_in_open_proposals(session, dataset_id, ids)
         row = store.insert_proposal(
             session,
             dataset_id=dataset_id,
@@ -325,7 +344,10 @@ def sign(proposal_id: int, user, *, decision: str, password, comment="") -> dict
 
     ``decision`` is "approve" or "reject".  A wrong password is refused
     (ReviewRefused, code ``wrong_password``) and logged as a failed signing
-    attempt; it also counts toward the account lockout.
+    attempt; it also counts toward the account lockout.  An approval is
+    re-checked against the exclusions approved by then (``check_approval``):
+    refused (409) when it would leave too few samples for a model or when its
+    samples were excluded or reinstated meanwhile.
     """
     if decision not in MEANINGS:
         raise ValueError(f"decision must be approve or reject, got {decision!r}")
@@ -337,6 +359,8 @@ def sign(proposal_id: int, user, *, decision: str, password, comment="") -> dict
             check_can_sign(signer_id=user.id, role=user.role, proposed_by=None, state="proposed")
             raise ProposalNotFound(proposal_id)
         check_can_sign(signer_id=user.id, role=user.role, proposed_by=row.proposed_by, state=row.state)
+        if decision == "approve":
+            _check_approval_in(session, row)
         dataset_id = row.dataset_id
 
     check_signing_password(user, password, dataset_id=dataset_id,
@@ -345,6 +369,8 @@ def sign(proposal_id: int, user, *, decision: str, password, comment="") -> dict
     def work(session):
         row = store.get_proposal(session, proposal_id)
         check_can_sign(signer_id=user.id, role=user.role, proposed_by=row.proposed_by, state=row.state)
+        if decision == "approve":
+            _check_approval_in(session, row)
         signed_at = audit.now_utc()
         if not store.close_proposal(session, proposal_id, meaning, signed_at):
             raise conflict("this proposal was decided by someone else a moment ago")

@@ -24,6 +24,7 @@ PROPOSAL_ACTIONS = ("exclude", "reinstate")
 MEANINGS = {"approve": "approved", "reject": "rejected"}
 MAX_REASON_CHARS = 4000
 MAX_COMMENT_CHARS = 4000
+MIN_MODEL_SAMPLES = 3  # fewer samples than this leave nothing to fit a model on
 
 _CAN_PROPOSE = {"analyst", "reviewer", "admin"}
 _CAN_SIGN = {"reviewer", "admin"}
@@ -121,10 +122,10 @@ def check_proposal(
         already = sorted(s for s in ids if s in excluded)
         if already:
             raise InputError(f"already excluded by an approved proposal: {', '.join(already)}")
-        if len(known) - len(excluded) - len(ids) < 3:
+        if len(known) - len(excluded) - len(ids) < MIN_MODEL_SAMPLES:
             raise InputError(
                 f"excluding {len(ids)} sample(s) would leave {len(known) - len(excluded) - len(ids)}; "
-                "a model needs at least 3"
+                f"a model needs at least {MIN_MODEL_SAMPLES}"
             )
     else:
         not_excluded = sorted(s for s in ids if s not in excluded)
@@ -137,6 +138,56 @@ def check_proposal(
         )
     text = clean_text(reason, field="reason", limit=MAX_REASON_CHARS, required=True)
     return sorted(ids), reason_category, text
+
+
+def check_not_in_open_proposal(samples: Iterable[str], open_proposals: Iterable[tuple[int, Iterable[str]]]) -> None:
+    """Refuse (409) samples that already sit in another undecided proposal of the dataset.
+
+    ``open_proposals`` yields ``(proposal_id, samples)`` of the proposals still
+    ``proposed``.  One sample in two open proposals could otherwise be decided
+    twice, each decision checked against a state the other one changes.
+    """
+    wanted = set(samples)
+    taken = [(s, pid) for pid, theirs in open_proposals for s in sorted(wanted.intersection(theirs))]
+    if taken:
+        named = ", ".join(f"{s} (open proposal {pid})" for s, pid in taken[:20])
+        raise conflict(
+            f"sample(s) already in another open proposal: {named}; that proposal must be approved, "
+            "rejected or withdrawn before the sample can be proposed again"
+        )
+
+
+def check_approval(*, proposal_id: int, action: str, samples: Iterable[str], n_samples: int,
+                   excluded_now: Iterable[str]) -> list[str]:
+    """Re-check a proposal at approval against the exclusions approved by then; return the exclusions after it.
+
+    A proposal is checked when it is made, but other proposals may be approved
+    before it: refuse (409) an exclusion whose samples were excluded meanwhile,
+    a reinstatement whose samples were reinstated meanwhile, and any approval
+    that would leave fewer than ``MIN_MODEL_SAMPLES`` of the ``n_samples``.
+    """
+    ids = sorted(samples)
+    excluded = set(excluded_now)
+    if action == "exclude":
+        moved = [s for s in ids if s in excluded]
+        what = "excluded meanwhile by another approved proposal"
+    else:
+        moved = [s for s in ids if s not in excluded]
+        what = "not excluded any more (reinstated meanwhile by another approved proposal)"
+    if moved:
+        raise conflict(
+            f"proposal {proposal_id} cannot be approved: sample(s) {', '.join(moved[:20])} "
+            f"{'was' if len(moved) == 1 else 'were'} {what}; reject it instead"
+        )
+    after = after_exclusions(action, ids, excluded)
+    left = n_samples - len(after)
+    if left < MIN_MODEL_SAMPLES:
+        raise conflict(
+            f"proposal {proposal_id} cannot be approved: it would leave {left} of the dataset's {n_samples} "
+            f"samples ({len(after)} excluded), and a model needs at least {MIN_MODEL_SAMPLES}; "
+            "reject it, or reinstate samples first"
+        )
+    return after
 
 
 def fold_exclusions(approved: Iterable[tuple[str, Iterable[str]]]) -> list[str]:
