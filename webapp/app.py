@@ -46,10 +46,11 @@ def _register_blueprints(server: Flask) -> None:
     deeply nested is refused before any view reads it (after the sign-in check)."""
     from webapp.api.responses import install_request_checks
     from webapp.api.routes import BLUEPRINTS
-    from webapp.web import signin
+    from webapp.web import oidc_signin, signin
 
     install_request_checks(server)
     server.register_blueprint(signin.bp)
+    oidc_signin.init_app(server)  # single sign-on, only when LATENTDESK_OIDC_ISSUER is set
     for blueprint in BLUEPRINTS:
         server.register_blueprint(blueprint)
 

@@ -292,7 +292,8 @@ def test_login_form_refuses_a_missing_csrf_token(client, make_user):
 
 def test_logout_needs_post_and_a_token(client, auth):
     auth.login("viewer")
-    client.get("/-/logout")  # a GET (e.g. an <img> on another site) must not sign out
+    page = client.get("/-/logout")  # a GET (e.g. an <img> on another site) must not sign out
+    assert page.status_code == 200 and 'method="post"' in page.get_data(as_text=True)  # only a button
     assert client.get("/_dash-layout").status_code == 200
     assert client.post("/-/logout", data={"csrf_token": "forged"}).status_code == 400
     assert client.get("/_dash-layout").status_code == 200

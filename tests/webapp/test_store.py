@@ -96,7 +96,7 @@ def test_one_decision_per_proposal_is_enforced_by_the_database(engine):
                                      reason="typo", proposed_by=user.id)
         s.add(proposal)
         s.flush()
-        signer = _user(s, "rita", "reviewer")  # never the proposer (migration 0008_review_integrity)
+        signer = _user(s, "rita", "reviewer")  # never the proposer (migration 0007_review_integrity)
         s.add(SignOff(proposal_id=proposal.id, signer_id=signer.id, printed_name="A", meaning="approved"))
         proposal_id, signer_id = proposal.id, signer.id
     with pytest.raises(IntegrityError), engine_session(engine) as s:

@@ -1,19 +1,27 @@
 """Who is asking and what they may do: sessions, passwords, roles, lockout, tokens.
 
 - Browser sessions: flask-login with strong session protection; cookies are
-  HttpOnly, SameSite=Lax, and Secure when ``SECURE_COOKIES`` is on.
+  HttpOnly, SameSite=Lax, and Secure when ``SECURE_COOKIES`` is on. Each sign-in
+  is also a database row, checked on every request and ended at sign-out,
+  password change, disabling and idle timeout (``webapp.auth.sessions``).
 - Passwords: scrypt (RFC 7914) through werkzeug's ``generate_password_hash``; new
   ones must pass ``check_new_password`` (policy in ``webapp.auth.passwords``).
 - Lockout: after ``LOCKOUT_ATTEMPTS`` failures an account is locked for
-  ``LOCKOUT_MINUTES``; a client address with ``ADDRESS_LOCKOUT_ATTEMPTS``
-  failures inside that window is refused too. Both live in the database, so
-  every gunicorn worker sees them.
+  ``LOCKOUT_MINUTES``. Each failure is counted in the database before the
+  password is checked (``accounts.reserve_password_check``), so parallel
+  attempts get no more checks than that. The same number of failures for one
+  user name from one client address refuses that pair (also for names that do
+  not exist), and ``ADDRESS_LOCKOUT_ATTEMPTS`` failures from one address over
+  any names refuse the address, a ceiling high enough for many users behind one
+  NAT. All of it lives in the database, so every worker and host sees it.
 - API tokens: ``Authorization: Bearer <token>``; shown once, stored as SHA-256,
-  revocable.
+  revocable. A request carrying a token is decided by the token alone, whatever
+  session cookie comes with it.
 - Roles: viewer < analyst < reviewer < admin. ``authorize`` is the one place
   that decides between 401, 403 and 404.
 
 References: OWASP Authentication and Session Management Cheat Sheets;
+Grassi, P.A. et al. (2017) NIST SP 800-63B, section 5.2.2 (rate limiting);
 flask-login documentation (session protection, ``next`` validation).
 """
 
@@ -21,6 +29,7 @@ from __future__ import annotations
 
 import hashlib
 import hmac
+import math
 import secrets
 import time
 from dataclasses import dataclass
@@ -29,12 +38,15 @@ from functools import wraps
 from typing import Callable
 from urllib.parse import urlsplit
 
-from flask import Flask, abort, current_app, g, jsonify, make_response, redirect, request, session, url_for
+from flask import (
+    Flask, abort, current_app, g, has_request_context, jsonify, make_response, redirect, request, session, url_for,
+)
 from flask_login import LoginManager, UserMixin, current_user, logout_user
 from werkzeug.exceptions import HTTPException
 from werkzeug.security import check_password_hash, generate_password_hash
 
-from webapp.auth import passwords
+from analysis.errors import InputError
+from webapp.auth import passwords, sessions
 from webapp.store import accounts, session_scope, utcnow
 from webapp.store.tables import ROLES
 
@@ -46,8 +58,11 @@ TOKEN_TOUCH_INTERVAL = timedelta(minutes=1)
 LOGIN_ATTEMPT_RETENTION = timedelta(days=90)
 LOGIN_PATH = "/-/login"
 LOGOUT_PATH = "/-/logout"
+# Single sign-on (webapp.auth.oidc, webapp.web.oidc_signin); not found unless configured.
+OIDC_LOGIN_PATH = "/-/oidc/login"
+OIDC_CALLBACK_PATH = "/-/oidc/callback"
 # Paths served without a session: the sign-in form, health check and styles.
-PUBLIC_PATHS = (LOGIN_PATH, "/health")
+PUBLIC_PATHS = (LOGIN_PATH, OIDC_LOGIN_PATH, OIDC_CALLBACK_PATH, "/health")
 PUBLIC_PREFIXES = ("/assets/",)
 # Requests answered with JSON (401/403 bodies) instead of a redirect or page.
 JSON_PREFIXES = ("/api/", "/_dash-", "/_reload-hash", "/_alive_")
@@ -162,9 +177,15 @@ def _bearer_token() -> str | None:
 
 @login_manager.user_loader
 def _load_user(user_id: str) -> CurrentUser | None:
+    """The user of a live browser session; None when a bearer token comes along (it decides)."""
+    if _bearer_token() is not None:
+        return None
     try:
         key = int(user_id)
     except (TypeError, ValueError):
+        return None
+    if not sessions.current_is_valid():
+        session.clear()  # signed out elsewhere, timed out or revoked: the cookie is spent
         return None
     with session_scope() as s:
         row = accounts.get_user(s, key)
@@ -194,11 +215,15 @@ class LoginRefused(Exception):
 
 
 LOCKED_MESSAGE = "Too many failed sign-ins. Try again in {minutes} minutes."
+ADDRESS_LOCKED_MESSAGE = (
+    "Too many failed sign-ins from this network address. Try again in {minutes} minutes,"
+    " or ask an administrator if many people share this address."
+)
 BAD_CREDENTIALS = "Unknown user name or wrong password."
 
 
 def attempt_login(name: str, password: str, address: str) -> CurrentUser:
-    """Check a sign-in against the password and both lockouts; records the attempt.
+    """Check a sign-in against the password and the lockouts; records the attempt.
 
     The attempt is committed before a refusal is raised, so failures count.
     """
@@ -208,48 +233,100 @@ def attempt_login(name: str, password: str, address: str) -> CurrentUser:
     return refusal
 
 
+def _minutes_until(moment, now) -> int:
+    return max(1, math.ceil((moment - now).total_seconds() / 60)) if moment is not None else 1
+
+
 def _try_login(name: str, password: str, address: str) -> CurrentUser | str:
+    """Refuse on a lockout, else count a failure, check the password, and clear the count if it is right.
+
+    The first transaction (a write transaction from its start on SQLite) reads
+    the counts and stores the attempt and the account's failure as if the
+    password were wrong; only then is the password checked, outside any
+    transaction. So parallel attempts see each other's failures, and at most
+    ``LOCKOUT_ATTEMPTS`` passwords are checked per account per lock period
+    (NIST SP 800-63B, 2017, section 5.2.2).
+    """
     cfg = current_app.config
     window = timedelta(minutes=cfg["LOCKOUT_MINUTES"])
-    locked = LOCKED_MESSAGE.format(minutes=cfg["LOCKOUT_MINUTES"])
     now = utcnow()
     with session_scope() as s:
+        accounts.begin_sign_in_check(s)
         if accounts.failed_attempts_from(s, address, now - window) >= cfg["ADDRESS_LOCKOUT_ATTEMPTS"]:
-            accounts.record_login_attempt(s, name, address, ok=False)
-            return locked
+            accounts.record_login_attempt(s, name, address, ok=False, evaluated=False)
+            return ADDRESS_LOCKED_MESSAGE.format(minutes=cfg["LOCKOUT_MINUTES"])
+        if accounts.failed_attempts_for(s, address, name, now - window) >= cfg["LOCKOUT_ATTEMPTS"]:
+            accounts.record_login_attempt(s, name, address, ok=False, evaluated=False)
+            return LOCKED_MESSAGE.format(minutes=cfg["LOCKOUT_MINUTES"])
         row = accounts.get_user_by_name(s, name)
+        if row is not None and not accounts.reserve_password_check(
+            s, row.id, now=now, max_failures=cfg["LOCKOUT_ATTEMPTS"], lock_until=now + window
+        ):
+            accounts.record_login_attempt(s, name, address, ok=False, evaluated=False)
+            return LOCKED_MESSAGE.format(minutes=_minutes_until(accounts.locked_until(s, row.id), now))
+        attempt_id = accounts.record_login_attempt(s, name, address, ok=False, evaluated=True)
         # Hash even for unknown names so timing does not reveal which names exist.
-        ok = verify_password(row.password_hash if row else _DUMMY_HASH, password)
-        if row is not None and row.locked_until is not None and row.locked_until > now:
-            accounts.record_login_attempt(s, name, address, ok=False)
-            return locked
-        if row is None or not row.active or not ok:
-            accounts.record_login_attempt(s, name, address, ok=False)
-            if row is not None and accounts.count_failed_login(s, row.id) >= cfg["LOCKOUT_ATTEMPTS"]:
-                accounts.lock_user(s, row.id, now + window)
-            return BAD_CREDENTIALS
-        accounts.record_login_attempt(s, name, address, ok=True)
-        accounts.clear_failed_logins(s, row.id)
+        password_hash = row.password_hash if row is not None else _DUMMY_HASH
+        user = _from_row(row) if row is not None and row.active else None
+    if not verify_password(password_hash, password) or user is None:
+        return BAD_CREDENTIALS
+    with session_scope() as s:
+        accounts.mark_login_attempt_ok(s, attempt_id)
+        accounts.clear_failed_logins(s, user.id)
         accounts.prune_login_attempts(s, now - LOGIN_ATTEMPT_RETENTION)
-        return _from_row(row)
+    return user
 
 
 def check_password_again(user_id: int, password: str) -> bool:
-    """Re-ask the signed-in user's password (sign-offs); failures count toward lockout."""
+    """Re-ask the signed-in user's password (sign-offs); failures count toward lockout.
+
+    Counted before the check, as at sign-in (``_try_login``).
+    """
+    cfg = current_app.config
+    now = utcnow()
     with session_scope() as s:
+        accounts.begin_sign_in_check(s)
         row = accounts.get_user(s, user_id)
         if row is None or not row.active:
             return False
-        if row.locked_until is not None and row.locked_until > utcnow():
+        if not accounts.reserve_password_check(
+            s, row.id, now=now, max_failures=cfg["LOCKOUT_ATTEMPTS"],
+            lock_until=now + timedelta(minutes=cfg["LOCKOUT_MINUTES"]),
+        ):
             return False
-        if verify_password(row.password_hash, password):
-            return True
-        accounts.record_login_attempt(s, row.name, client_address(), ok=False)
-        if accounts.count_failed_login(s, row.id) >= current_app.config["LOCKOUT_ATTEMPTS"]:
-            accounts.lock_user(
-                s, row.id, utcnow() + timedelta(minutes=current_app.config["LOCKOUT_MINUTES"])
-            )
-        return False
+        name, password_hash = row.name, row.password_hash
+    ok = verify_password(password_hash, password)
+    with session_scope() as s:
+        if ok:
+            accounts.clear_failed_logins(s, user_id)
+        else:
+            accounts.record_login_attempt(s, name, client_address(), ok=False, evaluated=True)
+    return ok
+
+
+def change_password(user_id: int, new_password: str) -> int:
+    """Give ``user_id`` a new password and end their other sessions; returns how many ended.
+
+    The policy check comes first (InputError, nothing changed). When this
+    request is that user's own browser session, it stays signed in; every
+    other session of the user ends (OWASP Session Management Cheat Sheet:
+    invalidate sessions after a password change). The failure count and any
+    lock are cleared.
+    """
+    own = (
+        has_request_context()
+        and current_user.is_authenticated
+        and current_user.id == user_id
+        and getattr(g, "auth_via", None) != "token"
+    )
+    keep = sessions.current_session_id() if own else None
+    with session_scope() as s:
+        row = accounts.get_user(s, user_id)
+        if row is None:
+            raise InputError(f"no user with id {user_id}", field="user_id")
+        check_new_password(new_password, row.name)
+        accounts.set_password(s, row, hash_password(new_password))
+        return sessions.revoke_user_sessions(s, user_id, sessions.PASSWORD_CHANGED, keep_session_id=keep)
 
 
 def safe_next(target: str | None) -> str:
@@ -398,7 +475,8 @@ def guard_request():
         return None
     if _bearer_token() is not None and not current_user.is_authenticated:
         return denial(401, "The API token is unknown, revoked or belongs to a disabled user.")
-    if _session_expired():
+    if getattr(g, "auth_via", None) != "token" and _session_expired():
+        sessions.revoke_current(sessions.LIFETIME)
         logout_user()
         session.clear()
     if _is_public(request.path):

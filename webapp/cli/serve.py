@@ -103,6 +103,7 @@ def prepare_demo(overrides: Mapping[str, Any]) -> list[tuple[str, str, str]]:
                 else:
                     accounts.set_password(s, user, auth.hash_password(password))
                     accounts.set_active(s, user, True)
+                    auth.sessions.revoke_user_sessions(s, user.id, auth.sessions.PASSWORD_CHANGED)
                 handed_out.append((name, role, password))
             owner = accounts.get_user_by_name(s, "ana").id
         made = [ingest_upload(raw, filename, owner) for filename, raw in (lab_scenario(), survey_scenario())]

@@ -34,9 +34,10 @@ SETTINGS: dict[str, tuple[type, Any]] = {
     "DEMO": (bool, False),
     "SECURE_COOKIES": (bool, False),
     "SESSION_HOURS": (int, 12),
+    "SESSION_IDLE_MINUTES": (int, 60),
     "LOCKOUT_ATTEMPTS": (int, 5),
     "LOCKOUT_MINUTES": (int, 15),
-    "ADDRESS_LOCKOUT_ATTEMPTS": (int, 20),
+    "ADDRESS_LOCKOUT_ATTEMPTS": (int, 100),
     "PROXY_HOPS": (int, 0),
     "MIGRATE_ON_START": (bool, True),
     # Outgoing alert when a checked batch has flags (webapp/services/webhooks.py); off when unset.
@@ -46,8 +47,19 @@ SETTINGS: dict[str, tuple[type, Any]] = {
     "WEBHOOK_BACKOFF_SECONDS": (int, 1),
     "WEBHOOK_BACKOFF_MAX_SECONDS": (int, 60),
     "WEBHOOK_TIMEOUT_SECONDS": (int, 5),
+    # Single sign-on by OpenID Connect (webapp/auth/oidc.py); off while OIDC_ISSUER is unset.
+    "OIDC_ISSUER": (str, None),
+    "OIDC_CLIENT_ID": (str, None),
+    "OIDC_CLIENT_SECRET": (str, None),
+    "OIDC_SCOPES": (str, "openid profile email"),
+    "OIDC_ROLE_CLAIM": (str, "groups"),
+    "OIDC_ROLE_MAP": (str, None),
+    "LOCAL_SIGNIN": (bool, True),
 }
 WEBHOOK_SCHEMES = ("http", "https")
+# OpenID Connect Discovery 1.0, section 3: the issuer is an https URL; plain http is
+# accepted only for a provider on this machine (a test or a local trial).
+LOOPBACK_HOSTS = ("localhost", "127.0.0.1", "::1")
 
 
 class ConfigError(InputError):
@@ -147,6 +159,41 @@ def _check_webhook(config: dict[str, Any]) -> None:
             raise ConfigError(f"LATENTDESK_{name} must be at least 1, got {config[name]}")
 
 
+def _check_oidc(config: dict[str, Any]) -> None:
+    """Single sign-on needs an https issuer and a client id; no sign-in at all is refused.
+
+    The role map's roles are checked by ``webapp.auth.oidc.role_map`` when the app starts.
+    """
+    issuer = (config["OIDC_ISSUER"] or "").strip().rstrip("/")
+    config["OIDC_ISSUER"] = issuer or None
+    if not issuer:
+        if not config["LOCAL_SIGNIN"]:
+            raise ConfigError(
+                "LATENTDESK_LOCAL_SIGNIN is off but single sign-on is not configured "
+                "(LATENTDESK_OIDC_ISSUER): nobody could sign in"
+            )
+        return
+    parts = urlsplit(issuer)
+    loopback = parts.scheme == "http" and parts.hostname in LOOPBACK_HOSTS
+    if parts.scheme != "https" and not loopback or not parts.hostname:
+        raise ConfigError(
+            f"LATENTDESK_OIDC_ISSUER must be an https:// address with a host, got {issuer!r}"
+        )
+    if parts.query or parts.fragment:
+        raise ConfigError("LATENTDESK_OIDC_ISSUER must not carry a query or fragment")
+    if not (config["OIDC_CLIENT_ID"] or "").strip():
+        raise ConfigError("LATENTDESK_OIDC_CLIENT_ID is required when LATENTDESK_OIDC_ISSUER is set")
+    if not (config["OIDC_ROLE_CLAIM"] or "").strip():
+        raise ConfigError("LATENTDESK_OIDC_ROLE_CLAIM must name a claim of the ID token")
+    if not (config["OIDC_ROLE_MAP"] or "").strip():
+        raise ConfigError(
+            "LATENTDESK_OIDC_ROLE_MAP is required when LATENTDESK_OIDC_ISSUER is set "
+            "(e.g. qa-viewers=viewer,qa-admins=admin)"
+        )
+    if "openid" not in (config["OIDC_SCOPES"] or "").split():
+        raise ConfigError("LATENTDESK_OIDC_SCOPES must include openid")
+
+
 def load_config(
     overrides: Mapping[str, Any] | None = None,
     *,
@@ -185,5 +232,8 @@ def load_config(
         raise ConfigError("MAX_UPLOAD_MB must be at least 1")
     if config["LOCKOUT_ATTEMPTS"] < 1 or config["ADDRESS_LOCKOUT_ATTEMPTS"] < 1:
         raise ConfigError("LOCKOUT_ATTEMPTS and ADDRESS_LOCKOUT_ATTEMPTS must be at least 1")
+    if config["SESSION_HOURS"] < 1 or config["SESSION_IDLE_MINUTES"] < 1:
+        raise ConfigError("SESSION_HOURS and SESSION_IDLE_MINUTES must be at least 1")
     _check_webhook(config)
+    _check_oidc(config)
     return config

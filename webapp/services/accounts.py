@@ -10,6 +10,7 @@ from typing import Any, Mapping
 
 from analysis.errors import InputError
 from webapp import auth
+from webapp.auth import sessions
 from webapp.config import load_config
 from webapp.store import accounts, engine_session, make_engine, migrate
 from webapp.store.engine import database_url
@@ -87,12 +88,13 @@ def _user_or_error(s, name: str):
 
 
 def disable_user(name: str, overrides: Mapping[str, Any] | None = None) -> int:
-    """Disable a user (sign-in and tokens stop working); returns tokens revoked."""
+    """Disable a user (sign-in, browser sessions and tokens stop working); returns tokens revoked."""
     engine = _engine(overrides)
     try:
         with engine_session(engine) as s:
             user = _user_or_error(s, name)
             accounts.set_active(s, user, False)
+            sessions.revoke_user_sessions(s, user.id, sessions.ACCOUNT_DISABLED)
             return accounts.revoke_tokens(s, user.id)
     finally:
         engine.dispose()

@@ -4,11 +4,11 @@ from __future__ import annotations
 
 from datetime import datetime
 
-from sqlalchemy import delete, func, select, update
+from sqlalchemy import case, delete, func, literal, or_, select, update
 from sqlalchemy.orm import Session
 
 from webapp.store.tables import ApiToken, LoginAttempt, User
-from webapp.store.types import utcnow
+from webapp.store.types import UTCDateTime, utcnow
 
 
 # -- users -----------------------------------------------------------------
@@ -53,8 +53,32 @@ def set_active(session: Session, user: User, active: bool) -> None:
 
 # -- lockout ---------------------------------------------------------------
 
-def record_login_attempt(session: Session, name: str, client_addr: str, ok: bool) -> None:
-    session.add(LoginAttempt(name=name[:200], client_addr=client_addr[:64], ok=ok, at=utcnow()))
+def begin_sign_in_check(session: Session) -> None:
+    """Make the rest of this transaction a write transaction from its first statement.
+
+    SQLite: ``BEGIN IMMEDIATE`` takes the database's write lock now, so the counts
+    read next and the failure written after them are one step for every worker.
+    PostgreSQL needs nothing: ``reserve_password_check`` is one conditional UPDATE,
+    which re-checks its condition on the row it waited for (READ COMMITTED).
+    """
+    connection = session.connection()
+    if connection.dialect.name == "sqlite" and not connection.connection.dbapi_connection.in_transaction:
+        connection.exec_driver_sql("BEGIN IMMEDIATE")
+
+
+def record_login_attempt(
+    session: Session, name: str, client_addr: str, ok: bool, *, evaluated: bool
+) -> int:
+    """Store one sign-in attempt (``evaluated``: a password was checked); returns its id."""
+    row = LoginAttempt(name=name[:200], client_addr=client_addr[:64], ok=ok, evaluated=evaluated, at=utcnow())
+    session.add(row)
+    session.flush()
+    return row.id
+
+
+def mark_login_attempt_ok(session: Session, attempt_id: int) -> None:
+    """An attempt stored as failed before its password was checked turned out right."""
+    session.execute(update(LoginAttempt).where(LoginAttempt.id == attempt_id).values(ok=True))
 
 
 def prune_login_attempts(session: Session, before: datetime) -> int:
@@ -73,6 +97,21 @@ def failed_attempts_from(session: Session, client_addr: str, since: datetime) ->
     )
 
 
+def failed_attempts_for(session: Session, client_addr: str, name: str, since: datetime) -> int:
+    """Failed sign-ins from one client address for one user name since ``since`` and since the
+    pair's last successful one."""
+    pair = (LoginAttempt.client_addr == client_addr, LoginAttempt.name == name[:200])
+    last_success = select(func.coalesce(func.max(LoginAttempt.id), 0)).where(*pair, LoginAttempt.ok.is_(True))
+    return session.scalar(
+        select(func.count(LoginAttempt.id)).where(
+            *pair,
+            LoginAttempt.ok.is_(False),
+            LoginAttempt.at >= since,
+            LoginAttempt.id > last_success.scalar_subquery(),
+        )
+    )
+
+
 def last_success_from(session: Session, client_addr: str) -> datetime | None:
     return session.scalar(
         select(func.max(LoginAttempt.at)).where(
@@ -81,18 +120,33 @@ def last_success_from(session: Session, client_addr: str) -> datetime | None:
     )
 
 
-def count_failed_login(session: Session, user_id: int) -> int:
-    """Atomically add one failed sign-in to a user; returns the new count."""
-    session.execute(
-        update(User).where(User.id == user_id).values(failed_logins=User.failed_logins + 1)
+def reserve_password_check(
+    session: Session, user_id: int, *, now: datetime, max_failures: int, lock_until: datetime
+) -> bool:
+    """Count a failure for ``user_id`` before its password is checked; False while it is locked.
+
+    One conditional UPDATE, atomic on SQLite and PostgreSQL: it counts only when
+    the account is not locked (a lock that has run out starts the count again at
+    one), and the failure that reaches ``max_failures`` sets the lock in the same
+    statement. So however many checks run at once, at most ``max_failures``
+    passwords are checked per lock period. A right password then clears the
+    count (``clear_failed_logins``).
+    """
+    count = case((User.locked_until.is_not(None), 1), else_=User.failed_logins + 1)
+    result = session.execute(
+        update(User)
+        .where(User.id == user_id, or_(User.locked_until.is_(None), User.locked_until <= now))
+        .values(
+            failed_logins=count,
+            locked_until=case((count >= max_failures, literal(lock_until, UTCDateTime())), else_=None),
+        )
+        .execution_options(synchronize_session=False)
     )
-    return session.scalar(select(User.failed_logins).where(User.id == user_id))
+    return result.rowcount == 1
 
 
-def lock_user(session: Session, user_id: int, until: datetime) -> None:
-    session.execute(
-        update(User).where(User.id == user_id).values(locked_until=until, failed_logins=0)
-    )
+def locked_until(session: Session, user_id: int) -> datetime | None:
+    return session.scalar(select(User.locked_until).where(User.id == user_id))
 
 
 def clear_failed_logins(session: Session, user_id: int) -> None:

@@ -80,6 +80,8 @@ class LoginAttempt(Base):
     client_addr: Mapped[str] = mapped_column(String(64), index=True)
     ok: Mapped[bool] = mapped_column(Boolean)
     at: Mapped[datetime] = mapped_column(default=utcnow, index=True)
+    # Whether a password was checked (False: refused by a lockout first; None: before 0009_sessions).
+    evaluated: Mapped[bool | None] = mapped_column(Boolean, nullable=True)
 
 
 class ApiToken(Base):
@@ -92,6 +94,22 @@ class ApiToken(Base):
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
     revoked_at: Mapped[datetime | None] = mapped_column(nullable=True)
     last_used_at: Mapped[datetime | None] = mapped_column(nullable=True)
+
+
+class OidcIdentity(Base):
+    """A user's account at an OpenID provider: the pair (issuer, subject) is the
+    stable identifier (OpenID Connect Core 1.0, section 5.7); ``sub`` is at most
+    255 ASCII characters (section 2)."""
+
+    __tablename__ = "oidc_identities"
+    __table_args__ = (UniqueConstraint("issuer", "subject", name="uq_oidc_identities_issuer_subject"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    issuer: Mapped[str] = mapped_column(String(500))
+    subject: Mapped[str] = mapped_column(String(255))
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id"), index=True)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    last_signed_in_at: Mapped[datetime | None] = mapped_column(nullable=True)
 
 
 class Dataset(Base):
@@ -375,3 +393,23 @@ class BatchOutcome(Base):
     signer_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
     printed_name: Mapped[str] = mapped_column(String(200))
     signed_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class UserSession(Base):
+    """A browser sign-in, checked on every request (``webapp.auth.sessions``, migration 0009_sessions).
+
+    The signed cookie carries a random secret; only its SHA-256 is stored here.
+    ``revoked_at`` and ``revoked_reason`` are set once, when the session ends.
+    """
+
+    __tablename__ = "user_sessions"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id"), index=True)
+    secret_hash: Mapped[str] = mapped_column(String(64), unique=True)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow, index=True)
+    last_seen_at: Mapped[datetime] = mapped_column(default=utcnow)
+    user_agent: Mapped[str] = mapped_column(String(200), default="")
+    client_addr: Mapped[str] = mapped_column(String(64), default="")
+    revoked_at: Mapped[datetime | None] = mapped_column(nullable=True)
+    revoked_reason: Mapped[str | None] = mapped_column(String(64), nullable=True)

@@ -7,10 +7,11 @@ from __future__ import annotations
 
 import time
 
-from flask import Blueprint, make_response, redirect, render_template_string, request, session, url_for
+from flask import Blueprint, current_app, make_response, redirect, render_template_string, request, session, url_for
 from flask_login import current_user, login_user, logout_user
 
 from webapp import auth
+from webapp.auth import sessions
 
 bp = Blueprint("auth", __name__)
 
@@ -33,6 +34,8 @@ _PAGE = """<!doctype html>
 _LOGIN = _PAGE.replace("{% block body %}{% endblock %}", """
     <h1>Sign in</h1>
     {% if message %}<p class="ld-alert" role="alert">{{ message }}</p>{% endif %}
+    {% if sso_url %}<p><a class="ld-button" href="{{ sso_url }}">Sign in with single sign-on</a></p>{% endif %}
+    {% if local_signin %}
     <form method="post" action="{{ action }}" class="ld-form">
       <input type="hidden" name="csrf_token" value="{{ csrf }}">
       <input type="hidden" name="next" value="{{ next_path }}">
@@ -42,6 +45,16 @@ _LOGIN = _PAGE.replace("{% block body %}{% endblock %}", """
       <input id="password" name="password" type="password" autocomplete="current-password" required>
       <button type="submit" class="ld-button">Sign in</button>
     </form>
+    {% endif %}
+""")
+
+_SIGN_OUT = _PAGE.replace("{% block body %}{% endblock %}", """
+    <h1>Sign out</h1>
+    <form method="post" action="{{ action }}" class="ld-form">
+      <input type="hidden" name="csrf_token" value="{{ csrf }}">
+      <button type="submit" class="ld-button">Sign out</button>
+    </form>
+    <p><a href="/">Back to the datasets</a></p>
 """)
 
 _ERROR = _PAGE.replace("{% block body %}{% endblock %}", """
@@ -71,6 +84,8 @@ def _login_form(message: str = "", name: str = "", next_path: str = "/", status:
         next_path=auth.safe_next(next_path),
         csrf=auth.csrf_token(),
         action=auth.LOGIN_PATH,
+        local_signin=current_app.config["LOCAL_SIGNIN"],
+        sso_url=url_for("oidc.login", next=auth.safe_next(next_path)) if "oidc.login" in current_app.view_functions else None,
     )
     response = make_response(html, status)
     response.headers["Cache-Control"] = "no-store"
@@ -86,25 +101,49 @@ def login():
         return _login_form(next_path=next_path)
 
     name = (request.form.get("name") or "").strip()
+    if not current_app.config["LOCAL_SIGNIN"]:
+        return _login_form("Sign-in with a password is switched off here; use single sign-on.", status=403)
     if not auth.csrf_valid(request.form.get("csrf_token")):
         return _login_form("The form expired. Please sign in again.", name, next_path, 400)
     try:
         user = auth.attempt_login(name, request.form.get("password") or "", auth.client_address())
     except auth.LoginRefused as refused:
         return _login_form(str(refused), name, next_path, 401)
+    start_session(user)
+    return redirect(next_path)
+
+
+def start_session(user: auth.CurrentUser) -> None:
+    """What every successful sign-in does next, by password or by single sign-on."""
+    sessions.revoke_current(sessions.REPLACED)  # whoever was signed in here before
     session.clear()  # a fresh session on sign-in (no fixation)
     # Not a "permanent" session: flask-login's strong protection only acts on
     # browser-session cookies. Its lifetime is enforced by auth.guard_request.
     session[auth.SIGNED_IN_AT_KEY] = int(time.time())
     login_user(user, fresh=True)
+    sessions.start(user.id)
     auth.csrf_token()
-    return redirect(next_path)
 
 
-@bp.route(auth.LOGOUT_PATH, methods=["POST"], endpoint="logout")
+def refused_page(message: str, status: int = 403):
+    """The sign-in page with a refusal that did not come from the password form."""
+    return _login_form(message, status=status)
+
+
+@bp.route(auth.LOGOUT_PATH, methods=["GET", "POST"], endpoint="logout")
 def logout():
+    """POST with the form's CSRF token signs out; a GET (a link, an image on another site) only asks.
+
+    OWASP Cross-Site Request Forgery Prevention Cheat Sheet: no state change on GET.
+    """
+    if request.method == "GET":
+        html = render_template_string(_SIGN_OUT, title="Sign out", csrf=auth.csrf_token(), action=auth.LOGOUT_PATH)
+        response = make_response(html)
+        response.headers["Cache-Control"] = "no-store"
+        return response
     if not auth.csrf_valid(request.form.get("csrf_token")):
         return error_page(400, "The form expired. Reload the page and sign out again.")
+    sessions.revoke_current(sessions.SIGNED_OUT)
     logout_user()
     session.clear()
     return redirect(url_for("auth.login"))

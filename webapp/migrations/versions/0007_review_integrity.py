@@ -1,6 +1,6 @@
 """review integrity: the database refuses an exclusion sign-off by the proposer
 
-Revision ID: 0008_review_integrity
+Revision ID: 0007_review_integrity
 Revises: 0006_hash_scheme
 Create Date: 2026-12-12
 
@@ -18,7 +18,7 @@ and 11.70; EU GMP Annex 11, 2011, section 14.)
 from alembic import op
 
 
-revision = "0008_review_integrity"
+revision = "0007_review_integrity"
 down_revision = "0006_hash_scheme"
 branch_labels = None
 depends_on = None
