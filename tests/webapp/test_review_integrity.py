@@ -277,6 +277,11 @@ def test_a_record_edited_behind_the_apps_back_is_reported(desk, records, capsys,
     assert len(findings) == 1, out
     assert findings[0].startswith(f"{table} id {record_id}, field {field}: ")
     assert f"log entry {seq} recorded" in findings[0]
+    # the API (and the review-log page) report the same finding
+    answer = desk.client.get("/api/v1/review-log/verify", headers=desk.reviewer.headers).get_json()
+    assert answer["chain_intact"] and not answer["intact"]
+    assert [(f["table"], f["record_id"], f["field"], f["seq"]) for f in answer["record_findings"]] == [
+        (table, record_id, field, seq)]
 
 
 def test_a_deleted_outcome_is_reported_with_the_entry_that_recorded_it(desk, records, capsys):

@@ -148,12 +148,16 @@ def review_log_csv(dataset_id: int):
 @bp.get(f"{API_PREFIX}/review-log/verify")
 @requires("viewer")
 def verify_log():
-    from webapp.services import audit
+    from webapp.services import audit, record_audit
 
     with session_scope() as session:
         intact, broken, reason = audit.verify_chain(session)
         head = audit.chain_head_summary(session)
-    return json_ok(intact=intact, first_broken_seq=broken, reason=reason, head=head)
+        checked, findings = record_audit.check_records(session)
+    return json_ok(intact=intact and not findings, chain_intact=intact, first_broken_seq=broken, reason=reason,
+                   head=head, records_checked=checked,
+                   record_findings=[{"table": f.table, "record_id": f.record_id, "field": f.field, "seq": f.seq,
+                                     "message": str(f)} for f in findings])
 
 
 # --- saved views --------------------------------------------------------------------------

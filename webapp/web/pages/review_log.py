@@ -56,16 +56,22 @@ def entries_for(dataset_id: int, action: str | None, actor: str | None) -> list[
 
 
 def _verify_banner() -> html.P:
-    from webapp.services import audit
+    from webapp.services import audit, record_audit
     from webapp.services.context import session_scope
 
     with session_scope() as session:
         intact, broken, reason = audit.verify_chain(session)
         head = audit.chain_head_summary(session)
+        checked, findings = record_audit.check_records(session)
+    if intact and findings:
+        shown = "; ".join(str(f) for f in findings[:5]) + (" …" if len(findings) > 5 else "")
+        return html.P(f"Review log chain intact, but {len(findings)} record(s) differ from the log entries that "
+                      f"wrote them: {shown}", className="ld-alert")
     if intact:
         return html.P(
-            f"Review log verified: the hash chain of all {head['seq']} entries (every dataset) is intact; "
-            f"chain head {str(head['hash'])[:16]}…", className="ld-success",
+            f"Review log verified: the hash chain of all {head['seq']} entries (every dataset) is intact and "
+            f"{checked} record(s) match the entries that wrote them; chain head {str(head['hash'])[:16]}…",
+            className="ld-success",
             title=str(head["hash"]),
         )
     return html.P(f"Review log BROKEN at entry {broken}: {reason}", className="ld-alert")
