@@ -15,8 +15,12 @@
   any names refuse the address, a ceiling high enough for many users behind one
   NAT. All of it lives in the database, so every worker and host sees it.
 - API tokens: ``Authorization: Bearer <token>``; shown once, stored as SHA-256,
-  revocable. A request carrying a token is decided by the token alone, whatever
-  session cookie comes with it.
+  revocable, with an optional expiry (401 after it) and a scope: a ``read-only``
+  token may only GET and HEAD (403 otherwise). A request carrying a token is
+  decided by the token alone, whatever session cookie comes with it.
+- A password set or reset by an administrator: until the user chooses a new one
+  (``PASSWORD_PATH``), pages send them there and every other request is refused
+  with 403 (``PASSWORD_DUE``).
 - Roles: viewer < analyst < reviewer < admin. ``authorize`` is the one place
   that decides between 401, 403 and 404.
 
@@ -36,7 +40,7 @@ from dataclasses import dataclass
 from datetime import timedelta
 from functools import wraps
 from typing import Callable
-from urllib.parse import urlsplit
+from urllib.parse import urlencode, urlsplit
 
 from flask import (
     Flask, abort, current_app, g, has_request_context, jsonify, make_response, redirect, request, session, url_for,
@@ -48,7 +52,7 @@ from werkzeug.security import check_password_hash, generate_password_hash
 from analysis.errors import InputError
 from webapp.auth import passwords, sessions
 from webapp.store import accounts, session_scope, utcnow
-from webapp.store.tables import ROLES
+from webapp.store.tables import ROLES, TOKEN_SCOPES
 
 ROLE_RANK = {role: rank for rank, role in enumerate(ROLES)}
 TOKEN_PREFIX = "ldt_"
@@ -61,6 +65,11 @@ LOGOUT_PATH = "/-/logout"
 # Single sign-on (webapp.auth.oidc, webapp.web.oidc_signin); not found unless configured.
 OIDC_LOGIN_PATH = "/-/oidc/login"
 OIDC_CALLBACK_PATH = "/-/oidc/callback"
+# Where a user whose password an administrator set chooses their own (webapp.web.signin), and the
+# requests open to them until they have: that page, signing out, the API's own password change.
+PASSWORD_PATH = "/-/password"
+OPEN_WHILE_PASSWORD_DUE = (PASSWORD_PATH, LOGOUT_PATH, "/api/v1/me/password")
+READ_ONLY = "read-only"  # one of TOKEN_SCOPES: GET and HEAD only
 # Paths served without a session: the sign-in form, health check and styles.
 PUBLIC_PATHS = (LOGIN_PATH, OIDC_LOGIN_PATH, OIDC_CALLBACK_PATH, "/health")
 PUBLIC_PREFIXES = ("/assets/",)
@@ -91,6 +100,7 @@ class CurrentUser(UserMixin):
     name: str
     display_name: str
     role: str
+    must_change_password: bool = False
 
     def get_id(self) -> str:
         return str(self.id)
@@ -111,7 +121,8 @@ def api_user() -> CurrentUser | None:
 
 
 def _from_row(row) -> CurrentUser:
-    return CurrentUser(id=row.id, name=row.name, display_name=row.display_name, role=row.role)
+    return CurrentUser(id=row.id, name=row.name, display_name=row.display_name, role=row.role,
+                       must_change_password=bool(row.must_change_password))
 
 
 # -- passwords -------------------------------------------------------------
@@ -144,27 +155,55 @@ def token_hash(token: str) -> str:
     return hashlib.sha256(token.encode("utf-8")).hexdigest()
 
 
-def create_token(session_, user_id: int, label: str = "") -> str:
-    """Store a new token for ``user_id`` (hashed) and return it; it is never shown again."""
+TOKEN_REFUSED = "The API token is unknown, revoked or belongs to a disabled user."
+TOKEN_EXPIRED = "The API token expired at {at} UTC; create a new one on the My account page."
+READ_ONLY_REFUSED = "This token is read-only: it may only read (GET or HEAD)."
+PASSWORD_DUE = (
+    "An administrator set this account's password: choose a new one before anything else,"
+    f" in the browser at {PASSWORD_PATH} or with POST /api/v1/me/password."
+)
+
+
+def create_token(
+    session_, user_id: int, label: str = "", *, expires_at=None, scope: str = "read-write"
+) -> str:
+    """Store a new token for ``user_id`` (hashed) and return it; it is never shown again.
+
+    ``expires_at`` (aware UTC; None: never) and ``scope`` (``TOKEN_SCOPES``) are
+    checked by every request that carries it.
+    """
+    if scope not in TOKEN_SCOPES:
+        raise InputError(f"token scope {scope!r}: choose {' or '.join(TOKEN_SCOPES)}", field="scope")
     token = TOKEN_PREFIX + secrets.token_urlsafe(32)
-    accounts.add_token(session_, user_id, token_hash(token), label)
+    accounts.add_token(session_, user_id, token_hash(token), label, expires_at=expires_at, scope=scope)
     return token
 
 
-def verify_token(session_, token: str) -> CurrentUser | None:
-    """The active user owning a live token, or None."""
+@dataclass(frozen=True)
+class TokenCheck:
+    """What a bearer token is worth: its user and scope, or why it is refused."""
+
+    user: CurrentUser | None
+    scope: str | None = None
+    refusal: str = TOKEN_REFUSED
+
+
+def check_token(session_, token: str) -> TokenCheck:
+    """The active user owning a live, unexpired token and the token's scope, or the refusal."""
     row = accounts.find_token(session_, token_hash(token))
     if row is None or row.revoked_at is not None:
-        return None
+        return TokenCheck(None)
     user = accounts.get_user(session_, row.user_id)
     if user is None or not user.active:
-        return None
+        return TokenCheck(None)
     now = utcnow()
+    if row.expires_at is not None and row.expires_at <= now:
+        return TokenCheck(None, refusal=TOKEN_EXPIRED.format(at=row.expires_at.strftime("%Y-%m-%d %H:%M")))
     # Record use at most once a minute: a write per API call would make every
     # request contend for the database.
     if row.last_used_at is None or now - row.last_used_at > TOKEN_TOUCH_INTERVAL:
         accounts.touch_token(session_, row.id)
-    return _from_row(user)
+    return TokenCheck(_from_row(user), row.scope)
 
 
 def _bearer_token() -> str | None:
@@ -198,10 +237,13 @@ def _load_user_from_token(req) -> CurrentUser | None:
     if token is None:
         return None
     with session_scope() as s:
-        user = verify_token(s, token)
-    if user is not None:
-        g.auth_via = "token"
-    return user
+        checked = check_token(s, token)
+    if checked.user is None:
+        g.token_refusal = checked.refusal
+        return None
+    g.auth_via = "token"
+    g.token_scope = checked.scope
+    return checked.user
 
 
 # -- login, lockout --------------------------------------------------------
@@ -255,10 +297,12 @@ def _try_login(name: str, password: str, address: str) -> CurrentUser | str:
         if accounts.failed_attempts_from(s, address, now - window) >= cfg["ADDRESS_LOCKOUT_ATTEMPTS"]:
             accounts.record_login_attempt(s, name, address, ok=False, evaluated=False)
             return ADDRESS_LOCKED_MESSAGE.format(minutes=cfg["LOCKOUT_MINUTES"])
-        if accounts.failed_attempts_for(s, address, name, now - window) >= cfg["LOCKOUT_ATTEMPTS"]:
+        row = accounts.get_user_by_name(s, name)
+        # An administrator's unlock ends the lock of this name from every address, too.
+        since = max(now - window, row.unlocked_at) if row is not None and row.unlocked_at else now - window
+        if accounts.failed_attempts_for(s, address, name, since) >= cfg["LOCKOUT_ATTEMPTS"]:
             accounts.record_login_attempt(s, name, address, ok=False, evaluated=False)
             return LOCKED_MESSAGE.format(minutes=cfg["LOCKOUT_MINUTES"])
-        row = accounts.get_user_by_name(s, name)
         if row is not None and not accounts.reserve_password_check(
             s, row.id, now=now, max_failures=cfg["LOCKOUT_ATTEMPTS"], lock_until=now + window
         ):
@@ -304,14 +348,16 @@ def check_password_again(user_id: int, password: str) -> bool:
     return ok
 
 
-def change_password(user_id: int, new_password: str) -> int:
+def change_password(user_id: int, new_password: str, *, record: Callable | None = None) -> int:
     """Give ``user_id`` a new password and end their other sessions; returns how many ended.
 
     The policy check comes first (InputError, nothing changed). When this
     request is that user's own browser session, it stays signed in; every
     other session of the user ends (OWASP Session Management Cheat Sheet:
-    invalidate sessions after a password change). The failure count and any
-    lock are cleared.
+    invalidate sessions after a password change). The failure count, any
+    lock and a pending forced change are cleared. ``record(db_session, user_row,
+    sessions_ended)`` runs in the same transaction (the admin log entry), so
+    the change and its record commit together.
     """
     own = (
         has_request_context()
@@ -326,7 +372,10 @@ def change_password(user_id: int, new_password: str) -> int:
             raise InputError(f"no user with id {user_id}", field="user_id")
         check_new_password(new_password, row.name)
         accounts.set_password(s, row, hash_password(new_password))
-        return sessions.revoke_user_sessions(s, user_id, sessions.PASSWORD_CHANGED, keep_session_id=keep)
+        ended = sessions.revoke_user_sessions(s, user_id, sessions.PASSWORD_CHANGED, keep_session_id=keep)
+        if record is not None:
+            record(s, row, ended)
+        return ended
 
 
 def safe_next(target: str | None) -> str:
@@ -474,7 +523,7 @@ def guard_request():
     if request.method == "OPTIONS" and _is_public(request.path):
         return None
     if _bearer_token() is not None and not current_user.is_authenticated:
-        return denial(401, "The API token is unknown, revoked or belongs to a disabled user.")
+        return denial(401, getattr(g, "token_refusal", None) or TOKEN_REFUSED)
     if getattr(g, "auth_via", None) != "token" and _session_expired():
         sessions.revoke_current(sessions.LIFETIME)
         logout_user()
@@ -485,10 +534,24 @@ def guard_request():
         return denial(401)
     if request.method not in ("GET", "HEAD", "OPTIONS") and not _same_origin():
         return denial(403, "Cross-site request refused.")
+    if getattr(g, "auth_via", None) == "token" and g.token_scope == READ_ONLY and request.method not in ("GET", "HEAD"):
+        return denial(403, READ_ONLY_REFUSED)
+    if current_user.must_change_password and request.path not in OPEN_WHILE_PASSWORD_DUE:
+        return _password_due()
     role = _page_min_role(request.path) if request.method == "GET" else None
     if role is not None and not has_role(current_user.role, role):
         return denial(403)
     return None
+
+
+def _password_due():
+    """A user who must choose a new password first: 403 for the API and Dash, the page otherwise."""
+    if wants_json():
+        return denial(403, PASSWORD_DUE)
+    if request.method != "GET":
+        return redirect(PASSWORD_PATH)
+    target = request.full_path if request.query_string else request.path
+    return redirect(f"{PASSWORD_PATH}?{urlencode({'next': safe_next(target)})}")
 
 
 def _session_expired() -> bool:
@@ -543,7 +606,10 @@ def init_app(app: Flask) -> None:
     @app.errorhandler(405)
     def _method_not_allowed(exc: HTTPException):
         if wants_json():
-            return _json_error("method_not_allowed", f"{request.method} is not allowed here.", 405)
+            answer = _json_error("method_not_allowed", f"{request.method} is not allowed here.", 405)
+            if getattr(exc, "valid_methods", None):
+                answer.headers["Allow"] = ", ".join(exc.valid_methods)  # RFC 9110 section 15.5.6
+            return answer
         return exc
 
     @app.errorhandler(413)

@@ -1,9 +1,11 @@
 """The review sub-commands of ``latentdesk``: ``log verify`` and ``log head``.
 
-``latentdesk log verify`` recomputes the review log's hash chain on the
-configured database and checks every record (proposals, sign-offs, reference
-models, signatures, batches, batch outcomes) against the log entry that wrote
-it (``webapp.services.record_audit``): exit 0 when both hold, 1 naming the first
+``latentdesk log verify`` recomputes the hash chains of the review log and of
+the admin log (account changes, ``webapp.services.admin_log``) on the
+configured database, naming the log and the entry where one breaks, and checks
+every record (proposals, sign-offs, reference models, signatures, batches,
+batch outcomes) against the review-log entry that wrote it
+(``webapp.services.record_audit``): exit 0 when all hold, 1 naming the first
 broken entry and every record that differs (table, id, field, entry seq).
 ``latentdesk log head`` prints the chain head (entry count, last entry, its
 hash and UTC time) to be kept outside the database, so a later truncation of
@@ -41,18 +43,40 @@ def _read_log(read: Callable[[Any], Any]) -> Any:
         engine.dispose()
 
 
-def _cmd_log_verify(args: argparse.Namespace) -> int:
-    from webapp.services import audit, record_audit
+def _chain_state(session, log) -> tuple[bool | None, int | None, str, dict]:
+    """``verify_chain`` and the head of ``log``; ``(None, ...)`` when the schema predates that log."""
+    from webapp.services import audit
+    from webapp.store import chain_logs
 
-    intact, broken, reason, head, (checked, findings) = _read_log(
-        lambda session: (*audit.verify_chain(session), audit.chain_head_summary(session),
+    if not chain_logs.exists(session, log):
+        return None, None, "", {}
+    return (*audit.verify_chain(session, log), audit.chain_head_summary(session, log))
+
+
+def _print_chain(name: str, state) -> bool:
+    """One line on a chain's state; True unless it is broken."""
+    intact, broken, reason, head = state
+    if intact is None:
+        print(f"{name}: not in this database yet (its schema predates migration 0010_account_admin)")
+        return True
+    if intact:
+        print(f"{name} {reason}; chain head {head['hash']}")
+        return True
+    where = f"entry {broken}" if broken is not None else "the chain head"
+    print(f"{name} BROKEN at {where}: {reason}")
+    return False
+
+
+def _cmd_log_verify(args: argparse.Namespace) -> int:
+    from webapp.services import record_audit
+    from webapp.store.chain_logs import ADMIN_LOG, REVIEW_LOG
+
+    review, admin, (checked, findings) = _read_log(
+        lambda session: (_chain_state(session, REVIEW_LOG), _chain_state(session, ADMIN_LOG),
                          record_audit.check_records(session))
     )
-    if intact:
-        print(f"review log {reason}; chain head {head['hash']}")
-    else:
-        where = f"entry {broken}" if broken is not None else "the chain head"
-        print(f"review log BROKEN at {where}: {reason}")
+    intact = _print_chain("review log", review)
+    intact = _print_chain("admin log", admin) and intact
     if findings:
         print(f"records DIFFER from the review log: {len(findings)} finding(s) in {checked} records checked")
         for finding in findings:
@@ -92,8 +116,8 @@ def add_review_commands(commands) -> None:
     log = commands.add_parser("log", help="the review log")
     log_commands = log.add_subparsers(dest="log_command", required=True, metavar="COMMAND")
     verify = log_commands.add_parser(
-        "verify", help="check the review log's hash chain and every record against its log entry: "
-        "exit 0 intact, 1 naming the first broken entry and each record that differs"
+        "verify", help="check the hash chains of the review log and the admin log, and every record against "
+        "its review-log entry: exit 0 intact, 1 naming the log, its first broken entry and each record that differs"
     )
     verify.set_defaults(handler=_cmd_log_verify)
     head = log_commands.add_parser(

@@ -1,20 +1,21 @@
 """Account administration for the command line: users and API tokens.
 
 Each function opens the configured database (migrating it first), does one
-thing and returns what the CLI prints. Bad input raises InputError.
+thing through the rules of ``webapp.services.user_admin`` and returns what the
+CLI prints. Every change is written to the admin log with the actor
+``cli (<OS user>)``. Bad input raises InputError.
 """
 
 from __future__ import annotations
 
+import re
 from typing import Any, Mapping
 
 from analysis.errors import InputError
-from webapp import auth
-from webapp.auth import sessions
 from webapp.config import load_config
+from webapp.services import admin_log, user_admin
 from webapp.store import accounts, engine_session, make_engine, migrate
 from webapp.store.engine import database_url
-from webapp.store.tables import ROLES
 
 
 def _engine(overrides: Mapping[str, Any] | None = None):
@@ -29,104 +30,125 @@ def user_line(name: str, role: str, password: str) -> str:
     return f"user {name} ({role}) password {password}"
 
 
-def _check_name(name: str) -> str:
-    name = name.strip()
-    if not name or len(name) > 80 or any(ch.isspace() for ch in name):
-        raise InputError(f"user name {name!r}: 1 to 80 characters without spaces")
-    return name
-
-
-def _check_role(role: str) -> str:
-    if role not in ROLES:
-        raise InputError(f"role {role!r}: choose one of {', '.join(ROLES)}")
-    return role
+def _admin_write(work, overrides: Mapping[str, Any] | None):
+    """``work(session, actor)`` in one admin-log transaction on the configured database, as the CLI."""
+    engine = _engine(overrides)
+    actor = admin_log.cli_actor()
+    try:
+        return admin_log.write(lambda session: work(session, actor), engine=engine)
+    finally:
+        engine.dispose()
 
 
 def add_user(
     name: str, role: str, password: str | None = None, display_name: str | None = None,
     overrides: Mapping[str, Any] | None = None,
 ) -> str:
-    """Create a user; with no password, a random one is made. Returns the password."""
-    name, role = _check_name(name), _check_role(role)
-    if password is None:
-        password = auth.generate_password()
-    auth.check_new_password(password, name)
-    engine = _engine(overrides)
-    try:
-        with engine_session(engine) as s:
-            if accounts.get_user_by_name(s, name) is not None:
-                raise InputError(f"user {name!r} already exists")
-            accounts.add_user(s, name, role, auth.hash_password(password), display_name)
-    finally:
-        engine.dispose()
-    return password
+    """Create a user; with no password, a random one is made. Returns the password.
+
+    The person who runs the command hands the password over, so the user need
+    not change it at the first sign-in (the first administrator is made this way).
+    """
+    return _admin_write(
+        lambda s, actor: user_admin.add_user(s, actor, name, role, display_name, password, must_change=False)[1],
+        overrides,
+    )
 
 
 def list_users(overrides: Mapping[str, Any] | None = None) -> list[dict[str, Any]]:
     engine = _engine(overrides)
     try:
         with engine_session(engine) as s:
-            return [
-                {
-                    "name": u.name,
-                    "display_name": u.display_name,
-                    "role": u.role,
-                    "active": u.active,
-                    "locked_until": u.locked_until,
-                }
-                for u in accounts.list_users(s)
-            ]
+            return user_admin.list_users(s)
     finally:
         engine.dispose()
-
-
-def _user_or_error(s, name: str):
-    user = accounts.get_user_by_name(s, name)
-    if user is None:
-        raise InputError(f"no user named {name!r}")
-    return user
 
 
 def disable_user(name: str, overrides: Mapping[str, Any] | None = None) -> int:
     """Disable a user (sign-in, browser sessions and tokens stop working); returns tokens revoked."""
-    engine = _engine(overrides)
-    try:
-        with engine_session(engine) as s:
-            user = _user_or_error(s, name)
-            accounts.set_active(s, user, False)
-            sessions.revoke_user_sessions(s, user.id, sessions.ACCOUNT_DISABLED)
-            return accounts.revoke_tokens(s, user.id)
-    finally:
-        engine.dispose()
+    def work(s, actor):
+        user = user_admin.user_by_name(s, name)
+        if not user.active:
+            raise InputError(f"user {name!r} is disabled already")
+        live = len([t for t in accounts.list_tokens(s, user.id) if t.revoked_at is None])
+        user_admin.set_disabled(s, actor, user, True)
+        return live
+
+    return _admin_write(work, overrides)
 
 
-def create_token(name: str, label: str = "", overrides: Mapping[str, Any] | None = None) -> str:
-    """A new API token for an active user; printed once, stored hashed."""
-    engine = _engine(overrides)
-    try:
-        with engine_session(engine) as s:
-            user = _user_or_error(s, name)
-            if not user.active:
-                raise InputError(f"user {name!r} is disabled")
-            return auth.create_token(s, user.id, label)
-    finally:
-        engine.dispose()
+def enable_user(name: str, overrides: Mapping[str, Any] | None = None) -> None:
+    """Let a disabled user sign in again (their revoked tokens stay revoked)."""
+    def work(s, actor):
+        user = user_admin.user_by_name(s, name)
+        if user.active:
+            raise InputError(f"user {name!r} is active already")
+        user_admin.set_disabled(s, actor, user, False)
+
+    _admin_write(work, overrides)
+
+
+def set_role(name: str, role: str, overrides: Mapping[str, Any] | None = None) -> str:
+    """Give a user another role; returns the role they had."""
+    def work(s, actor):
+        user = user_admin.user_by_name(s, name)
+        old = user.role
+        if not user_admin.set_role(s, actor, user, role):
+            raise InputError(f"user {name!r} has the role {role} already")
+        return old
+
+    return _admin_write(work, overrides)
+
+
+def reset_password(name: str, overrides: Mapping[str, Any] | None = None) -> str:
+    """A one-time password for the user (returned, to print once); they choose their own at the next sign-in."""
+    return _admin_write(lambda s, actor: user_admin.reset_password(s, actor, user_admin.user_by_name(s, name)),
+                        overrides)
+
+
+def unlock_user(name: str, overrides: Mapping[str, Any] | None = None) -> int:
+    """Clear a user's failed sign-ins and lock; returns how many failures were counted."""
+    def work(s, actor):
+        user = user_admin.user_by_name(s, name)
+        failures = user.failed_logins or 0
+        user_admin.unlock(s, actor, user)
+        return failures
+
+    return _admin_write(work, overrides)
+
+
+def create_token(
+    name: str, label: str = "", overrides: Mapping[str, Any] | None = None, *,
+    expires: str | None = None, read_only: bool = False,
+) -> str:
+    """A new API token for an active user; printed once, stored hashed.
+
+    ``expires``: a number of days, or a date YYYY-MM-DD (valid through that day, UTC).
+    """
+    as_days = expires is not None and re.fullmatch(r"[0-9]{1,6}", expires)
+    days, date = (int(expires), None) if as_days else (None, expires)
+    expires_at = user_admin.token_expiry(days=days, date=date)
+
+    def work(s, actor):
+        user = user_admin.user_by_name(s, name)
+        return user_admin.create_token(s, actor, user, label or "command line", expires_at=expires_at,
+                                       read_only=read_only)[0]
+
+    return _admin_write(work, overrides)
 
 
 def revoke_tokens(
     name: str, token_id: int | None = None, overrides: Mapping[str, Any] | None = None
 ) -> int:
     """Revoke a user's tokens (or the one with ``token_id``); returns how many."""
-    engine = _engine(overrides)
-    try:
-        with engine_session(engine) as s:
-            user = _user_or_error(s, name)
-            count = accounts.revoke_tokens(s, user.id, token_id)
-            if token_id is not None and count == 0:
-                raise InputError(f"user {name!r} has no live token with id {token_id}")
-            return count
-    finally:
-        engine.dispose()
+    def work(s, actor):
+        user = user_admin.user_by_name(s, name)
+        try:
+            return user_admin.revoke_tokens(s, actor, user, token_id)
+        except user_admin.TokenNotFound:
+            raise InputError(f"user {name!r} has no live token with id {token_id}") from None
+
+    return _admin_write(work, overrides)
 
 
 def list_tokens(name: str | None = None, overrides: Mapping[str, Any] | None = None) -> list[dict]:
@@ -134,13 +156,15 @@ def list_tokens(name: str | None = None, overrides: Mapping[str, Any] | None = N
     try:
         with engine_session(engine) as s:
             users = {u.id: u.name for u in accounts.list_users(s)}
-            user_id = _user_or_error(s, name).id if name else None
+            user_id = user_admin.user_by_name(s, name).id if name else None
             return [
                 {
                     "id": t.id,
                     "user": users.get(t.user_id, "?"),
                     "label": t.label,
+                    "scope": t.scope,
                     "created_at": t.created_at,
+                    "expires_at": t.expires_at,
                     "last_used_at": t.last_used_at,
                     "revoked_at": t.revoked_at,
                 }

@@ -1,4 +1,10 @@
-"""The review log: an append-only record chained by SHA-256.
+"""The review log and the admin log: append-only records chained by SHA-256.
+
+Both logs are hashed and verified by the functions here; the stored-chain ones
+take the log (``webapp.store.chain_logs.REVIEW_LOG`` or ``ADMIN_LOG``), the
+review log when none is given.  What follows describes the review log; the
+admin log (migration 0010_account_admin) is built the same way, without a
+dataset column (its entries are hashed with ``dataset_id`` null).
 
 Every entry stores the hash of the entry before it (``prev_hash``) and its own
 ``hash`` = SHA-256 over canonical JSON of
@@ -184,7 +190,14 @@ def verify_entries(
     return True, None, f"intact: {count} entries"
 
 
-# --- the stored chain ---------------------------------------------------------------------
+# --- the stored chains: the review log and the admin log (``webapp.store.chain_logs``) ------
+
+
+def _chain(log):
+    """``log`` (a ``webapp.store.chain_logs.ChainLog``), the review log when None."""
+    from webapp.store.chain_logs import REVIEW_LOG
+
+    return REVIEW_LOG if log is None else log
 
 
 def append(
@@ -195,19 +208,23 @@ def append(
     action: str,
     dataset_id: int | None = None,
     payload: Mapping[str, Any] | None = None,
+    log=None,
 ):
-    """Append one entry to the review log inside the caller's transaction.
+    """Append one entry to ``log`` (the review log by default) inside the caller's transaction.
 
-    Takes the review write lock first (a no-op when the caller already holds
+    Takes the log's write lock first (a no-op when the caller already holds
     it), so the seq and prev_hash read here cannot be taken by anyone else
-    before this transaction commits.  Returns the new ``ReviewLogEntry`` row.
+    before this transaction commits.  Returns the new entry row.  An entry of
+    a log without a dataset column (the admin log) is hashed with
+    ``dataset_id`` null.
     """
-    from webapp.store import review as store
+    from webapp.store import chain_logs
 
-    store.lock_review(session)
-    head = store.chain_head(session)
+    log = _chain(log)
+    chain_logs.lock(session, log)
+    head = chain_logs.chain_head(session, log)
     if head is None:
-        raise RuntimeError("the review log has no chain head row; run the database migrations")
+        raise RuntimeError(f"the {log.name} has no chain head row; run the database migrations")
     seq, prev_hash = head.seq + 1, head.hash
     at = now_utc()
     body = json_safe(dict(payload or {}))
@@ -220,21 +237,15 @@ def append(
         payload=body,
         prev_hash=prev_hash,
     )
-    row = store.insert_log_entry(
-        session,
-        seq=seq,
-        dataset_id=dataset_id,
-        at=at,
-        actor_id=actor_id,
-        actor_name=actor_name,
-        action=action,
-        payload=body,
-        prev_hash=prev_hash,
-        hash=digest,
-        hash_scheme=HASH_SCHEME,
-    )
-    if not store.move_chain_head(session, head.seq, seq, digest):
-        raise ChainMoved(f"the review log head moved while entry {seq} was being written")
+    fields = dict(seq=seq, at=at, actor_id=actor_id, actor_name=actor_name, action=action, payload=body,
+                  prev_hash=prev_hash, hash=digest, hash_scheme=HASH_SCHEME)
+    if hasattr(log.entries, "dataset_id"):
+        fields["dataset_id"] = dataset_id
+    elif dataset_id is not None:
+        raise ValueError(f"the {log.name} records no dataset")
+    row = chain_logs.insert_entry(session, log, **fields)
+    if not chain_logs.move_chain_head(session, log, head.seq, seq, digest):
+        raise ChainMoved(f"the {log.name} head moved while entry {seq} was being written")
     return row
 
 
@@ -250,7 +261,7 @@ def entry_dict(row) -> dict[str, Any]:
         "actor_id": row.actor_id,
         "actor_name": row.actor_name,
         "action": row.action,
-        "dataset_id": row.dataset_id,
+        "dataset_id": getattr(row, "dataset_id", None),
         "payload": row.payload,
         "prev_hash": row.prev_hash,
         "hash": row.hash,
@@ -258,26 +269,28 @@ def entry_dict(row) -> dict[str, Any]:
     }
 
 
-def verify_chain(session) -> tuple[bool, int | None, str]:
-    """Recompute the whole stored chain: ``(ok, first_broken_seq, reason)``."""
-    from webapp.store import review as store
+def verify_chain(session, log=None) -> tuple[bool, int | None, str]:
+    """Recompute the whole stored chain of ``log`` (the review log by default):
+    ``(ok, first_broken_seq, reason)``."""
+    from webapp.store import chain_logs
 
-    head = store.chain_head(session)
+    log = _chain(log)
+    head = chain_logs.chain_head(session, log)
     if head is None:
         return False, None, "the chain head row is missing (it was deleted outside the app)"
     recorded = {"seq": head.seq, "hash": head.hash}
-    return verify_entries((entry_dict(row) for row in store.iter_log(session)), recorded)
+    return verify_entries((entry_dict(row) for row in chain_logs.iter_entries(session, log)), recorded)
 
 
-def chain_head_summary(session) -> dict[str, Any]:
+def chain_head_summary(session, log=None) -> dict[str, Any]:
     """The last entry's seq and hash: print it somewhere outside the database to anchor the log."""
-    from webapp.store import review as store
+    from webapp.store import chain_logs
 
-    head = store.chain_head(session)
+    head = chain_logs.chain_head(session, _chain(log))
     return {"seq": head.seq, "hash": head.hash} if head is not None else {"seq": None, "hash": None}
 
 
-def chain_head_record(session, seq: int | None = None) -> dict[str, Any]:
+def chain_head_record(session, seq: int | None = None, log=None) -> dict[str, Any]:
     """The chain head as the reports and ``latentdesk log head`` print it, to be kept outside the database.
 
     Keys: ``seq`` and ``hash`` (``chain_head_summary``), ``at`` (UTC time of the entry
@@ -286,12 +299,14 @@ def chain_head_record(session, seq: int | None = None) -> dict[str, Any]:
     (``hash`` None when there is none), to compare with a head kept earlier: a log
     whose entry ``seq`` is gone or has another hash was truncated or rewritten.
     """
-    from webapp.store import review as store
+    from webapp.store import chain_logs
 
+    log = _chain(log)
     if seq is None:
-        head = chain_head_summary(session)
-        entry = store.log_entry_at(session, head["seq"]) if head["seq"] else None
+        head = chain_head_summary(session, log)
+        entry = chain_logs.entry_at(session, log, head["seq"]) if head["seq"] else None
     else:
-        entry = store.log_entry_at(session, seq)
+        entry = chain_logs.entry_at(session, log, seq)
         head = {"seq": seq, "hash": entry.hash if entry is not None else None}
-    return {**head, "at": utc_iso(entry.at) if entry is not None else None, "entries": store.count_log(session)}
+    return {**head, "at": utc_iso(entry.at) if entry is not None else None,
+            "entries": chain_logs.count_entries(session, log)}

@@ -7,7 +7,7 @@ from datetime import datetime
 from sqlalchemy import case, delete, func, literal, or_, select, update
 from sqlalchemy.orm import Session
 
-from webapp.store.tables import ApiToken, LoginAttempt, User
+from webapp.store.tables import ApiToken, LoginAttempt, User, UserSession
 from webapp.store.types import UTCDateTime, utcnow
 
 
@@ -41,14 +41,41 @@ def list_users(session: Session) -> list[User]:
     return list(session.scalars(select(User).order_by(User.name)))
 
 
-def set_password(session: Session, user: User, password_hash: str) -> None:
+def set_password(session: Session, user: User, password_hash: str, *, must_change: bool = False) -> None:
+    """A new password hash; ``must_change``: the user has to choose their own at next sign-in."""
     user.password_hash = password_hash
     user.failed_logins = 0
     user.locked_until = None
+    user.must_change_password = must_change
 
 
 def set_active(session: Session, user: User, active: bool) -> None:
     user.active = active
+
+
+def set_role(session: Session, user: User, role: str) -> None:
+    user.role = role
+
+
+def unlock(session: Session, user: User, now: datetime) -> None:
+    """Clear the account's failures and lock; failures before ``now`` stop counting for its name."""
+    user.failed_logins = 0
+    user.locked_until = None
+    user.unlocked_at = now
+
+
+def count_active_admins(session: Session, *, besides: int | None = None) -> int:
+    """Active users with the admin role (leaving out the user ``besides``)."""
+    query = select(func.count(User.id)).where(User.role == "admin", User.active.is_(True))
+    if besides is not None:
+        query = query.where(User.id != besides)
+    return session.scalar(query) or 0
+
+
+def last_sign_ins(session: Session) -> dict[int, datetime]:
+    """user id -> when their newest browser session began (sessions are kept 90 days)."""
+    rows = session.execute(select(UserSession.user_id, func.max(UserSession.created_at)).group_by(UserSession.user_id))
+    return dict(rows.all())
 
 
 # -- lockout ---------------------------------------------------------------
@@ -157,8 +184,12 @@ def clear_failed_logins(session: Session, user_id: int) -> None:
 
 # -- API tokens ------------------------------------------------------------
 
-def add_token(session: Session, user_id: int, token_hash: str, label: str = "") -> ApiToken:
-    token = ApiToken(user_id=user_id, token_hash=token_hash, label=label, created_at=utcnow())
+def add_token(
+    session: Session, user_id: int, token_hash: str, label: str = "", *,
+    expires_at: datetime | None = None, scope: str = "read-write",
+) -> ApiToken:
+    token = ApiToken(user_id=user_id, token_hash=token_hash, label=label, created_at=utcnow(),
+                     expires_at=expires_at, scope=scope)
     session.add(token)
     session.flush()
     return token

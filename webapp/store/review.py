@@ -15,6 +15,8 @@ from typing import Any, Iterator
 from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
+from webapp.store import chain_logs
+from webapp.store.chain_logs import REVIEW_LOG
 from webapp.store.engine import add_and_flush
 from webapp.store.tables import (
     Dataset,
@@ -27,7 +29,7 @@ from webapp.store.tables import (
 )
 
 
-# --- locking and the chain head -----------------------------------------------------------
+# --- locking, the chain head and the stored chain (``webapp.store.chain_logs``) -------------
 
 
 def lock_review(session: Session) -> None:
@@ -36,50 +38,28 @@ def lock_review(session: Session) -> None:
     Call first in every transaction that writes proposals, sign-offs or log
     entries, before reading what the write depends on.
     """
-    connection = session.connection()
-    if connection.dialect.name == "sqlite":
-        raw = connection.connection.dbapi_connection
-        if not raw.in_transaction:
-            connection.exec_driver_sql("BEGIN IMMEDIATE")
-        return
-    session.execute(select(ReviewLogHead.id).where(ReviewLogHead.id == 1).with_for_update())
+    chain_logs.lock(session, REVIEW_LOG)
 
 
 def chain_head(session: Session) -> ReviewLogHead | None:
-    return session.get(ReviewLogHead, 1, populate_existing=True)
+    return chain_logs.chain_head(session, REVIEW_LOG)
 
 
 def move_chain_head(session: Session, old_seq: int, new_seq: int, new_hash: str) -> bool:
     """Move the head from ``old_seq`` to the new entry; False if someone moved it meanwhile."""
-    result = session.execute(
-        update(ReviewLogHead)
-        .where(ReviewLogHead.id == 1, ReviewLogHead.seq == old_seq)
-        .values(seq=new_seq, hash=new_hash)
-        .execution_options(synchronize_session=False)
-    )
-    return result.rowcount == 1
+    return chain_logs.move_chain_head(session, REVIEW_LOG, old_seq, new_seq, new_hash)
 
 
 # --- the review log -----------------------------------------------------------------------
 
 
 def insert_log_entry(session: Session, **fields: Any) -> ReviewLogEntry:
-    return add_and_flush(session, ReviewLogEntry(**fields))
+    return chain_logs.insert_entry(session, REVIEW_LOG, **fields)
 
 
 def iter_log(session: Session, batch: int = 1000) -> Iterator[ReviewLogEntry]:
     """Every log entry in ``seq`` order, fetched in batches (the log can be long)."""
-    last = 0
-    while True:
-        rows = list(
-            session.scalars(
-                select(ReviewLogEntry).where(ReviewLogEntry.seq > last).order_by(ReviewLogEntry.seq).limit(batch)
-            )
-        )
-        if not rows:
-            return
-        yield from rows
-        last = rows[-1].seq
+    return chain_logs.iter_entries(session, REVIEW_LOG, batch)
 
 
 def log_entries(
@@ -121,14 +101,12 @@ def log_actors(session: Session, dataset_id: int) -> list[tuple[int | None, str]
 
 
 def count_log(session: Session) -> int:
-    from sqlalchemy import func
-
-    return session.scalar(select(func.count()).select_from(ReviewLogEntry)) or 0
+    return chain_logs.count_entries(session, REVIEW_LOG)
 
 
 def log_entry_at(session: Session, seq: int) -> ReviewLogEntry | None:
     """The log entry with sequence number ``seq``, or None when there is none."""
-    return session.scalar(select(ReviewLogEntry).where(ReviewLogEntry.seq == seq))
+    return chain_logs.entry_at(session, REVIEW_LOG, seq)
 
 
 # --- proposals and sign-offs --------------------------------------------------------------

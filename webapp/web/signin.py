@@ -1,4 +1,4 @@
-"""The sign-in form and sign-out (plain Flask, so they work without JavaScript).
+"""The sign-in form, sign-out and choosing a new password (plain Flask, so they work without JavaScript).
 
 Both live under the reserved ``/-/`` prefix, which user-named things never use.
 """
@@ -11,7 +11,8 @@ from flask import Blueprint, current_app, make_response, redirect, render_templa
 from flask_login import current_user, login_user, logout_user
 
 from webapp import auth
-from webapp.auth import sessions
+from webapp.auth import passwords, sessions
+from webapp.web.ui.messages import as_sentence
 
 bp = Blueprint("auth", __name__)
 
@@ -55,6 +56,37 @@ _SIGN_OUT = _PAGE.replace("{% block body %}{% endblock %}", """
       <button type="submit" class="ld-button">Sign out</button>
     </form>
     <p><a href="/">Back to the datasets</a></p>
+""")
+
+_CHOOSE_PASSWORD = _PAGE.replace("{% block body %}{% endblock %}", """
+    <h1>Choose a new password</h1>
+    {% if due %}<p>An administrator set the password you signed in with. Choose your own before anything
+    else; it is not shown to anyone.</p>{% endif %}
+    {% if message and done %}<p class="ld-success" role="status">{{ message }}</p>
+    {% elif message %}<p class="ld-alert" role="alert">{{ message }}</p>{% endif %}
+    {% if not done %}
+    <form method="post" action="{{ action }}" class="ld-form">
+      <input type="hidden" name="csrf_token" value="{{ csrf }}">
+      <input type="hidden" name="next" value="{{ next_path }}">
+      <label for="old_password">Current password</label>
+      <input id="old_password" name="old_password" type="password" autocomplete="current-password" required>
+      <label for="new_password">New password</label>
+      <input id="new_password" name="new_password" type="password" autocomplete="new-password" required
+             minlength="{{ min_length }}" aria-describedby="password-rules">
+      <p id="password-rules" class="ld-muted">At least {{ min_length }} characters; a phrase of a few words is
+      easy to remember. Commonly used passwords, repeated or consecutive characters and your user name are
+      refused.</p>
+      <label for="repeat_password">New password again</label>
+      <input id="repeat_password" name="repeat_password" type="password" autocomplete="new-password" required>
+      <button type="submit" class="ld-button">Set the new password</button>
+    </form>
+    {% else %}
+    <p><a href="{{ next_path }}">Go on</a></p>
+    {% endif %}
+    <form method="post" action="{{ logout }}" class="ld-form">
+      <input type="hidden" name="csrf_token" value="{{ csrf }}">
+      <button type="submit" class="ld-link-button">Sign out</button>
+    </form>
 """)
 
 _ERROR = _PAGE.replace("{% block body %}{% endblock %}", """
@@ -147,3 +179,47 @@ def logout():
     logout_user()
     session.clear()
     return redirect(url_for("auth.login"))
+
+
+def _choose_form(message: str = "", next_path: str = "/", status: int = 200, done: bool = False):
+    html = render_template_string(
+        _CHOOSE_PASSWORD,
+        title="Choose a new password",
+        message=message,
+        done=done,
+        due=current_user.must_change_password and not done,
+        next_path=auth.safe_next(next_path),
+        csrf=auth.csrf_token(),
+        action=auth.PASSWORD_PATH,
+        logout=auth.LOGOUT_PATH,
+        min_length=passwords.MIN_LENGTH,
+    )
+    response = make_response(html, status)
+    response.headers["Cache-Control"] = "no-store"
+    return response
+
+
+@bp.route(auth.PASSWORD_PATH, methods=["GET", "POST"], endpoint="choose_password")
+def choose_password():
+    """Choose a new password: where a user whose password an administrator set is sent first.
+
+    Any signed-in user may use it; the current password is asked again, every
+    other session of the user ends, and the change goes into the admin log
+    (``webapp.services.my_account.change_password``).
+    """
+    from analysis.errors import InputError
+    from webapp.services import my_account
+
+    next_path = auth.safe_next(request.values.get("next"))
+    if request.method == "GET":
+        return _choose_form(next_path=next_path)
+    if not auth.csrf_valid(request.form.get("csrf_token")):
+        return _choose_form("The form expired. Please fill it in again.", next_path, 400)
+    new_password = request.form.get("new_password") or ""
+    if new_password != (request.form.get("repeat_password") or ""):
+        return _choose_form("The two new passwords differ; nothing was changed.", next_path, 400)
+    try:
+        my_account.change_password(current_user, request.form.get("old_password") or "", new_password)
+    except InputError as exc:
+        return _choose_form(as_sentence(str(exc)), next_path, 400)
+    return _choose_form("Your new password is set. Your other sessions have ended.", next_path, done=True)
