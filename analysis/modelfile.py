@@ -48,14 +48,16 @@ class ModelFileError(InputError):
 
 
 def model_fingerprint(
-    dataset_sha256, scaling, log10, variables, n_components, excluded, *, intake=None
+    dataset_sha256, scaling, log10, variables, n_components, excluded, *, intake=None, method=None
 ) -> str:
     """SHA-256 (hex) identifying a model: same inputs and analysis version, same fingerprint.
 
     ``log10`` and ``excluded`` are sets (sorted before hashing); ``variables``
     keeps its order. ``intake`` (optional dict) holds reading options that
     change the values taken from the same file, e.g. the detection-limit
-    policy; it is hashed only when given.
+    policy; it is hashed only when given. ``method`` ("robust" for ROBPCA,
+    ``analysis.robust``) is hashed only when it is not the classical PCA, so
+    classical fingerprints are those of before the option existed.
     """
     payload = {
         "analysis_version": analysis.__version__,
@@ -68,6 +70,8 @@ def model_fingerprint(
     }
     if intake is not None:
         payload["intake"] = intake
+    if method not in (None, "classical"):
+        payload["method"] = str(method)
     return canonical_sha256(payload, RFC8785)
 
 

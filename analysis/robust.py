@@ -406,6 +406,16 @@ class RobustPCAModel:
     support_ : ndarray of bool (n,)     samples kept by the MCD reweighting
     h_, n_components_, n_samples_, rank_ : int   (rank_ = r0 of stage 1)
     location_, scale_ : ndarray (p,)    preprocessing location and divisor (after log10)
+    spread_ : ndarray (p,)              MAD (times 1.4826) or SD per variable: the unit of ``explain``
+    od_moments_ : (float, float)        centre and spread of OD^(2/3) behind every OD cut-off
+    explained_variance_ratio_, cumulative_explained_ : ndarray (k,)
+    variable_explained_ : ndarray (p,), total_variance_ : float
+                                        shares of the regular samples' sum of squares (see ``_explained``)
+
+    The classical model's interface (``t2_``, ``spe_``, ``hotelling_t2``, ``spe``,
+    ``t2_limit``, ``spe_limit``, ``contributions``) is kept with SD^2 for T2 and
+    OD^2 for SPE and the squared cut-offs for the limits, so tables, contributions
+    and comparisons treat both fits alike.
     sample_ids_, variable_names_, dropped_variables_, warnings_ : list[str]
 
     References
@@ -493,7 +503,7 @@ class RobustPCAModel:
         self.dropped_variables_ = prep.dropped_variables_
         self.warnings_ = list(prep.warnings_)
         self._log_mask = prep.log_mask_
-        self.location_, self.scale_ = self._preprocessing(values, prep)
+        self.location_, self.scale_, self.spread_ = self._preprocessing(values, prep)
         z = scale_block(values, self._log_mask, self.location_, self.scale_)
         p = z.shape[1]
         rng = np.random.default_rng(self.random_state)
@@ -569,11 +579,45 @@ class RobustPCAModel:
         if k == r0:
             od[:] = 0.0  # the model spans every direction the training data have
         self.orthogonal_distance_ = od
-        self.sd_cutoff_ = float(np.sqrt(stats.chi2.ppf(self.confidence, k)))
-        self.od_cutoff_ = 0.0 if k == r0 else od_cutoff(od, h, self.confidence)
+        self.od_moments_ = (0.0, 0.0) if k == r0 else od_root_moments(od, h)
+        self.sd_cutoff_, self.od_cutoff_ = self.cutoffs()
         self.regions_ = self.classify(self.score_distance_, od)
         self.flags_ = self.regions_ != REGIONS[0]
+        self._explained(z, ~self.flags_)
+        self.n_missing_ = 0
+        self.solver_ = "robpca"
         return self
+
+    def _explained(self, z: np.ndarray, regular: np.ndarray) -> None:
+        """Shares of the regular samples' sum of squares about the robust centre.
+
+        ROBPCA has no total variance of its own (Hubert et al. 2005 report the
+        robust eigenvalues). The shares here are ours: over the samples in the
+        regular region, component a explains sum t_a^2 / sum ||z - c||^2, and
+        variable j the share 1 - sum e_j^2 / sum (z_j - c_j)^2 of its own sum of
+        squares, with e = z - c - t P' and
+        sum e_j^2 = sum (z_j - c_j)^2 - 2 P_j'[(Z - c)'T]_j + P_j' (T'T) P_j
+        (sums over the regular samples; no residual matrix is formed).
+        """
+        weight = regular.astype(np.float64)
+        scores = self.scores_
+        weighted = scores * weight[:, None]
+        per_component = np.einsum("ij,ij->j", weighted, scores)
+        column_ss = np.zeros(z.shape[1])
+        for start in range(0, z.shape[0], BLOCK_ROWS):
+            centred = z[start : start + BLOCK_ROWS] - self.center_
+            column_ss += weight[start : start + BLOCK_ROWS] @ (centred * centred)
+        cross = z.T @ weighted - np.outer(self.center_, weighted.sum(axis=0))  # (Z - c)'T over the regular rows
+        loadings = self.loadings_
+        residual_ss = (column_ss - 2.0 * np.einsum("ja,ja->j", loadings, cross)
+                       + np.einsum("ja,ab,jb->j", loadings, scores.T @ weighted, loadings))
+        total = float(column_ss.sum())
+        self.total_variance_ = total / max(int(regular.sum()) - 1, 1)
+        self.explained_variance_ratio_ = per_component / total if total > 0 else np.zeros_like(per_component)
+        self.cumulative_explained_ = np.cumsum(self.explained_variance_ratio_)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            share = 1.0 - residual_ss / column_ss
+        self.variable_explained_ = np.clip(np.nan_to_num(share, nan=0.0), 0.0, 1.0)
 
     @functools.cached_property
     def sample_ids_(self) -> list[str]:
@@ -582,17 +626,19 @@ class RobustPCAModel:
             raise AttributeError("sample_ids_ is set by fit")
         return default_sample_ids(self.n_samples_)
 
-    def _preprocessing(self, values: np.ndarray, prep: Preprocessor) -> tuple[np.ndarray, np.ndarray]:
-        """Location and divisor per variable: the Preprocessor's, or median and MAD (see the class)."""
+    def _preprocessing(self, values: np.ndarray, prep: Preprocessor) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Location, divisor and spread per variable: the Preprocessor's (spread: SD), or
+        median, MAD-based divisor and MAD (see the class). The spread is the unit of the
+        explanations (``explain``)."""
         if self.scale_estimator == "sd" or self.scaling == "none":
-            return prep.mean_, prep.scale_
+            return prep.mean_, prep.scale_, prep.sd_
         columns = np.array(apply_log10(values, self._log_mask).T, order="C")  # one contiguous row per variable
         median = _row_medians(columns)
         np.subtract(columns, median[:, None], out=columns)
         np.abs(columns, out=columns)
         mad = _row_medians(columns) / stats.norm.ppf(0.75)
         if self.scaling == "center":
-            return median, np.ones_like(median)
+            return median, np.ones_like(median), mad
         zero = mad <= 64 * np.finfo(float).eps * np.abs(median)
         if zero.any():
             names = [v for v, z in zip(self.variable_names_, zero) if z]
@@ -600,11 +646,14 @@ class RobustPCAModel:
                 f"variable(s) with a MAD of 0 (more than half the values equal) cannot be scaled robustly: "
                 f"{', '.join(names[:10])}; use scale_estimator='sd' or leave them out"
             )
-        return median, (mad if self.scaling == "autoscale" else np.sqrt(mad))
+        return median, (mad if self.scaling == "autoscale" else np.sqrt(mad)), mad
 
     # ------------------------------------------------------------- new data
-    def _matrix(self, X) -> np.ndarray:
-        """Raw values of X in the model's variable order (DataFrames by column name)."""
+    def _matrix(self, X, allow_missing: bool = False) -> np.ndarray:
+        """Raw values of X in the model's variable order (DataFrames by column name).
+
+        InputError for a missing value unless ``allow_missing`` (the distances of an
+        incomplete row are then NaN: ROBPCA has no rule for missing values)."""
         if isinstance(X, pd.Series):
             X = X.to_frame().T
         if isinstance(X, pd.DataFrame):
@@ -625,7 +674,7 @@ class RobustPCAModel:
             values, ids, _, complete, _ = validated(values, variable_names=names, default_ids=False)
             if values.shape[1] != p_model:
                 values = values[:, [names.index(v) for v in self.variable_names_]]
-        if not complete:
+        if not complete and not allow_missing:
             raise InputError("robust PCA scores need complete rows; a value is missing")
         check_log10(values, self._log_mask, ids, self.variable_names_)
         return values
@@ -639,20 +688,24 @@ class RobustPCAModel:
         # z - center = (x - (location + center * scale)) / scale after log10.
         shift = self.location_ + self.center_ * self.scale_
         scores, od2 = _scores_and_spe_blocks(values, self._log_mask, shift, self.scale_, self.loadings_, complete=True)
+        incomplete = np.isnan(values).any(axis=1)
+        if incomplete.any():
+            scores[incomplete], od2[incomplete] = np.nan, np.nan
         sd = np.sqrt(diagnostics.hotelling_t2(scores, self.eigenvalues_))
         return scores, sd, np.sqrt(od2)
 
     def transform(self, X) -> np.ndarray:
-        """Robust scores (m, k) of the samples in X."""
-        return self._distances(self._matrix(X))[0]
+        """Robust scores (m, k) of the samples in X (NaN for a row with a missing value)."""
+        return self._distances(self._matrix(X, allow_missing=True))[0]
 
     def score_distance(self, X) -> np.ndarray:
-        """Score distance SD (m,) of the samples in X."""
-        return self._distances(self._matrix(X))[1]
+        """Score distance SD (m,) of the samples in X (NaN for a row with a missing value)."""
+        return self._distances(self._matrix(X, allow_missing=True))[1]
 
     def orthogonal_distance(self, X) -> np.ndarray:
-        """Orthogonal distance OD (m,) of the samples in X to the robust model plane (0 when k = p)."""
-        return self._distances(self._matrix(X))[2]
+        """Orthogonal distance OD (m,) of the samples in X to the robust model plane (0 when k = p;
+        NaN for a row with a missing value)."""
+        return self._distances(self._matrix(X, allow_missing=True))[2]
 
     def diagnose(self, X) -> dict:
         """Scores, SD, OD, region and flag of the samples in X against the training cut-offs."""
@@ -667,6 +720,118 @@ class RobustPCAModel:
         far = np.asarray(score_distance) > self.sd_cutoff_
         off = np.asarray(orthogonal_distance) > self.od_cutoff_
         return np.asarray(REGIONS)[far.astype(int) + 2 * off.astype(int)]
+
+    # ------------------------------------------------- cut-offs at any level
+    def cutoffs(self, confidence=None) -> tuple[float, float]:
+        """(SD cut-off, OD cut-off) at ``confidence`` (default: the fit's level).
+
+        SD: sqrt(chi2_{k, conf}); OD: (t + s z_conf)^(3/2) with t, s the reweighted
+        univariate MCD of the training OD^(2/3) (Hubert et al. 2005, section 3.4;
+        Wilson & Hilferty 1931). The paper uses conf = 0.975.
+        """
+        conf = diagnostics.check_confidence(self.confidence if confidence is None else confidence)
+        sd = float(np.sqrt(stats.chi2.ppf(conf, self.n_components_)))
+        return sd, od_cutoff_from(*self.od_moments_, conf)
+
+    # ----------------------------------------- the classical model's interface
+    @property
+    def t2_(self) -> np.ndarray:
+        """SD^2 of the training samples (the robust Hotelling-type distance within the model)."""
+        return self.score_distance_**2
+
+    @property
+    def spe_(self) -> np.ndarray:
+        """OD^2 of the training samples (squared residual to the robust plane)."""
+        return self.orthogonal_distance_**2
+
+    def hotelling_t2(self, X) -> np.ndarray:
+        """SD^2 (m,) of the samples in X."""
+        return self.score_distance(X) ** 2
+
+    def spe(self, X) -> np.ndarray:
+        """OD^2 (m,) of the samples in X."""
+        return self.orthogonal_distance(X) ** 2
+
+    def t2_limit(self, confidence=None, new: bool = False) -> float:
+        """Squared SD cut-off. ``new`` changes nothing: the chi-square cut-off of
+        Hubert et al. (2005) is the same for training and new samples."""
+        return self.cutoffs(confidence)[0] ** 2
+
+    def spe_limit(self, confidence=None) -> float:
+        """Squared OD cut-off (see ``cutoffs``)."""
+        return self.cutoffs(confidence)[1] ** 2
+
+    def explain(self, x, sample_id=None, top: int = 3, confidence=None) -> dict:
+        """Plain-language explanation of one raw row x, as ``analysis.diagnostics.explain_sample``
+        words it for the classical model, in score and orthogonal distances.
+
+        The distance beyond its cut-off by the larger ratio decides which
+        contributions are explained: OD^2 (squared residuals to the robust plane)
+        or SD^2 (Westerhuis, Gurden & Smilde 2000 in the robust score space).
+        Values are given in units of ``spread_`` (robust SDs with the MAD) from
+        the robust centre. ``sample_id`` is accepted for symmetry; the cut-offs are
+        the same for training and new samples. Returns the keys of
+        ``explain_sample`` (``t2`` = SD^2, ``spe`` = OD^2, limits squared) plus
+        ``score_distance``, ``orthogonal_distance``, ``sd_cutoff`` and ``od_cutoff``.
+        """
+        del sample_id
+        z = self.preprocess(x)
+        if z.shape[0] != 1:
+            raise InputError(f"expected one sample, got {z.shape[0]}")
+        centred = z[0] - self.center_
+        scores = centred @ self.loadings_
+        residual = centred - self.loadings_ @ scores
+        if self.n_components_ == len(self.variable_names_):
+            residual = np.zeros_like(centred)
+        spe_c = diagnostics.spe_contributions(residual)
+        t2_c = diagnostics.t2_contributions(centred, self.loadings_, self.eigenvalues_)
+        sd = float(np.sqrt(diagnostics.hotelling_t2(scores[None, :], self.eigenvalues_)[0]))
+        od = float(np.sqrt(spe_c.sum()))
+        sd_cut, od_cut = self.cutoffs(confidence)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            unit = np.where(self.spread_ > 0, self.scale_ / self.spread_, np.nan)
+        standardized, residual_units = centred * unit, residual * unit
+        sd_ratio = sd / sd_cut
+        od_ratio = od / od_cut if od_cut > 0 else (np.inf if od > 0 else 0.0)
+        driver = "spe" if od_ratio > sd_ratio else "t2"
+        drive = spe_c if driver == "spe" else t2_c
+        order = np.argsort(-np.abs(drive), kind="stable")
+        names = self.variable_names_
+
+        def number(value) -> float | None:
+            return None if not np.isfinite(value) else float(value)
+
+        variables = [
+            {"variable": names[j], "spe_contribution": float(spe_c[j]), "t2_contribution": float(t2_c[j]),
+             "residual": float(residual[j]), "standardized_value": number(standardized[j])}
+            for j in order
+        ]
+
+        def phrase(j: int) -> str:
+            if driver == "spe":
+                r = residual_units[j]
+                return f"{names[j]}, {abs(r):.1f} robust SD {'higher' if r > 0 else 'lower'} than the model predicts"
+            v = standardized[j]
+            return f"{names[j]}, {abs(v):.1f} robust SD {'above' if v > 0 else 'below'} the robust centre"
+
+        chosen = [j for j in order if drive[j] > 0][: max(int(top), 1)]
+        reasons = "; ".join(phrase(j) for j in chosen)
+        level = f"{(self.confidence if confidence is None else confidence):.1%}".replace(".0%", "%")
+        sd_text = f"score distance {sd:.3g}, {level} cut-off {sd_cut:.3g}"
+        od_text = f"orthogonal distance {od:.3g}, {level} cut-off {od_cut:.3g}"
+        if sd > sd_cut or od > od_cut:
+            head = (f"Far along the robust model ({sd_text}) mainly because of " if driver == "t2"
+                    else f"Off the robust model plane ({od_text}) mainly because of ")
+            sentence = head + (reasons or "no single variable") + "."
+        else:
+            sentence = f"Within both cut-offs ({sd_text}; {od_text})."
+            if reasons:
+                sentence += f" Largest deviations: {reasons}."
+        return {
+            "sentence": sentence, "t2": sd**2, "spe": od**2, "t2_limit": sd_cut**2, "spe_limit": od_cut**2,
+            "score_distance": sd, "orthogonal_distance": od, "sd_cutoff": sd_cut, "od_cutoff": od_cut,
+            "driver": driver, "variables": variables,
+        }
 
     def contributions(self, x, kind: str = "spe") -> np.ndarray:
         """Per-variable contributions (p,) of one raw row x.
@@ -689,20 +854,46 @@ class RobustPCAModel:
         residual = centred - self.loadings_ @ (centred @ self.loadings_)
         return diagnostics.spe_contributions(residual)
 
-    def fit_summary(self) -> dict:
-        """The robust fit's settings and cut-offs for summary.json."""
-        counts = {r: int(np.sum(self.regions_ == r)) for r in REGIONS}
+    def regions_at(self, confidence=None) -> np.ndarray:
+        """Region of each training sample against the cut-offs at ``confidence`` (see ``classify``)."""
+        sd_cut, od_cut = self.cutoffs(confidence)
+        far = self.score_distance_ > sd_cut
+        off = self.orthogonal_distance_ > od_cut
+        return np.asarray(REGIONS)[far.astype(int) + 2 * off.astype(int)]
+
+    def first_step(self) -> str:
+        """How stage 1 reduced the dimension, in words (Hubert et al. 2005, section 3.1)."""
+        n, p = self.n_samples_, len(self.variable_names_)
+        if self.rank_ == p:
+            return f"The {n} samples span all {p} variables: stage 1 keeps every dimension."
+        more = " (more variables than samples)" if p > n else ""
+        return (f"Stage 1 reduced the {p} variables{more} to the {self.rank_} dimensions the {n} samples "
+                "span, by a singular value decomposition of the centred data, before the robust steps.")
+
+    def fit_summary(self, confidence=None) -> dict:
+        """The robust fit's settings, subset size h and cut-offs (at ``confidence``,
+        default the fit's level) for summary.json and the API."""
+        conf = float(self.confidence if confidence is None else confidence)
+        sd_cut, od_cut = self.cutoffs(conf)
+        regions = self.regions_at(conf)
+        counts = {r: int(np.sum(regions == r)) for r in REGIONS}
         return {
             "method": "robust",
-            "algorithm": "ROBPCA (Hubert, Rousseeuw & Vanden Branden 2005)",
+            "algorithm": "ROBPCA (Hubert, Rousseeuw & Vanden Branden 2005) with FastMCD "
+                         "(Rousseeuw & Van Driessen 1999, scikit-learn MinCovDet)",
             "n_components": self.n_components_,
             "alpha": float(self.alpha),
             "h": self.h_,
-            "confidence": float(self.confidence),
-            "sd_cutoff": self.sd_cutoff_,
-            "od_cutoff": self.od_cutoff_,
-            "n_flagged": int(self.flags_.sum()),
+            "confidence": conf,
+            "sd_cutoff": sd_cut,
+            "od_cutoff": od_cut,
+            "sd_cutoff_rule": "sqrt of the chi-square quantile with k degrees of freedom",
+            "od_cutoff_rule": "(t + s z)^(3/2), t and s the reweighted univariate MCD of OD^(2/3) (Wilson-Hilferty)",
+            "reweighting_level": float(self.confidence),
+            "n_flagged": int(np.sum(regions != REGIONS[0])),
             "regions": counts,
+            "rank": int(self.rank_),
+            "first_step": self.first_step(),
             "scaling": self.scaling,
             "scale_estimator": self.scale_estimator,
             "random_state": int(self.random_state),
@@ -722,13 +913,27 @@ def od_cutoff(od: np.ndarray, h: int, confidence: float) -> float:
     z_conf is the standard normal quantile. When more than h of the OD^(2/3)
     coincide (every OD 0 when the model spans the data) the cut-off is their value.
     """
+    return od_cutoff_from(*od_root_moments(od, h), confidence)
+
+
+def od_root_moments(od: np.ndarray, h: int) -> tuple[float, float]:
+    """Centre t and spread s of OD^(2/3): the reweighted univariate MCD with h of n values.
+
+    The two numbers behind every OD cut-off (see ``od_cutoff``); s is 0 when more
+    than h of the OD^(2/3) coincide.
+    """
     root = np.asarray(od, dtype=float).ravel() ** (2.0 / 3.0)
     location, scale = univariate_mcd(root[None, :], h)
     variance = float(scale[0]) ** 2 * (h - 1) / h
     if variance <= (64 * np.finfo(float).eps * max(abs(float(location[0])), np.finfo(float).tiny)) ** 2:
-        return float(max(float(location[0]), 0.0) ** 1.5)
+        return float(location[0]), 0.0
     centre, spread2, _ = _reweight(root[:, None], h, location, np.array([[variance]]))
-    value = float(centre[0]) + float(np.sqrt(spread2[0, 0])) * stats.norm.ppf(confidence)
+    return float(centre[0]), float(np.sqrt(spread2[0, 0]))
+
+
+def od_cutoff_from(centre: float, spread: float, confidence: float) -> float:
+    """(t + s z_conf)^(3/2) from the moments of OD^(2/3) (Hubert et al. 2005; Wilson & Hilferty 1931)."""
+    value = centre + spread * float(stats.norm.ppf(confidence)) if spread > 0 else centre
     return float(max(value, 0.0) ** 1.5)
 
 

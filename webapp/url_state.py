@@ -16,10 +16,11 @@ from dataclasses import dataclass, replace
 from typing import Any, Mapping
 from urllib.parse import parse_qs, quote, urlencode
 
-TABS = ("variance", "scores", "loadings", "diagnostics", "outliers")
+TABS = ("variance", "scores", "loadings", "diagnostics", "screening", "outliers")
 SCALINGS = ("autoscale", "center", "pareto", "none")
 LOADING_VIEWS = ("plot", "biplot", "bars")
 CONFIDENCES = (0.9, 0.95, 0.99)
+METHODS = ("classical", "robust")  # webapp.services.fit_settings.METHODS
 
 
 @dataclass(frozen=True)
@@ -31,7 +32,7 @@ class ViewState:
     ``exclude`` (sample ids left out of the fit), ``include_all`` (with no
     ``exclude``: every sample in the fit, rather than the dataset's approved
     exclusions; how a saved view made with nothing excluded keeps its word),
-    ``confidence``.
+    ``confidence``, ``method`` (classical PCA or robust ROBPCA).
     View: ``tab``, ``pcx``/``pcy`` (1-based components), ``colour``/``shape``
     (metadata columns), ``labels``, ``loadings`` (plot, biplot or bars),
     ``sample`` (the sample whose explanation is open), ``order`` (column for the
@@ -45,6 +46,7 @@ class ViewState:
     exclude: tuple[str, ...] = ()
     include_all: bool = False
     confidence: float = 0.95
+    method: str = "classical"
     tab: str = "scores"
     pcx: int = 1
     pcy: int = 2
@@ -72,6 +74,7 @@ class ViewState:
             # unless include=all says "none left out".
             "exclude": list(self.exclude) if self.exclude or self.include_all else None,
             "confidence": self.confidence,
+            "method": self.method,
         }
 
     def with_changes(self, **changes) -> ViewState:
@@ -85,7 +88,7 @@ class ViewState:
 # URL key for each field, in the order they are written.
 _KEYS = {
     "tab": "tab", "components": "a", "scaling": "scaling", "log10": "log10", "drop": "drop",
-    "exclude": "exclude", "include_all": "include", "confidence": "conf", "pcx": "pcx", "pcy": "pcy",
+    "exclude": "exclude", "include_all": "include", "confidence": "conf", "method": "method", "pcx": "pcx", "pcy": "pcy",
     "colour": "colour", "shape": "shape", "labels": "labels", "loadings": "loadings", "sample": "sample",
     "order": "order",
 }
@@ -181,7 +184,7 @@ def parse_query(query: str | Mapping[str, Any] | None) -> tuple[ViewState, list[
         else:
             bad("confidence", text, "a level between 0.5 and 1, such as 0.95")
 
-    for name, allowed in (("tab", TABS), ("scaling", SCALINGS), ("loadings", LOADING_VIEWS)):
+    for name, allowed in (("tab", TABS), ("scaling", SCALINGS), ("method", METHODS), ("loadings", LOADING_VIEWS)):
         text = first(name)
         if text is None:
             continue

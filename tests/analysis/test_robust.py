@@ -239,3 +239,68 @@ def test_same_seed_same_fit(n):
         np.testing.assert_array_equal(getattr(first, name), getattr(second, name))
     assert first.od_cutoff_ == second.od_cutoff_
     np.testing.assert_array_equal(first.regions_, second.regions_)
+
+
+# ------------------------------------- (7) the classical model's interface, for the web app
+@pytest.mark.parametrize("confidence", [0.9, 0.99])
+def test_cutoffs_at_another_level_follow_the_same_formulas(confidence):
+    # Hubert et al. (2005) cut-offs at any level from one fit: sqrt(chi2_{k, conf}) (scipy) and
+    # (mu + sigma z_conf)^(3/2) with mu, sigma the reweighted univariate MCD of the fit's OD^(2/3).
+    X, _ = _masked_group(6, n_clean=400, n_group=80)
+    model = RobustPCAModel(n_components=2).fit(X)
+    sd_cut, od_cut = model.cutoffs(confidence)
+    assert sd_cut == pytest.approx(np.sqrt(stats.chi2.ppf(confidence, 2)), rel=1e-12)
+    mu, sigma = _univariate_reweighted_mcd(model.orthogonal_distance_ ** (2 / 3), model.h_)
+    assert od_cut == pytest.approx((mu + sigma * stats.norm.ppf(confidence)) ** 1.5, rel=1e-10)
+    # T2 / SPE of the interface are SD^2 / OD^2 with the squared cut-offs as limits.
+    np.testing.assert_allclose(model.hotelling_t2(X), model.score_distance_**2, rtol=1e-10)
+    np.testing.assert_allclose(model.spe(X), model.orthogonal_distance_**2, rtol=1e-10)
+    assert model.t2_limit(confidence) == pytest.approx(sd_cut**2) and model.spe_limit(confidence) == pytest.approx(
+        od_cut**2)
+    regions = model.regions_at(confidence)
+    np.testing.assert_array_equal(regions != "regular", (model.score_distance_ > sd_cut)
+                                  | (model.orthogonal_distance_ > od_cut))
+
+
+def test_explained_shares_are_those_of_the_regular_samples_written_out():
+    # Our definition (docstring of RobustPCAModel._explained; no published counterpart): over the regular
+    # samples, component a explains sum t_a^2 / sum ||z - c||^2, variable j 1 - sum e_j^2 / sum (z_j - c_j)^2.
+    X, _ = _masked_group(8, n_clean=300, n_group=60)
+    model = RobustPCAModel(n_components=2).fit(X)
+    regular = model.regions_ == "regular"
+    centred = model.preprocess(X)[regular] - model.center_
+    scores = centred @ model.loadings_
+    residual = centred - scores @ model.loadings_.T
+    np.testing.assert_allclose(model.explained_variance_ratio_, (scores**2).sum(0) / (centred**2).sum(), rtol=1e-10)
+    np.testing.assert_allclose(model.variable_explained_, 1 - (residual**2).sum(0) / (centred**2).sum(0),
+                               rtol=1e-8, atol=1e-12)
+
+
+def test_explanation_names_the_shifted_variable_and_sums_to_the_distances():
+    # The planted group is shifted along variable 3 (index 2) off the plane: its OD drives the sentence,
+    # and variable 3 carries most of OD^2 (contributions as Westerhuis, Gurden & Smilde 2000).
+    X, group = _masked_group(0)
+    model = RobustPCAModel(n_components=2).fit(X, variable_names=[f"v{j + 1}" for j in range(X.shape[1])])
+    row = np.flatnonzero(group)[0]
+    explained = model.explain(X[row], confidence=0.975)
+    assert explained["driver"] == "spe" and explained["variables"][0]["variable"] == "v3"
+    assert explained["sentence"].startswith("Off the robust model plane")
+    assert explained["score_distance"] == pytest.approx(model.score_distance_[row], rel=1e-10)
+    assert explained["orthogonal_distance"] == pytest.approx(model.orthogonal_distance_[row], rel=1e-10)
+    assert sum(v["spe_contribution"] for v in explained["variables"]) == pytest.approx(
+        model.orthogonal_distance_[row] ** 2, rel=1e-10)
+    assert sum(v["t2_contribution"] for v in explained["variables"]) == pytest.approx(
+        model.score_distance_[row] ** 2, rel=1e-9)
+
+
+def test_rows_with_a_missing_value_get_no_distances_but_the_others_do():
+    # ROBPCA has no rule for missing values (common practice: say so, do not guess).
+    X = _latent_plane(np.random.default_rng(4), 60, p=5)
+    model = RobustPCAModel(n_components=2).fit(X)
+    new = X[:3].copy()
+    new[1, 3] = np.nan
+    sd = model.score_distance(new)
+    assert np.isnan(sd[1]) and np.isfinite(sd[[0, 2]]).all()
+    np.testing.assert_allclose(sd[[0, 2]], model.score_distance_[[0, 2]], rtol=1e-10)
+    with pytest.raises(InputError, match="complete rows"):
+        model.contributions(new[1])

@@ -99,7 +99,7 @@ def test_model_settings_hold_only_what_decides_the_fit():
     c = U.ViewState(components=2, drop=("Zn",), log10=("Zn", "Cu"), exclude=("S1",), confidence=0.99)
     assert c.model_settings(variables) == {
         "scaling": "autoscale", "components": 2, "variables": ["Fe", "Cu"], "log10": ["Cu"],
-        "exclude": ["S1"], "confidence": 0.99,
+        "exclude": ["S1"], "confidence": 0.99, "method": "classical",
     }
 
 

@@ -19,7 +19,9 @@ from analysis.preprocessing import SCALINGS
 
 DEFAULT_CONFIDENCE = 0.95
 AUTO = "auto"
-FIELDS = ("scaling", "components", "variables", "log10", "exclude", "confidence")
+CLASSICAL, ROBUST = "classical", "robust"
+METHODS = (CLASSICAL, ROBUST)  # classical PCA, or ROBPCA (analysis.robust)
+FIELDS = ("scaling", "components", "variables", "log10", "exclude", "confidence", "method")
 
 
 @dataclass(frozen=True)
@@ -34,6 +36,10 @@ class FitSettings:
     log10 : tuple of str, sorted; each one of ``variables``
     exclude : tuple of str, sorted sample ids left out of the fit
     confidence : float in (0, 1), the level of the limits shown
+    method : {"classical", "robust"}
+        Classical PCA (``analysis.pca``), or ROBPCA (Hubert, Rousseeuw & Vanden
+        Branden 2005; ``analysis.robust``) whose limits are the score- and
+        orthogonal-distance cut-offs
     """
 
     scaling: str = "autoscale"
@@ -42,6 +48,7 @@ class FitSettings:
     log10: tuple[str, ...] = ()
     exclude: tuple[str, ...] = ()
     confidence: float = DEFAULT_CONFIDENCE
+    method: str = CLASSICAL
 
     @classmethod
     def parse(cls, settings: Mapping[str, Any] | FitSettings, dataset_variables: list[str]) -> FitSettings:
@@ -75,6 +82,7 @@ class FitSettings:
             log10=log10,
             exclude=tuple(sorted(set(_names(settings.get("exclude"), "exclude")))),
             confidence=_confidence(settings.get("confidence", DEFAULT_CONFIDENCE)),
+            method=_method(settings.get("method", CLASSICAL)),
         )
 
     def replace(self, **changes: Any) -> FitSettings:
@@ -96,6 +104,7 @@ class FitSettings:
             "log10": list(self.log10),
             "exclude": list(self.exclude),
             "confidence": self.confidence,
+            "method": self.method,
         }
 
 
@@ -115,6 +124,14 @@ def _components(value: Any) -> int | str:
     if isinstance(value, bool) or not isinstance(value, int) or value < 1:
         raise InputError(f"'components' must be a whole number of at least 1 or \"auto\", got {value!r:.80}",
                          field="components")
+    return value
+
+
+def _method(value: Any) -> str:
+    if value is None:
+        return CLASSICAL
+    if value not in METHODS:
+        raise InputError(f"'method' must be one of {', '.join(METHODS)}, got {value!r:.80}", field="method")
     return value
 
 

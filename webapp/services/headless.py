@@ -1,7 +1,8 @@
 """Fitting and applying models without the web app: the ``latentdesk fit`` / ``apply`` work.
 
-``fit_table`` turns a Table and settings into a fitted PCAModel and a JSON-safe
-summary (the web services reuse it). ``fit_to_folder`` reads a file and writes
+``fit_table`` turns a Table and settings into a fitted PCAModel (or, with
+``method="robust"``, a ROBPCA ``RobustPCAModel``) and a JSON-safe summary (the
+web services reuse it). ``fit_to_folder`` reads a file and writes
 summary.json, scores.csv, loadings.csv, samples.csv and model.json;
 ``apply_to_folder`` scores new samples against a saved model.json and writes
 samples.csv. Every problem with the input raises InputError before anything
@@ -26,6 +27,7 @@ from analysis.intake import read_table
 from analysis.modelfile import model_fingerprint, read_model_file, save_model
 from analysis.pca import PCAModel
 from analysis.rank import RankResult, choose_components
+from analysis.robust import RobustPCAModel
 from webapp.services.exports import write_atomic, write_csv
 
 SUMMARY_FILE, SCORES_FILE, LOADINGS_FILE, SAMPLES_FILE, MODEL_FILE = (
@@ -37,6 +39,8 @@ SUMMARY_FILE, SCORES_FILE, LOADINGS_FILE, SAMPLES_FILE, MODEL_FILE = (
 )
 SAMPLE_COLUMN = "sample"
 STATISTIC_COLUMNS = ("t2", "spe", "t2_exceeds", "spe_exceeds")
+ROBUST_COLUMNS = ("score_distance", "orthogonal_distance", "region")
+METHODS = ("classical", "robust")
 MAX_LISTED = 10
 
 
@@ -86,18 +90,26 @@ def fit_table(
     variables=None,
     drop_constant=False,
     random_state=0,
-) -> tuple[PCAModel, dict, RankResult | None]:
+    method="classical",
+) -> tuple[PCAModel | RobustPCAModel, dict, RankResult | None]:
     """Fit a PCA model to ``table`` (analysis.table.Table) with the given settings.
 
     ``components`` is a whole number or ``"auto"`` (the recommendation of
     ``analysis.rank.choose_components`` on the training samples, seeded by
     ``random_state``). ``exclude`` names samples left out of the fit;
-    ``variables`` selects variables (default: all). Returns the fitted model,
-    a JSON-safe summary (without fingerprint or file details) and the rank
-    table when ``components="auto"`` (else None).
+    ``variables`` selects variables (default: all). ``method`` is
+    ``"classical"`` (PCAModel) or ``"robust"`` (ROBPCA, ``RobustPCAModel`` with
+    the paper's settings: h = 0.75 n, stage-3 screening at 97.5 %; its
+    cut-offs are reported at ``confidence``); with ``"auto"`` a robust fit takes
+    the number of components the (classical) component-choice table recommends,
+    and samples with a missing value are left out of it (with a warning).
+    Returns the fitted model, a JSON-safe summary (without fingerprint or file
+    details) and the rank table when ``components="auto"`` (else None).
     """
     chosen = parse_components(components)
     confidence = check_confidence(confidence)
+    if method not in METHODS:
+        raise InputError(f"method must be one of {', '.join(METHODS)}, got {method!r}")
     if variables is not None:
         table = table.select_variables(variables)
     log10 = [log10] if isinstance(log10, str) else [str(v) for v in log10]
@@ -117,16 +129,37 @@ def fit_table(
             training.data, scaling=scaling, log10=log10, random_state=random_state, drop_constant=drop_constant
         )
         chosen = rank.recommended
-    model = PCAModel(
-        n_components=chosen, scaling=scaling, log10=log10, confidence=confidence, drop_constant=drop_constant
-    ).fit(training.data)
-    return model, _summary(model, excluded, components, rank), rank
+    if method == "robust":
+        incomplete = [str(sid) for sid in training.data.index[training.data.isna().any(axis=1).to_numpy()]]
+        if incomplete:  # ROBPCA has no rule for missing values: those samples are left out and not scored
+            training = training.without_samples(incomplete)
+            if training.n_samples < 3:
+                raise InputError(f"robust PCA needs complete samples; only {training.n_samples} have no missing value")
+        model = RobustPCAModel(
+            n_components=chosen, scaling=scaling, log10=log10, drop_constant=drop_constant, random_state=random_state
+        ).fit(training.data)
+        if incomplete:
+            model.warnings_.append(
+                f"{len(incomplete)} sample(s) with missing values were left out of the robust fit and are not "
+                f"scored (ROBPCA needs complete samples): {_listed(incomplete)}"
+            )
+        if rank is not None:
+            model.warnings_.append(
+                f"{chosen} component(s): the number the component-choice table recommends (a classical analysis)"
+            )
+    else:
+        model = PCAModel(
+            n_components=chosen, scaling=scaling, log10=log10, confidence=confidence, drop_constant=drop_constant
+        ).fit(training.data)
+    return model, _summary(model, excluded, components, rank, confidence), rank
 
 
-def _summary(model: PCAModel, excluded: list[str], requested, rank: RankResult | None) -> dict:
-    t2_limit = _limit_or_none(model.t2_limit)
-    spe_limit = _limit_or_none(model.spe_limit)
+def _summary(model, excluded: list[str], requested, rank: RankResult | None, confidence: float) -> dict:
+    robust = isinstance(model, RobustPCAModel)
+    t2_limit = _limit_or_none(lambda: model.t2_limit(confidence))
+    spe_limit = _limit_or_none(lambda: model.spe_limit(confidence))
     summary = {
+        "method": "robust" if robust else "classical",
         "n_samples": int(model.n_samples_),
         "n_variables": len(model.variable_names_),
         "n_components": int(model.n_components_),
@@ -139,11 +172,11 @@ def _summary(model: PCAModel, excluded: list[str], requested, rank: RankResult |
         "cumulative": _floats(model.cumulative_explained_),
         "eigenvalues": _floats(model.eigenvalues_),
         "total_variance": _finite(model.total_variance_),
-        "confidence": float(model.confidence),
+        "confidence": float(confidence),
         "t2_limit": t2_limit,
-        "t2_limit_new": _limit_or_none(lambda: model.t2_limit(new=True)),
+        "t2_limit_new": _limit_or_none(lambda: model.t2_limit(confidence, new=True)),
         "spe_limit": spe_limit,
-        "spe_limit_method": "jackson-mudholkar",
+        "spe_limit_method": "wilson-hilferty (squared OD cut-off)" if robust else "jackson-mudholkar",
         "n_t2_exceeds": int(np.sum(model.t2_ > t2_limit)) if t2_limit is not None else None,
         "n_spe_exceeds": int(np.sum(model.spe_ > spe_limit)) if spe_limit is not None else None,
         "excluded": excluded,
@@ -153,6 +186,9 @@ def _summary(model: PCAModel, excluded: list[str], requested, rank: RankResult |
         "analysis_version": analysis.__version__,
         "fingerprint": None,
     }
+    if robust:
+        # t2 / spe of a robust fit are SD^2 / OD^2, their limits the squared cut-offs.
+        summary["robust"] = model.fit_summary(confidence)
     if rank is not None:
         summary["recommended_components"] = int(rank.recommended)
         summary["component_rule"] = rank.rule
@@ -213,7 +249,7 @@ def _component_names(k: int) -> list[str]:
 
 def _samples_frame(ids, metadata: pd.DataFrame, blocks: list[pd.DataFrame]) -> pd.DataFrame:
     """sample, metadata columns, then the given blocks; a metadata name that clashes is suffixed."""
-    taken = {SAMPLE_COLUMN, *STATISTIC_COLUMNS, *(c for block in blocks for c in block.columns)}
+    taken = {SAMPLE_COLUMN, *STATISTIC_COLUMNS, *ROBUST_COLUMNS, *(c for block in blocks for c in block.columns)}
     meta = metadata.reset_index(drop=True)
     meta.columns = [f"{c} (metadata)" if c in taken else c for c in meta.columns]
     parts = [pd.DataFrame({SAMPLE_COLUMN: list(ids)}), meta] + [b.reset_index(drop=True) for b in blocks]
@@ -252,13 +288,18 @@ def fit_to_folder(
     below_limit="half",
     bad_cells="error",
     drop_constant=False,
+    method="classical",
 ) -> dict:
     """Fit a model to a CSV/TSV/XLSX file and write the result files into folder ``out``.
 
     Writes summary.json, scores.csv (sample, PC1..PCk), loadings.csv
     (variable, PC1..PCk), samples.csv (sample, metadata columns, t2, spe,
     t2_exceeds, spe_exceeds against the training-sample limits) and
-    model.json. Returns the summary. Nothing is written when the input is bad.
+    model.json. With ``method="robust"`` (ROBPCA) summary.json records the
+    method, h and the cut-offs under ``robust``, samples.csv adds
+    score_distance, orthogonal_distance and region (t2 and spe are their
+    squares), and no model.json is written (``apply`` scores against classical
+    models only). Returns the summary. Nothing is written when the input is bad.
     """
     folder = _output_folder(out)
     group_columns = [str(c) for c in group_columns or ()]
@@ -268,11 +309,13 @@ def fit_to_folder(
     )
     model, summary, rank = fit_table(
         table, scaling=scaling, log10=log10, components=components, exclude=exclude, confidence=confidence,
-        drop_constant=drop_constant,
+        drop_constant=drop_constant, method=method,
     )
+    robust = method == "robust"
     intake = _intake_options(id_column, sheet, group_columns, below_limit, bad_cells)
     fingerprint = model_fingerprint(
-        sha256, scaling, summary["log10"], table.variables, model.n_components_, summary["excluded"], intake=intake
+        sha256, scaling, summary["log10"], table.variables, model.n_components_, summary["excluded"], intake=intake,
+        method=method,
     )
     summary["fingerprint"] = fingerprint
     summary["dataset"] = {
@@ -293,11 +336,12 @@ def fit_to_folder(
     scores.insert(0, SAMPLE_COLUMN, ids)
     loadings = pd.DataFrame(model.loadings_, columns=names)
     loadings.insert(0, "variable", list(model.variable_names_))
-    samples = _samples_frame(
-        ids,
-        table.metadata.loc[ids],
-        [_statistics(model.t2_, model.spe_, summary["t2_limit"], summary["spe_limit"])],
-    )
+    blocks = [_statistics(model.t2_, model.spe_, summary["t2_limit"], summary["spe_limit"])]
+    if robust:
+        blocks.append(pd.DataFrame({"score_distance": model.score_distance_,
+                                    "orthogonal_distance": model.orthogonal_distance_,
+                                    "region": model.regions_at(summary["confidence"])}))
+    samples = _samples_frame(ids, table.metadata.loc[ids], blocks)
     extra = {
         "dataset_sha256": sha256,
         "file": Path(file).name,
@@ -313,7 +357,8 @@ def fit_to_folder(
         write_csv(scores, folder / SCORES_FILE)
         write_csv(loadings, folder / LOADINGS_FILE)
         write_csv(samples, folder / SAMPLES_FILE)
-        save_model(model, folder / MODEL_FILE, fingerprint=fingerprint, extra=extra)
+        if not robust:
+            save_model(model, folder / MODEL_FILE, fingerprint=fingerprint, extra=extra)
         _write_json(summary, folder / SUMMARY_FILE)
     except OSError as exc:
         raise InputError(f"cannot write to output folder {folder}: {exc.strerror or exc}") from None

@@ -2,14 +2,18 @@
 
 A model is known by its fingerprint (docs/design.md section 3): SHA-256 of canonical JSON
 of the dataset, the preprocessing settings, the variables, the number of
-components, the excluded samples and the analysis version
-(``analysis.modelfile.model_fingerprint``). The fitted ``PCAModel`` is kept in
-a diskcache under that fingerprint in ``HOME/cache/models``, shared by every
-worker on the host; a cache hit never refits. Each distinct fit is recorded in
-the ``models`` table so the API can refer to it by id.
+components, the excluded samples, the method (robust fits only) and the
+analysis version (``analysis.modelfile.model_fingerprint``). The fitted
+``PCAModel`` (or ROBPCA ``RobustPCAModel``) is kept in a diskcache under that
+fingerprint in ``HOME/cache/models``, shared by every worker on the host; a
+cache hit never refits. Each distinct fit is recorded in the ``models`` table
+so the API can refer to it by id.
 
-The confidence level is not part of the fingerprint: limits are computed from
-the fitted model at whatever level is asked for.
+The confidence level is not part of the fingerprint: limits (for a robust fit,
+the score- and orthogonal-distance cut-offs) are computed from the fitted model
+at whatever level is asked for. A robust fit answers the classical model's
+questions with SD^2 for T2 and OD^2 for SPE (``analysis.robust``), so the
+tables and contributions below serve both methods.
 """
 
 from __future__ import annotations
@@ -25,11 +29,12 @@ from analysis.diagnostics import explain_sample
 from analysis.errors import InputError
 from analysis.modelfile import model_fingerprint
 from analysis.pca import PCAModel
+from analysis.robust import REGIONS, RobustPCAModel
 from analysis.table import Table
 from webapp.services import ingest
 from webapp.services.context import cache_folder, session_scope
 from webapp.services.exclusions import exclusion_settings
-from webapp.services.fit_settings import FitSettings
+from webapp.services.fit_settings import AUTO, CLASSICAL, ROBUST, FitSettings
 from webapp.store import datasets as store
 
 MODEL_CACHE_FOLDER = "models"
@@ -62,6 +67,7 @@ def fingerprint_for(dataset: Mapping[str, Any], settings: FitSettings, n_compone
         n_components,
         list(settings.exclude),
         intake=_intake(dataset),
+        method=settings.method,
     )
 
 
@@ -79,16 +85,24 @@ def _cached(cache: diskcache.Cache, fingerprint: str) -> dict[str, Any] | None:
         entry = cache.get(fingerprint)
     except Exception:  # noqa: BLE001 - an entry from older code that no longer unpickles: refit
         return None
-    if isinstance(entry, dict) and isinstance(entry.get("model"), PCAModel):
+    if isinstance(entry, dict) and isinstance(entry.get("model"), (PCAModel, RobustPCAModel)):
         return entry
     return None
 
 
-def _fit(dataset_id: int, settings: FitSettings) -> dict[str, Any]:
+def _fit(cache: diskcache.Cache, dataset: Mapping[str, Any], settings: FitSettings) -> dict[str, Any]:
+    """Fit once. A robust fit with "auto" components takes the number (and the
+    component-choice table) of the classical "auto" fit with the same settings,
+    from the cache when it is there."""
     from webapp.services.headless import fit_table
 
-    table = ingest.load_table(dataset_id)
-    model, summary, rank = fit_table(
+    rank = None
+    if settings.method == ROBUST and settings.components == AUTO:
+        classical, _, _ = _cached_or_fitted(cache, dataset, settings.replace(method=CLASSICAL))
+        rank = classical["rank"]
+        settings = settings.replace(components=int(classical["model"].n_components_))
+    table = ingest.load_table(dataset["id"])
+    model, _, table_rank = fit_table(
         table,
         scaling=settings.scaling,
         log10=list(settings.log10),
@@ -96,8 +110,14 @@ def _fit(dataset_id: int, settings: FitSettings) -> dict[str, Any]:
         exclude=list(settings.exclude),
         confidence=settings.confidence,
         variables=list(settings.variables),
+        method=settings.method,
     )
-    return {"model": model, "rank": rank.to_dict() if rank is not None else None}
+    if rank is not None:
+        model.warnings_.append(f"{model.n_components_} component(s): the number the component-choice table "
+                               "recommends (a classical analysis of the same samples)")
+    elif table_rank is not None:
+        rank = table_rank.to_dict()
+    return {"model": model, "rank": rank}
 
 
 def _finite(value: float) -> float | None:
@@ -105,9 +125,17 @@ def _finite(value: float) -> float | None:
     return value if math.isfinite(value) else None
 
 
-def describe(model: PCAModel, confidence: float) -> dict[str, Any]:
-    """The JSON-safe summary of a fitted model at a confidence level."""
-    return {
+def describe(model: PCAModel | RobustPCAModel, confidence: float) -> dict[str, Any]:
+    """The JSON-safe summary of a fitted model at a confidence level.
+
+    ``method`` is "classical" or "robust"; a robust fit adds ``robust``
+    (``RobustPCAModel.fit_summary``: h, alpha, the SD and OD cut-offs at
+    ``confidence`` and their rules, region counts, how stage 1 reduced the
+    dimension); its ``t2_limit`` / ``spe_limit`` are the squared cut-offs.
+    """
+    robust = isinstance(model, RobustPCAModel)
+    summary = {
+        "method": ROBUST if robust else CLASSICAL,
         "n_components": int(model.scores_.shape[1]),
         "n_samples": int(model.n_samples_),
         "n_variables": len(model.variable_names_),
@@ -123,6 +151,9 @@ def describe(model: PCAModel, confidence: float) -> dict[str, Any]:
         "n_missing": int(model.n_missing_),
         "warnings": list(model.warnings_),
     }
+    if robust:
+        summary["robust"] = {k: v for k, v in model.fit_summary(confidence).items() if k != "eigenvalues"}
+    return summary
 
 
 def _record(dataset: Mapping[str, Any], fingerprint: str, settings: FitSettings, summary: dict, user_id) -> int:
@@ -162,7 +193,7 @@ def _cached_or_fitted(cache: diskcache.Cache, dataset: Mapping[str, Any], settin
         entry = _cached(cache, fingerprint) if fingerprint else None
         if entry is not None:
             return entry, fingerprint, True
-        entry = _fit(dataset["id"], settings)
+        entry = _fit(cache, dataset, settings)
         n_components = int(entry["model"].scores_.shape[1])
         fingerprint = fingerprint_for(dataset, settings, n_components)
         cache.set(fingerprint, entry)
@@ -183,7 +214,8 @@ def get_model(
         Checked by :meth:`FitSettings.parse`: ``scaling`` (none|center|autoscale|pareto, default autoscale),
         ``components`` (int or "auto", default "auto"), ``variables`` (list, default
         all), ``log10`` (list), ``exclude`` (sample ids; absent means the dataset's
-        approved exclusions), ``confidence`` (default 0.95).
+        approved exclusions), ``confidence`` (default 0.95), ``method`` (classical|robust,
+        default classical).
     user_id : int, optional
         Recorded as the model's creator when the fit is new.
 
@@ -291,7 +323,9 @@ def samples_table(model_id: int, *, confidence: float | None = None) -> pd.DataF
     Columns: ``sample_id``, the metadata columns, ``excluded`` (bool),
     ``PC1``..``PCk``, ``T2``, ``T2_limit``, ``SPE``, ``SPE_limit``,
     ``T2_flag``, ``SPE_flag`` (bool: above the limit) and ``flags`` (text,
-    e.g. "T2;SPE").
+    e.g. "T2;SPE"). A robust fit (T2 = SD^2, SPE = OD^2, limits the squared
+    cut-offs) adds ``SD``, ``SD_cutoff``, ``OD``, ``OD_cutoff`` and ``region``
+    (``analysis.robust.REGIONS``).
     """
     model, info = model_by_id(model_id, confidence=confidence)
     table = ingest.load_table(info["dataset_id"])
@@ -312,6 +346,11 @@ def samples_table(model_id: int, *, confidence: float | None = None) -> pd.DataF
         ";".join(name for name, hit in (("T2", a), ("SPE", b)) if hit)
         for a, b in zip(frame["T2_flag"], frame["SPE_flag"])
     ]
+    if isinstance(model, RobustPCAModel):
+        frame["SD"], frame["SD_cutoff"] = np.sqrt(t2), np.sqrt(t2_limit)
+        frame["OD"], frame["OD_cutoff"] = np.sqrt(spe), np.sqrt(spe_limit)
+        region = frame["T2_flag"].to_numpy(dtype=int) + 2 * frame["SPE_flag"].to_numpy(dtype=int)
+        frame["region"] = np.asarray(REGIONS, dtype=object)[region]
     frame.attrs["model"] = info
     return frame
 
@@ -332,12 +371,32 @@ def variables_table(model_id: int) -> pd.DataFrame:
     return frame
 
 
+def sample_flags(model, info: Mapping[str, Any], table: Table) -> tuple[list[str], np.ndarray, np.ndarray]:
+    """(every dataset sample id in file order, True where beyond a limit at the info's
+    confidence, severity max(T2 / limit, SPE / limit)): training samples with their fit
+    values, the others projected."""
+    ids, _, _, t2, spe, t2_limit, spe_limit = _sample_results(model, table, info)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        severity = np.fmax(t2 / t2_limit, np.where(spe_limit > 0, spe / spe_limit, np.where(spe > 0, np.inf, 0.0)))
+    return list(ids), (t2 > t2_limit) | (spe > spe_limit), severity
+
+
+def explain(model, x: np.ndarray, sample_id: str, confidence: float, top: int = 3) -> dict[str, Any]:
+    """The plain-language explanation of one raw row: ``analysis.diagnostics.explain_sample``
+    for a classical fit, ``RobustPCAModel.explain`` (score and orthogonal distances) for a robust one."""
+    if isinstance(model, RobustPCAModel):
+        return model.explain(x, sample_id=sample_id, top=top, confidence=confidence)
+    return explain_sample(model, x, sample_id=sample_id, top=top)
+
+
 def contributions(model_id: int, sample_id: str, *, confidence: float | None = None) -> dict[str, Any]:
     """Why one sample sits where it does: SPE and T2 contributions per variable.
 
     Uses ``PCAModel.contributions`` (SPE: squared residuals; T2: Westerhuis,
-    Gurden & Smilde 2000, summing to T2) and ``analysis.diagnostics.explain_sample``
-    for the plain-language sentence. Raises SampleNotFound for an unknown id.
+    Gurden & Smilde 2000, summing to T2) and ``explain`` for the
+    plain-language sentence; a robust fit gives the same formulas on the robust
+    centre and loadings (OD^2 and SD^2) and adds ``score_distance``,
+    ``orthogonal_distance`` and both cut-offs. Raises SampleNotFound for an unknown id.
     """
     model, info = model_by_id(model_id, confidence=confidence)
     table = ingest.load_table(info["dataset_id"])
@@ -346,11 +405,17 @@ def contributions(model_id: int, sample_id: str, *, confidence: float | None = N
         raise SampleNotFound(sample_id)
     x = _rows_of(table, model).loc[sample_id].to_numpy(dtype=np.float64)
     excluded = sample_id not in set(model.sample_ids_)
-    explained = explain_sample(model, x, sample_id=sample_id)
+    confidence = info["confidence"]
+    explained = explain(model, x, sample_id, confidence)
     spe_parts = model.contributions(x, kind="spe")
     t2_parts = model.contributions(x, kind="t2")
-    confidence = info["confidence"]
+    distances = {}
+    if isinstance(model, RobustPCAModel):
+        distances = {key: _finite(explained[key])
+                     for key in ("score_distance", "orthogonal_distance", "sd_cutoff", "od_cutoff")}
     return {
+        "method": info["method"],
+        **distances,
         "sample_id": sample_id,
         "excluded": excluded,
         "sentence": explained["sentence"],

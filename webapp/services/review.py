@@ -161,10 +161,12 @@ def preview(
     proposal with the same settings and number of components, and compares
     them with ``analysis.compare.compare_fits``: explained variance per
     component before/after, principal angles between the loading subspaces
-    (Björck & Golub 1973), samples crossing a T2 or SPE limit.
+    (Björck & Golub 1973), samples crossing a T2 or SPE limit; ``methods``
+    says for each proposed sample whether the classical and the robust fit of
+    the current model flag it (``method_comparison.proposal_support``).
     """
     from analysis.compare import compare_fits
-    from webapp.services import ingest, modelling
+    from webapp.services import ingest, method_comparison, modelling
 
     table = ingest.load_table(dataset_id)
     excluded_now = approved_exclusions(dataset_id)
@@ -183,6 +185,7 @@ def preview(
     after_model, after = modelling.get_model(dataset_id, after_settings, user_id=user_id)
     data = table.data[list(before_model.variable_names_)]
     compared = compare_fits(before_model, after_model, X=data, sample_ids=list(table.sample_ids))
+    support = method_comparison.proposal_support(dataset_id, ids, {**base, "exclude": excluded_now}, user_id=user_id)
     dataset = ingest.dataset_info(dataset_id)
 
     def side(info, excluded):
@@ -207,6 +210,7 @@ def preview(
             "before": side(before, excluded_now),
             "after": side(after, excluded_after),
             "compare": compared,
+            "methods": support,
         }
     )
 

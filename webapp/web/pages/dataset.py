@@ -42,11 +42,16 @@ SCALING_LABELS = {
     "none": "None",
 }
 CONFIDENCE_LABELS = {0.9: "90%", 0.95: "95%", 0.99: "99%"}
+METHOD_LABELS = {
+    "classical": "Classical PCA",
+    "robust": "Robust PCA (ROBPCA)",
+}
 TAB_LABELS = {
     "variance": "Variance",
     "scores": "Scores",
     "loadings": "Loadings",
     "diagnostics": "Diagnostics",
+    "screening": "Respondent screening",
     "outliers": "Outliers",
 }
 MAX_COMPONENT_CHOICES = 20
@@ -77,6 +82,7 @@ def applied_settings(state: ViewState) -> dict[str, Any]:
         "exclude": list(state.exclude),
         "include_all": state.include_all,
         "confidence": state.confidence,
+        "method": state.method,
     }
 
 
@@ -92,6 +98,7 @@ def state_with_applied(state: ViewState, applied: dict | None) -> ViewState:
         exclude=applied.get("exclude") or (),
         include_all=bool(applied.get("include_all")),
         confidence=float(applied.get("confidence", state.confidence)),
+        method=applied.get("method") or state.method,
     )
 
 
@@ -107,6 +114,7 @@ def form_values(state: ViewState) -> dict[str, Any]:
         "scaling": state.scaling,
         "components": _components_value(state),
         "confidence": state.confidence,
+        "method": state.method,
     }
 
 
@@ -156,6 +164,7 @@ def settings_from_form(form: dict[str, Any], current: dict | None) -> dict[str, 
         "exclude": list((current or {}).get("exclude") or []),
         "include_all": bool((current or {}).get("include_all")),
         "confidence": float(form.get("confidence") or 0.95),
+        "method": form.get("method") or "classical",
     }
 
 
@@ -232,7 +241,7 @@ def fit_summary(dataset_id: int, applied: dict | None, user_id: int | None = Non
     keep = ("id", "fingerprint", "cache_hit", "settings", "excluded", "n_components", "n_samples",
             "n_variables", "variables", "dropped_variables", "explained_variance_ratio", "cumulative",
             "eigenvalues", "confidence", "t2_limit", "spe_limit", "solver", "n_missing", "warnings",
-            "what_if", "approved_exclusions")
+            "what_if", "approved_exclusions", "method", "robust")
     result = {key: info.get(key) for key in keep}
     result.update(ok=True, rank=rank, dataset_id=int(dataset_id), seconds=round(time.perf_counter() - started, 3))
     return result
@@ -271,6 +280,10 @@ def _settings_form(dataset: dict, state: ViewState, can_fit: bool) -> html.Secti
                         options=[{"label": label, "value": level} for level, label in CONFIDENCE_LABELS.items()],
                         disabled=not can_fit),
                         class_name="ld-field-narrow"),
+                    _field("Method", dcc.Dropdown(
+                        id=ids.SETTINGS_METHOD, value=form["method"], clearable=False, searchable=False,
+                        options=[{"label": label, "value": key} for key, label in METHOD_LABELS.items()],
+                        disabled=not can_fit), class_name="ld-field-method"),
                     _field("Leave out variables", dcc.Dropdown(
                         id=ids.SETTINGS_DROP, value=form["drop"], options=options, multi=True,
                         placeholder="all variables in", disabled=not can_fit), class_name="ld-field-wide"),
@@ -425,6 +438,7 @@ _FORM_FIELDS = [
     (ids.SETTINGS_SCALING, "scaling"),
     (ids.SETTINGS_COMPONENTS, "components"),
     (ids.SETTINGS_CONFIDENCE, "confidence"),
+    (ids.SETTINGS_METHOD, "method"),
 ]
 
 
@@ -520,8 +534,10 @@ def fit_line(result: dict | None):
         if rec else "Recommendation: see Variance"
     )
     used = result["n_components"]
+    robust = result.get("robust")
+    how = f" of a robust fit (ROBPCA, h = {robust['h']})" if robust else ""
     source = (
-        f"Showing {used} component{'s' if used != 1 else ''}, model {result['fingerprint'][:10]}, "
+        f"Showing {used} component{'s' if used != 1 else ''}{how}, model {result['fingerprint'][:10]}, "
         f"{'from the cache' if result['cache_hit'] else 'fitted'} in {result['seconds']:.2f} s"
     )
     excluded = result.get("excluded") or []

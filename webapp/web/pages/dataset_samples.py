@@ -1,4 +1,5 @@
-"""The dataset page's side panels: one sample's explanation, the selection, downloads.
+"""The dataset page's side panels: one sample's explanation, the selection, downloads;
+and on the outliers tab the outlier map with the classical and robust fits side by side.
 
 Not a page of its own (no page is registered here). Dash's page loader runs
 every module in pages/ whose text mentions register_page, once per app, which
@@ -11,14 +12,22 @@ children of html components (shown as text), never HTML or markdown.
 
 from __future__ import annotations
 
+import html as html_text
+
 import numpy as np
 from dash import Input, Output, State, callback, dcc, html, no_update
 
 from webapp.web.ui import fields, figures, ids, plot_table
-from webapp.web.ui.graph_config import SMALL_GRAPH_CONFIG
+from webapp.web.ui.graph_config import GRAPH_CONFIG, SMALL_GRAPH_CONFIG
 
 TOP_VARIABLES = 8
 SELECTION_SHOWN = 40
+LISTED_SHOWN = 60  # sample ids written out per side-by-side list
+METHOD_CAUTION = (
+    "A sample flagged by one fit and not the other is a reason to look at its record, not a verdict. "
+    "Statistics support, and never replace, QA judgement and local procedures; regulated use needs the "
+    "site's own validation."
+)
 DOWNLOAD_CHOICES = {"scores": "Scores", "loadings": "Loadings", "samples": "Samples: T², SPE, flags"}
 
 
@@ -58,6 +67,25 @@ def side_panels() -> list:
     ]
 
 
+def method_panels() -> list:
+    """The outliers tab's outlier map and the lists of samples only one method flags."""
+    return [
+        html.Section(
+            [html.H2("Outlier map"),
+             plot_table.plot_figure(dcc.Graph(id=ids.GRAPH_OUTLIER_MAP, config=GRAPH_CONFIG,
+                                              figure=figures.empty_figure("Fitting…"))),
+             html.Ul([html.Li(text) for text in figures.MAP_REGION_TEXT.values()], className="ld-regions")],
+            className="ld-panel ld-outlier-map",
+        ),
+        html.Section(
+            [html.H2("Classical and robust fits side by side"),
+             html.Div(html.P("Comparing the two fits…", className="ld-muted"), id=ids.METHOD_SIDE_BY_SIDE,
+                      **{"aria-live": "polite"})],
+            className="ld-panel ld-side-by-side",
+        ),
+    ]
+
+
 # ------------------------------------------------------------ plain parts
 def _fmt(value) -> str:
     return "–" if value is None else f"{value:.3g}"
@@ -80,6 +108,18 @@ def explain_view(result: dict | None, sample: str | None):
     spe_out = info["spe"] is not None and info["spe_limit"] is not None and info["spe"] > info["spe_limit"]
     region = {(False, False): "inside", (True, False): "t2", (False, True): "spe", (True, True): "both"}[
         (t2_out, spe_out)]
+    robust = info.get("method") == "robust"
+    if robust:
+        map_region = list(figures.MAP_REGION_TEXT)[int(t2_out) + 2 * int(spe_out)]
+        stats_line = (f"Score distance {_fmt(info['score_distance'])} (cut-off {_fmt(info['sd_cutoff'])}) · "
+                      f"orthogonal distance {_fmt(info['orthogonal_distance'])} (cut-off {_fmt(info['od_cutoff'])}) "
+                      f"at {level}: {_lower_first(figures.MAP_REGION_TEXT[map_region])}.")
+        titles = ("OD² contributions", "squared residual to the robust plane × its sign",
+                  "SD² contributions", "contribution to SD²")
+    else:
+        stats_line = (f"T² {_fmt(info['t2'])} (limit {_fmt(info['t2_limit'])}) · SPE {_fmt(info['spe'])} "
+                      f"(limit {_fmt(info['spe_limit'])}) at {level}: {_lower_first(figures.REGION_TEXT[region])}.")
+        titles = ("SPE contributions", "squared residual × its sign", "T² contributions", "contribution to T²")
     ranked = info["ranked"]
     names = [r["variable"] for r in ranked]
     signed_spe = [np.sign(r["residual"] or 0.0) * r["spe_contribution"] for r in ranked]
@@ -98,25 +138,25 @@ def explain_view(result: dict | None, sample: str | None):
             html.P("Left out of this fit; compared with the new-sample limit." if info["excluded"] else None,
                    className="ld-muted"),
             html.P(info["sentence"], className="ld-sentence"),
-            html.P(
-                f"T² {_fmt(info['t2'])} (limit {_fmt(info['t2_limit'])}) · SPE {_fmt(info['spe'])} "
-                f"(limit {_fmt(info['spe_limit'])}) at {level}: {_lower_first(figures.REGION_TEXT[region])}.",
-                className="ld-stats"),
+            html.P(stats_line, className="ld-stats"),
             plot_table.plot_figure(dcc.Graph(
                 id=ids.GRAPH_SPE_CONTRIB, config=SMALL_GRAPH_CONFIG,
                 figure=_small(figures.contribution_figure(
-                    names, signed_spe, title="SPE contributions", top=TOP_VARIABLES,
-                    value_title="squared residual × its sign"))), class_name="ld-graph-small"),
+                    names, signed_spe, title=titles[0], top=TOP_VARIABLES,
+                    value_title=titles[1]))), class_name="ld-graph-small"),
             plot_table.plot_figure(dcc.Graph(
                 id=ids.GRAPH_T2_CONTRIB, config=SMALL_GRAPH_CONFIG,
                 figure=_small(figures.contribution_figure(
-                    names, t2_parts, title="T² contributions", top=TOP_VARIABLES,
-                    value_title="contribution to T²"))), class_name="ld-graph-small"),
+                    names, t2_parts, title=titles[2], top=TOP_VARIABLES,
+                    value_title=titles[3]))), class_name="ld-graph-small"),
             html.Div(html.Table(
-                [html.Thead(html.Tr([html.Th("Variable"), html.Th("Value"), html.Th("SD from mean"),
+                [html.Thead(html.Tr([html.Th("Variable"), html.Th("Value"),
+                                     html.Th("SD from the robust centre" if robust else "SD from mean"),
                                      html.Th("Residual")])),
                  html.Tbody(rows)], className="ld-table ld-table-compact"), className="ld-scroll"),
-            html.P("SD from mean: standardised value (after log10 where chosen). Residual: what the model "
+            html.P("SD from the robust centre: in robust SDs (MAD-based), after log10 where chosen. Residual: "
+                   "what the robust model cannot reproduce, in scaled units." if robust else
+                   "SD from mean: standardised value (after log10 where chosen). Residual: what the model "
                    "cannot reproduce, in scaled units.", className="ld-muted ld-small"),
         ]
     )
@@ -210,6 +250,94 @@ def download_payload(result: dict | None, which: str, fmt: str) -> tuple[bytes, 
     return exports.to_csv_bytes(frame), f"{stem}.csv"
 
 
+def outlier_map_view(result: dict | None, sample: str | None = None, selected: list[str] | None = None):
+    """The outlier map (``figures.outlier_map_figure``) of the fit on screen, either method."""
+    if not result or not result.get("ok"):
+        return figures.empty_figure("No model yet.")
+    from webapp.services import modelling
+
+    model, info = modelling.get_model(int(result["dataset_id"]), result["settings"])
+    confidence = float(info["confidence"])
+    picked = [list(model.sample_ids_).index(sample)] if sample in set(model.sample_ids_) else []
+    fig = figures.outlier_map_figure(
+        np.sqrt(model.t2_), np.sqrt(model.spe_), float(np.sqrt(model.t2_limit(confidence))),
+        float(np.sqrt(model.spe_limit(confidence))), sample_ids=model.sample_ids_, confidence=confidence,
+        method=info["method"], highlight=picked, selected=selected)
+    fig.update_layout(meta={"model": info["fingerprint"]})
+    return fig
+
+
+def _listed(title: str, samples: list[str], button_id: str) -> html.Div:
+    shown = ", ".join(samples[:LISTED_SHOWN])
+    more = f" and {len(samples) - LISTED_SHOWN} more" if len(samples) > LISTED_SHOWN else ""
+    return html.Div(
+        [html.H3(f"{title} ({len(samples)})", className="ld-subhead"),
+         html.P(shown + more if samples else "None.", className="ld-selection-ids"),
+         html.Button("Select them", id=button_id, n_clicks=0, className="ld-button ld-button-quiet ld-button-small",
+                     disabled=not samples,
+                     title="Put these samples in the selection, to propose an exclusion citing both fits")],
+        className="ld-method-list",
+    )
+
+
+def side_by_side_view(compared: dict) -> html.Div:
+    """Children of the side-by-side panel for ``method_comparison.side_by_side``'s answer."""
+    level = f"{100 * float(compared['confidence']):g}%"
+    classical, robust = compared["classical"], compared["robust"]
+    if robust is None:
+        return html.Div([
+            html.P(f"The robust fit is not possible here: {compared['robust_error']}", className="ld-alert"),
+            html.P(f"The classical fit flags {classical['n_flagged']} samples at {level}."),
+        ])
+    counts = compared["counts"]
+    return html.Div(
+        [
+            html.P(f"With {compared['n_components']} component(s), limits at {level}: the classical fit (T², SPE) "
+                   f"flags {classical['n_flagged']} samples; the robust fit (ROBPCA, h = {robust['h']}, score "
+                   f"distance cut-off {robust['sd_cutoff']:.3g}, orthogonal distance cut-off "
+                   f"{robust['od_cutoff']:.3g}) flags {robust['n_flagged']}."),
+            _listed("Flagged by the robust fit only", compared["robust_only"], ids.METHOD_SELECT_ROBUST_ONLY),
+            _listed("Flagged by the classical fit only", compared["classical_only"], ids.METHOD_SELECT_CLASSICAL_ONLY),
+            html.P(f"Flagged by both: {counts['both']}; by neither: {counts['neither']}. A group the robust fit "
+                   "flags alone may have pulled the classical fit towards itself (masking; Hubert, Rousseeuw "
+                   "& Vanden Branden 2005).", className="ld-muted"),
+            html.P(f"Not scored by the robust fit (a missing value; ROBPCA needs complete samples): "
+                   f"{len(compared['robust_unscored'])}: {', '.join(compared['robust_unscored'][:LISTED_SHOWN])}"
+                   f"{' …' if len(compared['robust_unscored']) > LISTED_SHOWN else ''}.",
+                   className="ld-muted") if compared["robust_unscored"] else None,
+            html.P(METHOD_CAUTION, className="ld-caution"),
+        ]
+    )
+
+
+def side_by_side_panel(result: dict | None) -> html.Div | html.P:
+    """The side-by-side panel for the fit on screen (both methods fitted, or read from the cache)."""
+    if not result or not result.get("ok"):
+        return html.P("No model yet.", className="ld-muted")
+    from analysis.errors import InputError
+    from webapp.services import method_comparison
+
+    try:
+        compared = method_comparison.side_by_side(int(result["dataset_id"]), result["settings"])
+    except InputError as exc:
+        return html.P(str(exc), className="ld-alert")
+    return side_by_side_view(compared)
+
+
+def select_listed(result: dict | None, selection: dict | None, which: str) -> dict | None:
+    """The selection store holding the samples only one method flags (``which``:
+    "robust_only" or "classical_only"); None when there are none."""
+    if not result or not result.get("ok"):
+        return None
+    from webapp.services import method_comparison
+
+    listed = method_comparison.side_by_side(int(result["dataset_id"]), result["settings"]).get(which) or []
+    if not listed:
+        return None
+    return {**(selection or {}), "dataset_id": int(result["dataset_id"]), "fingerprint": result.get("fingerprint"),
+            "sample_ids": list(listed), "drawn_on": None}
+
+
 # --------------------------------------------------------------- callbacks
 @callback(
     Output(ids.EXPLAIN_PANEL, "children"),
@@ -286,3 +414,54 @@ def _download(_csv, _xlsx, which, result):
         return no_update
     content, filename = payload
     return dcc.send_bytes(content, filename)
+
+
+@callback(
+    Output(ids.GRAPH_OUTLIER_MAP, "figure"),
+    Input(ids.FIT_RESULT, "data"),
+    Input(ids.SELECTION_STORE, "data"),
+    State(ids.VIEW_SAMPLE, "data"),
+)
+def _outlier_map(result, selection, sample):
+    return outlier_map_view(result, sample, list((selection or {}).get("sample_ids") or []))
+
+
+@callback(
+    Output(ids.VIEW_SAMPLE, "data", allow_duplicate=True),
+    Input(ids.GRAPH_OUTLIER_MAP, "clickData"),
+    prevent_initial_call=True,
+)
+def _map_clicked(event):
+    points = (event or {}).get("points") or []
+    texts = [p.get("text") for p in points if p.get("text") is not None]
+    return html_text.unescape(str(texts[0])) if texts else no_update
+
+
+@callback(
+    Output(ids.METHOD_SIDE_BY_SIDE, "children"),
+    Input(ids.FIT_RESULT, "data"),
+    background=True,
+)
+def _side_by_side(result):
+    from webapp import jobs
+
+    with jobs.app_context():
+        return side_by_side_panel(result)
+
+
+@callback(
+    Output(ids.SELECTION_STORE, "data", allow_duplicate=True),
+    Input(ids.METHOD_SELECT_ROBUST_ONLY, "n_clicks"),
+    Input(ids.METHOD_SELECT_CLASSICAL_ONLY, "n_clicks"),
+    State(ids.FIT_RESULT, "data"),
+    State(ids.SELECTION_STORE, "data"),
+    prevent_initial_call=True,
+)
+def _select_listed(_robust, _classical, result, selection):
+    from dash import ctx
+
+    if not ctx.triggered or not (ctx.triggered[0].get("value") or 0):
+        return no_update
+    which = "robust_only" if ctx.triggered_id == ids.METHOD_SELECT_ROBUST_ONLY else "classical_only"
+    new = select_listed(result, selection, which)
+    return new if new is not None else no_update

@@ -19,6 +19,7 @@ import dash_ag_grid as dag
 import numpy as np
 import pandas as pd
 from dash import ALL, Input, Output, Patch, State, callback, clientside_callback, ctx, dcc, html, no_update
+from scipy import stats
 
 from analysis import diagnostics
 from webapp.web.ui import figures, ids, plot_table
@@ -72,9 +73,16 @@ def tab_content(tab: str) -> list:
             _graph(ids.GRAPH_T2_CHART),
             _graph(ids.GRAPH_SPE_CHART),
         ]
+    if tab == "screening":
+        from webapp.web.pages import dataset_screening
+
+        return dataset_screening.tab_content()
     if tab == "outliers":
+        from webapp.web.pages import dataset_samples
+
         return [
             html.P(CAUTION, className="ld-caution"),
+            *dataset_samples.method_panels(),  # the outlier map, classical and robust side by side
             html.P(id=ids.OUTLIER_NOTE, className="ld-muted"),
             dag.AgGrid(
                 id=ids.OUTLIER_GRID,
@@ -144,11 +152,18 @@ def _picked(model, sample_id: str | None) -> list[int]:
         return []
 
 
-def ellipse_limits(n_samples: int) -> dict[float, float]:
-    """Training T2 limits with two components, for the ellipses of a score plot
-    (Tracy, Young & Mason 1992): the ellipse holds the samples whose T2 on the
-    two plotted components is within the limit."""
-    return {c: diagnostics.t2_limit(n_samples, 2, c) for c in LIMIT_LEVELS}
+def ellipse_limits(n_samples: int, robust: bool = False, components: int = 2) -> dict[float, float]:
+    """Training T2 limits with two components (one for a one-component plot), for the
+    ellipses of a score plot (Tracy, Young & Mason 1992): the ellipse holds the samples
+    whose T2 on the plotted components is within the limit. For a robust fit the
+    squared score-distance cut-off, chi2 quantile (Hubert, Rousseeuw & Vanden Branden 2005)."""
+    if robust:
+        return {c: float(stats.chi2.ppf(c, components)) for c in LIMIT_LEVELS}
+    return {c: diagnostics.t2_limit(n_samples, components, c) for c in LIMIT_LEVELS}
+
+
+def _is_robust(result: dict) -> bool:
+    return result.get("method") == "robust"
 
 
 def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None, shape: str | None,
@@ -191,7 +206,7 @@ def score_update(result: dict | None, *, pcx: int, pcy: int, colour: str | None,
     encoding = figures.score_colours(training_column(result, model, colour), colour)
     if recolour or new_axes:
         axes = figures.score_axes(model.scores_, model.explained_variance_ratio_, x, y, model.eigenvalues_,
-                                  ellipse_limits(model.n_samples_), _picked(model, sample))
+                                  ellipse_limits(model.n_samples_, _is_robust(result)), _picked(model, sample))
     if recolour:
         # new point traces (one per group) and legend; the ellipses and the picked points stay
         traces = figures.score_point_traces(axes, figures.id_text(model.sample_ids_, model.n_samples_), encoding,
@@ -246,7 +261,7 @@ def score_view(result: dict | None, *, pcx: int, pcy: int, colour: str | None, s
     if n_comp < 2:
         fig = figures.single_component_figure(
             model.scores_, model.explained_variance_ratio_, model.eigenvalues_[0],
-            {c: diagnostics.t2_limit(model.n_samples_, 1, c) for c in LIMIT_LEVELS},
+            ellipse_limits(model.n_samples_, _is_robust(result), components=1),
             sample_ids=model.sample_ids_, colour_values=training_column(result, model, colour), colour_name=colour,
             highlight=_picked(model, sample), selected=selected)
         fig.update_layout(meta={"model": info["fingerprint"]})
@@ -261,7 +276,7 @@ def score_view(result: dict | None, *, pcx: int, pcy: int, colour: str | None, s
         colour_values=training_column(result, model, colour), colour_name=colour,
         symbol_values=training_column(result, model, shape),
         symbol_name=shape, labels=bool(labels), eigenvalues=model.eigenvalues_,
-        t2_limits=ellipse_limits(model.n_samples_), metadata=meta, highlight=_picked(model, sample),
+        t2_limits=ellipse_limits(model.n_samples_, _is_robust(result)), metadata=meta, highlight=_picked(model, sample),
         selected=selected,
     )
     fig.update_layout(meta={"model": info["fingerprint"]})  # which model a drawn plot shows
@@ -313,8 +328,10 @@ def diagnostics_view(result: dict | None, *, order: str | None, sample: str | No
                                  confidence=confidence, highlight=picked, selected=selected)
     chart = dict(confidence=confidence, order=order_values, order_name=order, sample_ids=ids_, highlight=picked,
                  selected=selected)
-    t2_chart = figures.control_chart_figure(model.t2_, t2_limits, name="Hotelling's T²", **chart)
-    spe_chart = figures.control_chart_figure(model.spe_, spe_limits, name="SPE", **chart)
+    robust = result.get("method") == "robust"  # T2 = SD^2, SPE = OD^2 (analysis.robust)
+    t2_chart = figures.control_chart_figure(model.t2_, t2_limits, name="SD² (robust)" if robust else "Hotelling's T²",
+                                            **chart)
+    spe_chart = figures.control_chart_figure(model.spe_, spe_limits, name="OD² (robust)" if robust else "SPE", **chart)
     return both, t2_chart, spe_chart
 
 
@@ -392,17 +409,19 @@ def outlier_rows(result: dict | None) -> tuple[list[dict], list[dict], str]:
     severity = np.maximum(model.t2_[flagged] / t2_lim, model.spe_[flagged] / spe_lim)
     flagged = flagged[np.argsort(-severity, kind="stable")]
     shown = flagged[:OUTLIER_ROWS]
-    from webapp.services import ingest
+    from webapp.services import ingest, modelling
 
     table = ingest.load_table(int(result["dataset_id"]))
     meta = _training_frame(result["dataset_id"], model)
     values = table.data.loc[[model.sample_ids_[i] for i in shown], list(model.variable_names_)]
+    robust = result.get("method") == "robust"
+    words = dict(zip(("inside", "t2", "spe", "both"), figures.MAP_REGION_TEXT)) if robust else REGION_WORDS
     rows = []
     for i, (_, x) in zip(shown, values.iterrows()):
         sid = model.sample_ids_[i]
-        explained = diagnostics.explain_sample(model, x.to_numpy(dtype=np.float64), sample_id=sid, top=3)
+        explained = modelling.explain(model, x.to_numpy(dtype=np.float64), sid, confidence, top=3)
         top = [v["variable"] for v in explained["variables"][:3]]
-        row = {"sample_id": sid, "region": REGION_WORDS[regions[i]], "T2": float(model.t2_[i]),
+        row = {"sample_id": sid, "region": words[regions[i]], "T2": float(model.t2_[i]),
                "T2 / limit": float(model.t2_[i] / t2_lim), "SPE": float(model.spe_[i]),
                "SPE / limit": float(model.spe_[i] / spe_lim), "top variables": ", ".join(top)}
         for col in meta.columns:
@@ -411,15 +430,23 @@ def outlier_rows(result: dict | None) -> tuple[list[dict], list[dict], str]:
         rows.append(row)
     number = {"type": "numericColumn", "filter": False, "minWidth": 108,
               "valueFormatter": {"function": "d3.format('.3~g')(params.value)"}}
+    t2_name, spe_name = ("SD²", "OD²") if robust else ("T²", "SPE")
     columns = [{"field": "sample_id", "headerName": "Sample", "pinned": "left", "minWidth": 110},
-               {"field": "region", "headerName": "Beyond", "minWidth": 150},
+               {"field": "region", "headerName": "Region" if robust else "Beyond", "minWidth": 150},
                {"field": "top variables", "headerName": "Mainly because of", "minWidth": 260, "flex": 3},
-               {"field": "T2", "headerName": "T²", **number}, {"field": "T2 / limit", "headerName": "T² / limit", **number},
-               {"field": "SPE", **number}, {"field": "SPE / limit", **number}]
+               {"field": "T2", "headerName": t2_name, **number},
+               {"field": "T2 / limit", "headerName": f"{t2_name} / limit", **number},
+               {"field": "SPE", "headerName": spe_name, **number},
+               {"field": "SPE / limit", "headerName": f"{spe_name} / limit", **number}]
     columns += [{"field": f"meta: {c}", "headerName": str(c)} for c in meta.columns]
     level = f"{100 * confidence:g}%"
-    note = (f"{flagged.size} of {model.n_samples_} samples are beyond the {level} T² or SPE limit "
-            f"(T² limit {t2_lim:.3g}, SPE limit {spe_lim:.3g}).")
+    if robust:
+        note = (f"Robust fit: {flagged.size} of {model.n_samples_} samples are beyond the {level} score- or "
+                f"orthogonal-distance cut-off (SD {np.sqrt(t2_lim):.3g}, OD {np.sqrt(spe_lim):.3g}; "
+                "the table lists their squares).")
+    else:
+        note = (f"{flagged.size} of {model.n_samples_} samples are beyond the {level} T² or SPE limit "
+                f"(T² limit {t2_lim:.3g}, SPE limit {spe_lim:.3g}).")
     if flagged.size > shown.size:
         note += f" The {shown.size} most extreme are listed."
     if flagged.size:

@@ -20,6 +20,7 @@ from webapp import auth
 from webapp import url_state
 from webapp.store.ids import parse_id
 from webapp.web.ui import ids, messages
+from webapp.auth.projects import visible_projects
 
 dash.register_page(__name__, path="/review", name="Review", title="Review · LatentDesk", nav=True, order=20)
 
@@ -43,8 +44,41 @@ def _num(value) -> str:
     return "–" if value is None else f"{float(value):.3g}"
 
 
+def _yes_no(flag) -> str:
+    return "–" if flag is None else ("beyond a limit" if flag else "within the limits")
+
+
+def method_support_block(support: Mapping[str, Any] | None) -> html.Div | None:
+    """Which method flags each proposed sample: the classical fit (T², SPE), the robust fit
+    (ROBPCA score and orthogonal distances, Hubert, Rousseeuw & Vanden Branden 2005), both or neither."""
+    if not support:
+        return None  # stored before the robust option existed
+    level = f"{100 * float(support['confidence']):g}%"
+    rows = [
+        html.Tr([html.Td(r["sample"]), html.Td(_yes_no(r["classical"])), html.Td(_yes_no(r["robust"])),
+                 html.Td(html.Strong(r["supported_by"]))])
+        for r in support["samples"]
+    ]
+    note = support.get("robust_error")
+    return html.Div(
+        [
+            html.H3("Which method flags each sample", className="ld-subhead"),
+            html.Table(
+                [html.Thead(html.Tr([html.Th("Sample"), html.Th("Classical fit (T², SPE)"),
+                                     html.Th("Robust fit (score and orthogonal distance)"),
+                                     html.Th("Supported by")])),
+                 html.Tbody(rows)],
+                className="ld-table ld-method-support",
+            ),
+            html.P(f"Both fits of the current model, {support['n_components']} component(s), limits at {level}. "
+                   + (f"No robust fit: {note}" if note else ""), className="ld-muted"),
+        ]
+    )
+
+
 def comparison_block(comparison: Mapping[str, Any] | None) -> html.Div:
-    """What a proposal changes: fingerprints, explained variance, principal angles, crossings."""
+    """What a proposal changes: fingerprints, explained variance, principal angles, crossings,
+    and which method (classical, robust) flags each proposed sample."""
     if not comparison:
         return html.Div(html.P("No comparison stored.", className="ld-muted"))
     before, after = comparison["before"], comparison["after"]
@@ -96,6 +130,7 @@ def comparison_block(comparison: Mapping[str, Any] | None) -> html.Div:
             ),
             html.H3("Samples crossing a limit", className="ld-subhead"),
             crossing_list,
+            method_support_block(comparison.get("methods")),
             html.P(
                 [f"Model now: {before['fingerprint'][:16]}… · if approved: {after['fingerprint'][:16]}…"],
                 className="ld-muted",
@@ -132,7 +167,7 @@ def _proposal_rows(proposals: list[dict], names: Mapping[int, str]) -> html.Tabl
 def _dataset_names() -> dict[int, str]:
     from webapp.services.ingest import list_datasets
 
-    return {d["id"]: d["name"] for d in list_datasets()}
+    return {d["id"]: d["name"] for d in list_datasets(visible_projects(current_user))}
 
 
 def _signing_form(proposal: dict) -> html.Div:

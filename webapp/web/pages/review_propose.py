@@ -1,9 +1,11 @@
 """The proposal form: exclude (or reinstate) the samples selected on a dataset page.
 
 ``/review/propose?dataset=<id>&action=exclude&sample=...&<model settings>`` (built by
-``url_state.propose_url`` from the dataset page's selection).  Before anything is
-submitted the page shows what approval would change (``review.preview``):
-explained variance before/after, principal angles, samples crossing a limit.
+``url_state.propose_url`` from the dataset page's selection); ``&category=`` may preset
+the reason category (one of ``REASON_CATEGORIES``; the screening tab sends "careless
+response").  Before anything is submitted the page shows what approval would change
+(``review.preview``): explained variance before/after, principal angles, samples
+crossing a limit.
 """
 
 from __future__ import annotations
@@ -31,7 +33,7 @@ def _list(value) -> list[str]:
     return [str(v) for v in value] if isinstance(value, (list, tuple)) else [str(value)]
 
 
-def layout(dataset=None, action="exclude", sample=None, **query) -> html.Div:
+def layout(dataset=None, action="exclude", sample=None, category=None, **query) -> html.Div:
     from webapp.services import ingest, review
 
     samples = _list(sample)
@@ -77,6 +79,7 @@ def layout(dataset=None, action="exclude", sample=None, **query) -> html.Div:
                         [
                             html.Label("Category", htmlFor=ids.PROPOSE_CATEGORY),
                             dcc.Dropdown(id=ids.PROPOSE_CATEGORY, options=list(REASON_CATEGORIES),
+                                         value=category if category in REASON_CATEGORIES else None,
                                          placeholder="Choose a category", clearable=False),
                             html.Div(id=ids.PROPOSE_CATEGORY_MESSAGE, role="alert", className="ld-field-message"),
                             html.Label("Reason in words (required)", htmlFor=ids.PROPOSE_REASON),

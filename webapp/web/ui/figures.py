@@ -818,6 +818,79 @@ def t2_spe_figure(t2, spe, t2_limits: Mapping[float, float], spe_limits: Mapping
     return fig
 
 
+# The four regions of the outlier map (Hubert, Rousseeuw & Vanden Branden 2005), in our words;
+# keys are analysis.robust.REGIONS.
+MAP_REGION_TEXT = {
+    "regular": "Regular: near the centre of the model and near its plane",
+    "far along the model": "Far along the model: extreme scores, yet lies on the model plane",
+    "off the model plane": "Off the model plane: ordinary scores, but the model does not describe it",
+    "far and off": "Far and off: extreme scores and away from the plane; such samples pull a classical fit most",
+}
+_MAP_STYLE = {  # colour and shape: colour is never the only sign (WCAG 2.2, 1.4.1)
+    "regular": (POINT_COLOUR, "circle"),
+    "far along the model": ("#E69F00", "square"),
+    "off the model plane": ("#56B4E9", "triangle-up"),
+    "far and off": (FLAG_COLOUR, "diamond"),
+}
+
+
+def map_regions(score_distance, orthogonal_distance, sd_cutoff: float, od_cutoff: float) -> np.ndarray:
+    """Region name per sample (keys of MAP_REGION_TEXT): beyond the SD cut-off, the OD cut-off, both or neither."""
+    far = _as_float(score_distance) > sd_cutoff
+    off = _as_float(orthogonal_distance) > od_cutoff
+    names = np.array(list(MAP_REGION_TEXT), dtype=object)
+    return names[far.astype(int) + 2 * off.astype(int)]
+
+
+def outlier_map_figure(score_distance, orthogonal_distance, sd_cutoff: float, od_cutoff: float, *,
+                       sample_ids: Sequence[str] | None = None, confidence: float = 0.95, method: str = "robust",
+                       highlight: Sequence[int] = (), selected: Sequence[str] | None = None) -> go.Figure:
+    """The outlier map of Hubert, Rousseeuw & Vanden Branden (2005): each sample's score
+    distance (within the model) against its orthogonal distance (to the model plane), the
+    two cut-offs at ``confidence`` as lines, and the four regions in words.
+
+    For the robust fit (``method="robust"``) the distances and cut-offs are ROBPCA's; for
+    the classical fit they are sqrt(T²), sqrt(SPE) and the square roots of their limits."""
+    sd = _as_float(score_distance)
+    od = _as_float(orthogonal_distance)
+    n = sd.size
+    ids = id_text(sample_ids, n)
+    rows = np.arange(n, dtype=np.int32)
+    regions = map_regions(sd, od, sd_cutoff, od_cutoff)
+    chosen = selection_mask(sample_ids, selected, n)
+    Scatter = scatter_class(n)
+    which = "robust fit (ROBPCA)" if method == "robust" else "classical fit"
+    fig = _base_figure(f"Outlier map of the {which}", height=500)
+    for region, (colour, symbol) in _MAP_STYLE.items():
+        mask = regions == region
+        if not mask.any():
+            continue
+        fig.add_trace(Scatter(
+            x=sd[mask], y=od[mask], mode="markers", name=f"{region} ({int(mask.sum())})",
+            text=ids[mask], customdata=rows[mask],
+            marker=dict(color=colour, symbol=symbol, size=7 if n <= WEBGL_THRESHOLD else 4, opacity=0.85),
+            hovertemplate="<b>%{text}</b><br>score distance: %{x:.3g}<br>orthogonal distance: %{y:.3g}"
+                          "<extra>" + region + "</extra>",
+            selectedpoints=selected_points(chosen, mask),
+        ))
+    if highlight:
+        h = np.asarray(list(highlight), dtype=np.int64)
+        h = h[(h >= 0) & (h < n)]
+        fig.add_trace(go.Scatter(x=sd[h], y=od[h], mode="markers", customdata=rows[h], text=ids[h],
+                                 marker=dict(size=15, color="rgba(0,0,0,0)", line=dict(color="#000", width=2)),
+                                 showlegend=False, hovertemplate="<b>%{text}</b><extra>picked</extra>"))
+    level = _confidence_text(confidence)
+    line = dict(color="#5b6570", width=1.3, dash="dash")
+    fig.add_vline(x=sd_cutoff, line=line, annotation_text=f"score distance cut-off {level}",
+                  annotation_position="top right", annotation_font_size=11)
+    fig.add_hline(y=od_cutoff, line=line, annotation_text=f"orthogonal distance cut-off {level}",
+                  annotation_position="top right", annotation_font_size=11)
+    fig.update_xaxes(title_text="Score distance (within the model)", rangemode="tozero")
+    fig.update_yaxes(title_text="Orthogonal distance (to the model plane)", rangemode="tozero")
+    fig.update_layout(dragmode="select", clickmode="event", legend=dict(itemsizing="constant"))
+    return fig
+
+
 def control_chart_figure(values, limits: Mapping[float, float], *, name: str, confidence: float | None = None,
                          order=None, order_name: str | None = None, sample_ids: Sequence[str] | None = None,
                          highlight: Sequence[int] = (), selected: Sequence[str] | None = None) -> go.Figure:

@@ -45,9 +45,11 @@ PLOT_NAMES = {
     ids.GRAPH_T2_SPE: "Hotelling's T² against SPE",
     ids.GRAPH_T2_CHART: "Control chart of Hotelling's T²",
     ids.GRAPH_SPE_CHART: "Control chart of SPE",
+    ids.GRAPH_OUTLIER_MAP: "Outlier map: score distance against orthogonal distance",
     ids.GRAPH_SPE_CONTRIB: "SPE contributions of the sample",
     ids.GRAPH_T2_CONTRIB: "T² contributions of the sample",
     ids.MON_CHART: "Control chart across every checked batch",
+    ids.SCREENING_PLOT: "Respondent screening: longest run of identical answers against IRV",
 }
 SHOW, HIDE = "Show the numbers", "Hide the numbers"
 
