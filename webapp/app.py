@@ -68,6 +68,7 @@ def _mount_dash(server: Flask) -> None:
     import dash
 
     from webapp import jobs
+    from webapp.auth import projects
     from webapp.web import page_paths
     from webapp.web.ui import shell
 
@@ -87,6 +88,7 @@ def _mount_dash(server: Flask) -> None:
     app.layout = shell.layout
     shell.guard_page_layouts()
     server.before_request(page_paths.refuse_unknown_pages)
+    projects.init_app(server, context_ids=page_paths.PROJECT_CONTEXT_IDS, templates=page_paths.page_templates())
     # Dash copies callbacks declared with ``dash.callback`` into the first app
     # that serves a request. Doing that now keeps each app built by
     # ``create_app`` complete even when a process builds several (tests).

@@ -88,6 +88,9 @@ def _call(client, route: Route, **kwargs):
 @pytest.fixture(scope="module")
 def matrix_app(tmp_path_factory):
     app = create_app({"TESTING": True, "SECRET_KEY": "matrix", "HOME": str(tmp_path_factory.mktemp("home"))})
+    # User 1, whom the filled-in paths name (``/api/v1/users/1/reset-password``): nobody signs in as
+    # this account, so an admin route acting on it leaves the other clients of the module alone.
+    add_user(app, "viewer", "matrix-bystander")
     yield app
     app.extensions["latentdesk.engine"].dispose()
 
@@ -176,6 +179,74 @@ def test_live_token_works_and_revoking_it_ends_access(matrix_app):
     with matrix_app.app_context(), session_scope() as s:
         accounts.revoke_tokens(s, user_id)
     assert client.get("/api/v1/datasets", headers=headers).status_code == 401
+
+
+def _token(app, role: str, **options) -> dict[str, str]:
+    name, _ = add_user(app, role)
+    with app.app_context(), session_scope() as s:
+        token = auth.create_token(s, accounts.get_user_by_name(s, name).id, "matrix", **options)
+    return {"Authorization": f"Bearer {token}"}
+
+
+@pytest.fixture(scope="module")
+def read_only_admin_token(matrix_app):
+    return _token(matrix_app, "admin", scope="read-only")
+
+
+WRITES = [r for r in PROTECTED if r.method not in ("GET", "HEAD")]
+
+
+@pytest.mark.parametrize("route", WRITES, ids=str)
+def test_a_read_only_token_is_refused_on_every_write(matrix_app, read_only_admin_token, route):
+    """RFC 6750 section 3.1: a token without the scope the request needs is 403 (common practice: read-only
+    means the safe methods of RFC 9110 section 9.2.1, GET and HEAD)."""
+    response = _call(matrix_app.test_client(), route, headers=read_only_admin_token)
+    assert response.status_code == 403
+    assert response.get_json()["error"]["message"] == auth.READ_ONLY_REFUSED
+
+
+def test_a_read_only_token_reads(matrix_app, read_only_admin_token):
+    assert matrix_app.test_client().get("/api/v1/users", headers=read_only_admin_token).status_code == 200
+
+
+@pytest.fixture(scope="module")
+def expired_token(matrix_app):
+    return _token(matrix_app, "admin", expires_at=utcnow() - timedelta(seconds=1))
+
+
+@pytest.mark.parametrize("route", PROTECTED, ids=str)
+def test_an_expired_token_is_refused(matrix_app, expired_token, route):
+    response = _call(matrix_app.test_client(), route, headers=expired_token)
+    assert response.status_code == 401
+    assert "expired" in response.get_json()["error"]["message"]
+
+
+@pytest.fixture(scope="module")
+def password_due_client(matrix_app):
+    """Signed in as an admin whose password was reset: nothing but choosing a new one."""
+    name, password = add_user(matrix_app, "admin")
+    with matrix_app.app_context(), session_scope() as s:
+        accounts.get_user_by_name(s, name).must_change_password = True
+    client = matrix_app.test_client()
+    assert login(client, name, password).status_code == 302
+    return client
+
+
+@pytest.mark.parametrize("route", [r for r in PROTECTED if r.path not in auth.OPEN_WHILE_PASSWORD_DUE], ids=str)
+def test_a_password_due_is_chosen_before_anything_else(password_due_client, route):
+    response = _call(password_due_client, route)
+    if route.json:
+        assert response.status_code == 403
+        assert response.get_json()["error"]["message"] == auth.PASSWORD_DUE
+    else:
+        assert response.status_code == 302
+        assert urlsplit(response.headers["Location"]).path == auth.PASSWORD_PATH
+
+
+def test_a_password_due_leaves_the_password_page_and_sign_out_open(password_due_client):
+    assert password_due_client.get(auth.PASSWORD_PATH).status_code == 200
+    assert password_due_client.get(auth.LOGOUT_PATH).status_code == 200
+    assert password_due_client.post("/api/v1/me/password", json={}).status_code == 400  # reached the view
 
 
 def test_token_of_a_disabled_user_is_refused(matrix_app):

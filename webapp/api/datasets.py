@@ -31,8 +31,11 @@ from webapp.api.responses import (
     json_ok,
     register_common_errors,
     requires,
+    revalidated,
     too_large_message,
 )
+from webapp.auth.projects import ProjectHidden, acting_user, visible_projects
+from webapp.store.ids import parse_id
 from webapp.services import ingest, modelling
 from webapp.services.context import max_upload_bytes, session_scope
 from webapp.services.exports import to_csv_bytes
@@ -130,6 +133,18 @@ def upload_dataset():
     for name in ("below_limit", "bad_cells"):
         if form_text(name):
             options[name] = form_text(name)
+    project_id = form_text("project_id")
+    if project_id is not None:
+        options["project_id"] = parse_id(project_id)
+        if options["project_id"] is None:
+            return json_error("bad_input", f"project_id {project_id[:40]!r} is not a project id", 400,
+                              field="project_id")
+        try:
+            uploader = acting_user(auth.api_user(), options["project_id"])
+        except ProjectHidden:
+            return json_error("not_found", f"no project with id {options['project_id']}", 404, field="project_id")
+        if not auth.has_role(uploader.role, "analyst"):
+            return json_error("forbidden", f"a {uploader.role} in this project cannot add datasets", 403)
     dataset = ingest.ingest_upload(raw, upload.filename or "", _user_id(), **options)
     return json_ok(status=201, dataset=dataset)
 
@@ -137,7 +152,7 @@ def upload_dataset():
 @bp.get(f"{API_PREFIX}/datasets")
 @requires("viewer")
 def list_datasets():
-    return json_ok(datasets=ingest.list_datasets())
+    return json_ok(datasets=ingest.list_datasets(visible_projects(auth.api_user())))
 
 
 @bp.get(f"{API_PREFIX}/datasets/<id:dataset_id>")
@@ -274,7 +289,44 @@ def sample_contributions(model_id: int, sample_id: str):
     return json_ok(model_id=model_id, contributions=result)
 
 
-@bp.get("/api/<path:unknown>")
+FINGERPRINTED = {f"{bp.name}.{name}" for name in ("get_model", "model_samples", "model_samples_csv",
+                                                   "model_variables", "model_variables_csv", "sample_contributions")}
+
+
+@bp.after_request
+def _revalidate_models(response):
+    """A fitted model never changes (its id names one fingerprint): answers carry an ETag."""
+    return revalidated(response) if request.endpoint in FINGERPRINTED else response
+
+
+ANY_METHOD = ("GET", "POST", "PUT", "PATCH", "DELETE")
+
+
+@bp.route("/api/<path:unknown>", methods=ANY_METHOD)
 def unknown_route(unknown: str):
-    # Without this, the pages' catch-all route would answer an unknown API path with HTML.
+    """An /api/ path no API route serves: 404 for every method (without this, the pages'
+    catch-all route would answer with HTML, or 405 for a POST); a path that another route
+    serves with other methods: 405 with ``Allow`` (RFC 9110 section 15.5.6)."""
+    allowed = api_methods_of(request.path)
+    if allowed:
+        answer = json_error("method_not_allowed", f"{request.method} is not allowed here; use "
+                            f"{', '.join(allowed)}", 405)
+        answer.headers["Allow"] = ", ".join(allowed)
+        return answer
     return json_error("not_found", f"no API route /api/{unknown}", 404)
+
+
+def api_methods_of(path: str) -> list[str]:
+    """The methods the API routes other than ``unknown_route`` serve at ``path``."""
+    adapter = current_app.url_map.bind("localhost")
+    allowed = []
+    for method in ANY_METHOD:
+        try:
+            endpoint, _ = adapter.match(path, method=method)
+        except HTTPException:
+            continue
+        if endpoint != f"{bp.name}.unknown_route":
+            allowed.append(method)
+    if "GET" in allowed:
+        allowed.insert(allowed.index("GET") + 1, "HEAD")
+    return allowed

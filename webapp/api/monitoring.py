@@ -13,6 +13,7 @@ from flask import Blueprint, Response, request
 
 from webapp.api.responses import API_PREFIX, json_body, json_error, json_ok, register_common_errors, register_not_found, requires
 from webapp.auth import api_user
+from webapp.auth.projects import visible_projects
 from webapp.services import modelling
 from webapp.services import reference_models as reference
 from webapp.services.exports import to_csv_bytes
@@ -83,14 +84,14 @@ def retire(reference_model_id: int):
 @bp.get(f"{API_PREFIX}/reference-models")
 @requires("viewer")
 def list_reference_models():
-    return json_ok(reference_models=reference.list_reference_models(_states()))
+    return json_ok(reference_models=reference.list_reference_models(_states(), visible=visible_projects(api_user())))
 
 
 @bp.get(f"{API_PREFIX}/reference-models.csv")
 @requires("viewer")
 def list_reference_models_csv():
     return Response(
-        to_csv_bytes(reference.reference_models_frame(_states())),
+        to_csv_bytes(reference.reference_models_frame(_states(), visible=visible_projects(api_user()))),
         mimetype="text/csv",
         headers={"Content-Disposition": 'attachment; filename="reference-models.csv"'},
     )

@@ -8,6 +8,7 @@ infinities as null.
 
 from __future__ import annotations
 
+import hashlib
 from typing import Any
 
 import numpy as np
@@ -79,6 +80,19 @@ def json_response(body: dict[str, Any], status: int) -> Response:
 def json_ok(status: int = 200, **payload: Any) -> Response:
     """``{"ok": true, **payload}`` with ``status``."""
     return json_response({"ok": True, **payload}, status)
+
+
+def revalidated(response: Response) -> Response:
+    """A 200 answer of an immutable resource (a fitted model and its tables, named by its
+    fingerprint) with a strong ETag (SHA-256 of the body) and ``Cache-Control: private,
+    no-cache``: a client may keep it and revalidates with ``If-None-Match``, answered 304 without
+    the body (RFC 9110 sections 8.8.3 and 13.1.2; RFC 9111 section 5.2.2.4)."""
+    if response.status_code != 200 or response.direct_passthrough:
+        return response
+    if not response.get_etag()[0]:
+        response.set_etag(hashlib.sha256(response.get_data()).hexdigest())
+    response.headers["Cache-Control"] = "private, no-cache"
+    return response.make_conditional(request)
 
 
 def json_error(code: str, message: str, status: int, *, field: str | None = None) -> Response:

@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import sys
 
+import analysis
 from analysis.errors import InputError
 
 EXIT_OK, EXIT_INTERNAL, EXIT_BAD_INPUT = 0, 1, 2
@@ -19,7 +20,8 @@ class _OneLineParser(argparse.ArgumentParser):
     """Argument errors as one line on stderr and exit code 2 (no usage block)."""
 
     def error(self, message: str):
-        self.exit(EXIT_BAD_INPUT, f"latentdesk: error: {self.prog}: {message}\n")
+        command = self.prog.removeprefix("latentdesk").strip()  # "fit", "users add", or "" at the top
+        self.exit(EXIT_BAD_INPUT, f"latentdesk: error: {command + ': ' if command else ''}{message}\n")
 
 
 def _comma_list(text: str) -> list[str]:
@@ -65,10 +67,13 @@ def _cmd_fit(args: argparse.Namespace) -> int:
         below_limit=args.below_limit,
         bad_cells=args.bad_cells,
         drop_constant=args.drop_constant,
+        method=args.method,
     )
     _print_warnings(summary["warnings"])
+    robust = summary.get("robust")
+    how = f" by ROBPCA (h={robust['h']})" if robust else ""
     print(
-        f"fitted {summary['n_components']} component(s) on {summary['n_samples']} samples x "
+        f"fitted {summary['n_components']} component(s){how} on {summary['n_samples']} samples x "
         f"{summary['n_variables']} variables; wrote {args.out}"
     )
     return EXIT_OK
@@ -95,6 +100,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser = _OneLineParser(
         prog="latentdesk", description="Review multivariate data with PCA."
     )
+    parser.add_argument("--version", action="version", version=f"latentdesk {analysis.__version__}")
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     fit = commands.add_parser("fit", help="fit a PCA model to a CSV/TSV/XLSX file")
@@ -112,6 +118,10 @@ def build_parser() -> argparse.ArgumentParser:
     fit.add_argument("--components", default="auto", help="number of components, or 'auto'")
     fit.add_argument("--exclude", help="comma-separated sample ids to leave out of the fit")
     fit.add_argument("--confidence", type=float, default=0.95, help="limit confidence level")
+    fit.add_argument(
+        "--method", choices=["classical", "robust"], default="classical",
+        help="classical PCA, or robust PCA (ROBPCA; limits are its score- and orthogonal-distance cut-offs)",
+    )
     fit.add_argument(
         "--drop-constant",
         action="store_true",

@@ -26,6 +26,7 @@ from analysis.canonical_json import canonical_sha256
 from analysis.errors import InputError
 from analysis.intake import read_table
 from analysis.table import Table
+from webapp.services import projects
 from webapp.services.context import cache_folder, home_folder, max_upload_bytes, session_scope
 from webapp.store import datasets as store
 from webapp.store import files
@@ -129,8 +130,12 @@ def ingest_upload(
     group_columns=(),
     below_limit: str = "half",
     bad_cells: str = "error",
+    project_id: int | None = None,
 ) -> dict[str, Any]:
-    """Check, store and record an uploaded file; the dataset as the API shows it.
+    """Check, store and record an uploaded file in a project; the dataset as the API shows it.
+
+    ``project_id`` (the caller checked the uploader's role there) defaults as
+    ``projects.project_for_upload`` says.
 
     Returns the dataset dict (see :func:`webapp.store.datasets.dataset_dict`) plus
     ``created`` (False when these bytes with these options were stored before).
@@ -146,9 +151,10 @@ def ingest_upload(
         below_limit=below_limit,
         bad_cells=bad_cells,
     )
+    project = projects.project_for_upload(project_id, user_id)
     with _upload_lock(sha256):
         with session_scope() as session:
-            existing = store.find_dataset(session, sha256, opts)
+            existing = store.find_dataset(session, sha256, opts, project)
             if existing is not None:
                 return {**store.dataset_dict(existing), "created": False}
         table, report = _read(raw, name, opts)
@@ -172,6 +178,7 @@ def ingest_upload(
                     warnings=list(report.warnings),
                     report=report.to_dict(),
                     uploaded_by=user_id,
+                    project_id=project,
                 )
                 result = store.dataset_dict(row)
         except BaseException:
@@ -208,10 +215,10 @@ def dataset_info(dataset_id: int) -> dict[str, Any]:
         return store.dataset_dict(row, full=True)
 
 
-def list_datasets() -> list[dict[str, Any]]:
-    """Every dataset, newest first."""
+def list_datasets(visible: set[int] | None = None) -> list[dict[str, Any]]:
+    """Every dataset of the projects in ``visible`` (None: of every project), newest first."""
     with session_scope() as session:
-        return [store.dataset_dict(row) for row in store.list_datasets(session)]
+        return [store.dataset_dict(row) for row in store.list_datasets(session, visible)]
 
 
 def load_table(dataset_id: int) -> Table:

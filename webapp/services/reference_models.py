@@ -278,11 +278,13 @@ def get_reference_model(reference_model_id: int) -> dict[str, Any]:
         return _dict_in(session, known)
 
 
-def list_reference_models(states: Iterable[str] | None = None, name: str | None = None) -> list[dict[str, Any]]:
-    """Reference models by name and version, optionally only some states or one name."""
+def list_reference_models(states: Iterable[str] | None = None, name: str | None = None,
+                          visible: set[int] | None = None) -> list[dict[str, Any]]:
+    """Reference models by name and version, optionally only some states or one name, only of
+    the projects in ``visible`` when given."""
     wanted = check_states(states)
     with session_scope() as session:
-        rows = store.list_reference_models(session, states=wanted, name=name)
+        rows = store.list_reference_models(session, states=wanted, name=name, projects=visible)
         ids = [r.id for r in rows]
         signatures = store.signatures_of(session, ids)
         names = display_names(session, [r.proposed_by for r in rows])
@@ -299,10 +301,11 @@ CSV_COLUMNS = [
 ]
 
 
-def reference_models_frame(states: Iterable[str] | None = None, name: str | None = None) -> pd.DataFrame:
+def reference_models_frame(states: Iterable[str] | None = None, name: str | None = None,
+                           visible: set[int] | None = None) -> pd.DataFrame:
     """The list as a table, one row per reference model (the CSV twin of the list)."""
     rows = []
-    for m in list_reference_models(states, name):
+    for m in list_reference_models(states, name, visible):
         by_meaning = {s["meaning"]: s for s in m["signatures"]}
         decision = by_meaning.get("approved") or by_meaning.get("rejected") or {}
         retirement = by_meaning.get("retired") or {}
@@ -453,6 +456,9 @@ def propose(model_id, name, note="", confidence=DEFAULT_CONFIDENCE, *, user, run
     rules = check_run_rules(run_rules)
     model_id = check_id(model_id, "model_id")
     model, info = modelling.model_by_id(model_id)
+    if info.get("method") == "robust":
+        raise InputError(f"model {model_id} is a robust (ROBPCA) fit; reference models are classical PCA fits: "
+                         "fit the model with method 'classical' and propose that one", field="model_id")
     if info["id"] != model_id:
         raise conflict(
             f"model {model_id} was fitted by another analysis version; fit it again and propose the new model"

@@ -16,9 +16,10 @@ def insert_dataset(session: Session, **fields: Any) -> Dataset:
     return add_and_flush(session, Dataset(**fields))
 
 
-def find_dataset(session: Session, sha256: str, intake_options: dict[str, Any]) -> Dataset | None:
-    """The oldest dataset with these bytes read with these intake options, if any."""
-    rows = session.scalars(select(Dataset).where(Dataset.sha256 == sha256).order_by(Dataset.id))
+def find_dataset(session: Session, sha256: str, intake_options: dict[str, Any], project_id: int) -> Dataset | None:
+    """The project's oldest dataset with these bytes read with these intake options, if any."""
+    rows = session.scalars(select(Dataset).where(Dataset.sha256 == sha256, Dataset.project_id == project_id)
+                           .order_by(Dataset.id))
     for row in rows:
         if row.intake_options == intake_options:
             return row
@@ -29,9 +30,12 @@ def get_dataset(session: Session, dataset_id: int) -> Dataset | None:
     return session.get(Dataset, dataset_id)
 
 
-def list_datasets(session: Session) -> list[Dataset]:
-    """Every dataset, newest first."""
-    return list(session.scalars(select(Dataset).order_by(Dataset.id.desc())))
+def list_datasets(session: Session, projects: set[int] | None = None) -> list[Dataset]:
+    """Every dataset (of ``projects`` when given), newest first."""
+    query = select(Dataset).order_by(Dataset.id.desc())
+    if projects is not None:
+        query = query.where(Dataset.project_id.in_(sorted(projects)))
+    return list(session.scalars(query))
 
 
 
@@ -63,6 +67,7 @@ def dataset_dict(row: Dataset, *, full: bool = False) -> dict[str, Any]:
         "warnings": list(row.warnings),
         "uploaded_by": row.uploaded_by,
         "created_at": row.created_at.isoformat() if row.created_at else None,
+        "project_id": row.project_id,
     }
     if full:
         out["intake_options"] = dict(row.intake_options)

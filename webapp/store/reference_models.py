@@ -16,7 +16,7 @@ from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session, undefer
 
 from webapp.store.engine import add_and_flush
-from webapp.store.tables import ReferenceModel, ReferenceModelSignature
+from webapp.store.tables import Dataset, ReferenceModel, ReferenceModelSignature
 
 DECISION, RETIREMENT = "decision", "retirement"
 
@@ -38,10 +38,15 @@ def get_reference_model(session: Session, reference_model_id: int, *, with_docum
 
 
 def list_reference_models(
-    session: Session, *, states: list[str] | None = None, name: str | None = None
+    session: Session, *, states: list[str] | None = None, name: str | None = None,
+    projects: set[int] | None = None,
 ) -> list[ReferenceModel]:
-    """Reference models by name, then version (the document is not loaded)."""
+    """Reference models by name, then version (the document is not loaded); only those whose
+    training dataset belongs to ``projects`` when given."""
     query = select(ReferenceModel).order_by(ReferenceModel.name, ReferenceModel.version)
+    if projects is not None:
+        query = query.join(Dataset, Dataset.id == ReferenceModel.dataset_id).where(
+            Dataset.project_id.in_(sorted(projects)))
     if states:
         query = query.where(ReferenceModel.state.in_(states))
     if name is not None:

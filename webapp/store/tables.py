@@ -37,6 +37,7 @@ REFERENCE_MODEL_STATES = ("proposed", "approved", "rejected", "retired")
 REFERENCE_MODEL_MEANINGS = ("approved", "rejected", "retired")
 BATCH_STATES = ("open", "reviewed")
 BATCH_OUTCOMES = ("assignable_cause", "no_cause_accepted", "rejected")
+TOKEN_SCOPES = ("read-only", "read-write")
 
 # Deterministic constraint names so migrations can refer to them on every engine.
 NAMING = {
@@ -70,6 +71,10 @@ class User(Base):
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
     failed_logins: Mapped[int] = mapped_column(Integer, default=0)
     locked_until: Mapped[datetime | None] = mapped_column(nullable=True)
+    # Set by an administrator's password reset: nothing but choosing a new one until then (0010_account_admin).
+    must_change_password: Mapped[bool] = mapped_column(Boolean, default=False)
+    # When an administrator last unlocked the account: earlier failed sign-ins no longer count.
+    unlocked_at: Mapped[datetime | None] = mapped_column(nullable=True)
 
 
 class LoginAttempt(Base):
@@ -86,6 +91,7 @@ class LoginAttempt(Base):
 
 class ApiToken(Base):
     __tablename__ = "api_tokens"
+    __table_args__ = (CheckConstraint(_in("scope", TOKEN_SCOPES), name="scope"),)
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     user_id: Mapped[int] = mapped_column(ForeignKey("users.id"), index=True)
@@ -94,6 +100,9 @@ class ApiToken(Base):
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
     revoked_at: Mapped[datetime | None] = mapped_column(nullable=True)
     last_used_at: Mapped[datetime | None] = mapped_column(nullable=True)
+    # Migration 0010_account_admin: refused from this moment (None: never expires), and what it may do.
+    expires_at: Mapped[datetime | None] = mapped_column(nullable=True)
+    scope: Mapped[str] = mapped_column(String(16), default="read-write")
 
 
 class OidcIdentity(Base):
@@ -131,6 +140,9 @@ class Dataset(Base):
     report: Mapped[dict[str, Any]] = mapped_column(default=dict)
     uploaded_by: Mapped[int] = mapped_column(ForeignKey("users.id"))
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    # Always set by the app, and filled for older rows by 0011_projects; nullable only because
+    # SQLite cannot add a NOT NULL column to a filled table without rebuilding it.
+    project_id: Mapped[int | None] = mapped_column(ForeignKey("projects.id"), nullable=True, index=True)
 
 
 class Model(Base):
@@ -413,3 +425,61 @@ class UserSession(Base):
     client_addr: Mapped[str] = mapped_column(String(64), default="")
     revoked_at: Mapped[datetime | None] = mapped_column(nullable=True)
     revoked_reason: Mapped[str | None] = mapped_column(String(64), nullable=True)
+
+
+class AdminLogEntry(Base):
+    """The admin log: every account change (who, to whom, what), chained by SHA-256 like the
+    review log (``webapp.services.audit``). Append-only: database triggers refuse UPDATE and
+    DELETE (migration 0010_account_admin)."""
+
+    __tablename__ = "admin_log"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    seq: Mapped[int] = mapped_column(Integer, unique=True)
+    at: Mapped[datetime] = mapped_column(default=utcnow)
+    actor_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"), nullable=True)
+    actor_name: Mapped[str] = mapped_column(String(200))
+    action: Mapped[str] = mapped_column(String(64))
+    payload: Mapped[dict[str, Any]] = mapped_column(default=dict)
+    prev_hash: Mapped[str] = mapped_column(String(64))
+    hash: Mapped[str] = mapped_column(String(64))
+    hash_scheme: Mapped[str] = mapped_column(String(32))
+
+
+class AdminLogHead(Base):
+    """One row: the last admin-log entry's seq and hash (catches entries removed at the end)."""
+
+    __tablename__ = "admin_log_head"
+    __table_args__ = (CheckConstraint("id = 1", name="single_row"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    seq: Mapped[int] = mapped_column(Integer)
+    hash: Mapped[str] = mapped_column(String(64))
+
+
+PROJECT_ROLES = ("viewer", "analyst", "reviewer")
+
+
+class Project(Base):
+    """A team's own space: its datasets (and through them their models, reference models,
+    batches, saved views and review log entries) and its members (migration 0011_projects)."""
+
+    __tablename__ = "projects"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(String(200), unique=True)
+    description: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    created_by: Mapped[int | None] = mapped_column(ForeignKey("users.id"), nullable=True)
+
+
+class ProjectMember(Base):
+    """A user's role in one project (viewer, analyst or reviewer); site admins need none."""
+
+    __tablename__ = "project_members"
+    __table_args__ = (CheckConstraint(_in("role", PROJECT_ROLES), name="role"),)
+
+    project_id: Mapped[int] = mapped_column(ForeignKey("projects.id"), primary_key=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id"), primary_key=True, index=True)
+    role: Mapped[str] = mapped_column(String(16))
+    added_at: Mapped[datetime] = mapped_column(default=utcnow)

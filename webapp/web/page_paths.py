@@ -13,6 +13,7 @@ from flask import request
 
 from webapp.auth import denial, matches_path_template
 from webapp.store.ids import parse_id
+from webapp.web.ui import ids
 
 DASH_CATCH_ALL = ("/", "/<path:path>")  # the endpoints under which Dash serves its page shell
 TOKEN_PARTS = {"view_id"}  # a saved view is named by a random token (webapp.services.views)
@@ -43,3 +44,12 @@ def refuse_unknown_pages():
     if request.endpoint in DASH_CATCH_ALL and not is_page(request.path):
         return denial(404, f"There is no page at {request.path}.")
     return None
+
+
+def page_templates() -> list[str]:
+    """The path templates of the registered pages that name something by id."""
+    return [p["path_template"] for p in dash.page_registry.values() if p.get("path_template")]
+
+
+# Dash components whose value names the thing a callback is about (``webapp.auth.projects``).
+PROJECT_CONTEXT_IDS = {ids.DATASET_ID: "dataset", ids.MON_PROPOSE_MODEL: "model", ids.UPLOAD_PROJECT: "project"}

@@ -18,6 +18,7 @@ from analysis.errors import InputError
 from webapp import auth
 from webapp import url_state
 from webapp.web.ui import ids
+from webapp.auth.projects import visible_projects
 
 dash.register_page(__name__, path="/", name="Datasets", title="Datasets · LatentDesk", nav=True, order=0)
 
@@ -25,7 +26,7 @@ dash.register_page(__name__, path="/", name="Datasets", title="Datasets · Laten
 def _dataset_rows() -> list[dict]:
     from webapp.services.ingest import list_datasets
 
-    return list_datasets()
+    return list_datasets(visible_projects(current_user))
 
 
 def dataset_table(datasets: list[dict]) -> html.Div:

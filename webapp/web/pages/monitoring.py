@@ -18,6 +18,7 @@ from flask_login import current_user
 from analysis.errors import InputError
 from webapp import auth
 from webapp import url_state
+from webapp.auth.projects import visible_projects
 from webapp.store.ids import parse_id
 from webapp.web.pages.review import when
 from webapp.web.ui import ids
@@ -128,7 +129,7 @@ def layout(model=None, **_query) -> html.Div:
             html.P(CAUTION, className="ld-alert ld-caution"),
             propose_form(model_id),
             html.Section([html.H2("Reference models"),
-                          html.Div(reference_model_table(reference.list_reference_models()), id=ids.MON_LIST)],
+                          html.Div(reference_model_table(reference.list_reference_models(visible=visible_projects(current_user))), id=ids.MON_LIST)],
                          className="ld-panel"),
         ]
     )
@@ -176,4 +177,4 @@ def _on_propose(n_clicks, model_id, name, note, warning, action, rule_ids):
     message, chosen = propose_reference_model(current_user, model_id, name, note, warning, action, rule_ids or [])
     if chosen is None:
         return message, no_update
-    return message, reference_model_table(reference.list_reference_models())
+    return message, reference_model_table(reference.list_reference_models(visible=visible_projects(current_user)))

@@ -24,6 +24,7 @@ from flask_login import current_user
 from analysis.errors import InputError
 from webapp import auth
 from webapp import url_state
+from webapp.auth.projects import projects_with_roles
 from webapp.web.ui import fields, ids
 from webapp.web.ui.grid_options import ONE_TAB_STOP
 
@@ -139,6 +140,14 @@ def store(contents, filename, options: dict[str, Any], user_id: int):
     return url_state.dataset_url(dataset["id"]), f"Stored {dataset['name']}."
 
 
+def _project_choice() -> dcc.Dropdown:
+    """The projects the user may add datasets to (analyst or above there); the first one chosen."""
+    choices = [(pid, name) for pid, name, role in projects_with_roles(current_user) if auth.has_role(role, "analyst")]
+    return dcc.Dropdown(id=ids.UPLOAD_PROJECT, clearable=False, options=[{"label": n, "value": p} for p, n in choices],
+                        value=choices[0][0] if choices else None,
+                        placeholder="a site admin makes projects" if not choices else None)
+
+
 # ----------------------------------------------------------------- layout
 def layout(**_query) -> html.Div:
     limit_mb = current_app.config["MAX_UPLOAD_MB"]
@@ -157,6 +166,7 @@ def layout(**_query) -> html.Div:
                            "until you confirm below.", className="ld-muted"),
                     html.Div(
                         [
+                            html.Div(fields.labelled("Project", _project_choice()), className="ld-field"),
                             html.Div(fields.labelled("Sample ids", dcc.Dropdown(
                                 id=ids.UPLOAD_ID_COLUMN, placeholder="detect automatically")), className="ld-field"),
                             html.Div(fields.labelled("Sheet (XLSX)", dcc.Input(
@@ -257,15 +267,16 @@ def _preview(contents, _recheck, id_column, sheet, below_limit, bad_cells, filen
     State(ids.UPLOAD_BELOW_LIMIT, "value"),
     State(ids.UPLOAD_BAD_CELLS, "value"),
     State(ids.UPLOAD_ROLES, "rowData"),
+    State(ids.UPLOAD_PROJECT, "value"),
     prevent_initial_call=True,
 )
-def _store(clicks, contents, filename, id_column, sheet, below_limit, bad_cells, rows):
+def _store(clicks, contents, filename, id_column, sheet, below_limit, bad_cells, rows, project_id):
     if not clicks or not contents:
         return no_update, no_update
-    if not auth.has_role(current_user.role, "analyst"):
-        return no_update, html.P("Your role cannot add datasets.", className="ld-alert")
-    url, message = store(contents, filename, intake_options(id_column, sheet, below_limit, bad_cells, rows),
-                         current_user.id)
+    if not auth.has_role(current_user.role, "analyst"):  # the role in the chosen project (webapp.auth.projects)
+        return no_update, html.P("Your role cannot add datasets to this project.", className="ld-alert")
+    options = intake_options(id_column, sheet, below_limit, bad_cells, rows)
+    url, message = store(contents, filename, {**options, "project_id": project_id}, current_user.id)
     if url is None:
         return no_update, html.P(message, className="ld-alert")
     return url, html.P(message, className="ld-success")

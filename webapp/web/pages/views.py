@@ -24,6 +24,7 @@ from webapp.web.pages.review import when
 from webapp import url_state
 from webapp.store.ids import parse_id
 from webapp.web.ui import ids, messages
+from webapp.auth.projects import visible_projects
 
 dash.register_page(__name__, path="/views", name="Saved views", title="Saved views · LatentDesk", nav=True,
                    order=30)
@@ -93,15 +94,15 @@ def _listed(dataset_id: int | None) -> html.Table | html.P:
     from webapp.services import views
     from webapp.services.ingest import list_datasets
 
-    names = {d["id"]: d["name"] for d in list_datasets()}
-    return views_table(views.list_views(dataset_id), names)
+    names = {d["id"]: d["name"] for d in list_datasets(visible_projects(current_user))}
+    return views_table([v for v in views.list_views(dataset_id) if v["dataset_id"] in names], names)
 
 
 def layout(save=None, dataset=None, sel=None, **query) -> html.Div:
     from webapp.services.ingest import list_datasets
 
     dataset_id = parse_id(dataset)
-    names = {d["id"]: d["name"] for d in list_datasets()}
+    names = {d["id"]: d["name"] for d in list_datasets(visible_projects(current_user))}
     selection = [str(s) for s in sel] if isinstance(sel, (list, tuple)) else ([str(sel)] if sel else [])
     form = _save_form(dataset_id, query, selection) if save == "1" and dataset_id in names else None
     title = f"Saved views · {names[dataset_id]}" if dataset_id in names else "Saved views"
