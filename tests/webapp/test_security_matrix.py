@@ -1,7 +1,9 @@
-"""Every route x every role: who gets in, who is sent away, and how.
+"""Every route x every role (and member or not of the project): who gets in, who is sent away, and how.
 
 The route list is read from the running app (Flask's URL map plus the Dash
-pages), so routes added later are covered without editing this file. A view
+pages), so routes added later are covered without editing this file. Every id
+in a filled-in path names a real resource (``_real_resources``), so each route's
+own answer is asserted (``EXPECTED``), not a 404 for a missing row. A view
 declares its role with ``webapp.auth.role_required`` (kept as ``min_role``);
 a Dash page with ``register_page(..., min_role=...)``.
 
@@ -91,8 +93,50 @@ def matrix_app(tmp_path_factory):
     # User 1, whom the filled-in paths name (``/api/v1/users/1/reset-password``): nobody signs in as
     # this account, so an admin route acting on it leaves the other clients of the module alone.
     add_user(app, "viewer", "matrix-bystander")
+    app.matrix_resources = _real_resources(app)
     yield app
     app.extensions["latentdesk.engine"].dispose()
+
+
+def _real_resources(app) -> dict[str, str]:
+    """Id 1 of everything a path can name, made through the API: a dataset (wine recognition data,
+    scikit-learn), its model, an approved reference model, a checked batch, a proposal, a saved
+    view, the first project. Returns what the filled-in paths must say instead of their placeholders."""
+    import io
+
+    from tests.webapp.review_helpers import actor
+    from tests.webapp.wine_data import wine_frame
+
+    analyst, reviewer = actor(app, "analyst"), actor(app, "reviewer")
+    client = app.test_client()
+
+    def ok(response, status=200):
+        assert response.status_code == status, response.get_json()
+        return response.get_json()
+
+    frame = wine_frame()
+    training, batch = frame.iloc[:60], frame.iloc[60:70]
+    dataset = ok(client.post("/api/v1/datasets", data={"file": (io.BytesIO(training.to_csv(index=False).encode()),
+                                                                 "wine.csv"), "id_column": "sample"},
+                             headers=analyst.headers, content_type="multipart/form-data"), 201)["dataset"]
+    model = ok(client.post(f"/api/v1/datasets/{dataset['id']}/models", json={"components": 2},
+                           headers=analyst.headers))["model"]
+    reference = ok(client.post("/api/v1/reference-models", json={"model_id": model["id"], "name": "matrix"},
+                               headers=analyst.headers), 201)["reference_model"]
+    ok(client.post(f"/api/v1/reference-models/{reference['id']}/approve",
+                   json={"password": reviewer.password, "comment": "ok"}, headers=reviewer.headers))
+    checked = ok(client.post(f"/api/v1/reference-models/{reference['id']}/batches",
+                             data={"file": (io.BytesIO(batch.to_csv(index=False).encode()), "batch.csv")},
+                             headers=analyst.headers, content_type="multipart/form-data"), 201)["batch"]
+    proposal = ok(client.post(f"/api/v1/datasets/{dataset['id']}/exclusions",
+                              json={"samples": [training["sample"].iloc[0]], "reason_category": "measurement error",
+                                    "reason": "matrix fixture", "action": "exclude"}, headers=analyst.headers), 201)
+    view = ok(client.post("/api/v1/views", json={"dataset_id": dataset["id"], "query": "tab=scores",
+                                                 "title": "matrix"}, headers=analyst.headers), 201)["view"]
+    assert (dataset["id"], model["id"], reference["id"], checked["id"], proposal["proposal"]["id"],
+            dataset["project_id"]) == (1, 1, 1, 1, 1, 1), "the filled-in paths name id 1"
+    return {"model_sample": training["sample"].iloc[0], "batch_sample": batch["sample"].iloc[0],
+            "view": view["id"]}
 
 
 @pytest.fixture(scope="module")
@@ -143,12 +187,53 @@ def test_wrong_role_is_forbidden(role_clients, route, role):
         assert response.get_json()["error"]["code"] == "forbidden"
 
 
+def _concrete(path: str, rule: str, resources: dict[str, str]) -> str:
+    """The filled-in path with the real sample ids and view token of ``_real_resources``."""
+    if rule.startswith("/api/v1/models/") and "<path:sample_id>" in rule:
+        return path.replace("x/y", resources["model_sample"])
+    if rule.startswith("/api/v1/batches/") and "<path:sample_id>" in rule:
+        return path.replace("x/y", resources["batch_sample"])
+    if "view_id" in rule or rule == "page:webapp.web.pages.views_open":
+        return path.rsplit("/", 1)[0] + "/" + resources["view"]
+    return path
+
+
+# What the needed role meets on a real resource when it sends no body (writes) or nothing special
+# (reads). Reads answer 200; a write without a body is refused as bad input (400) after the role
+# check; the exceptions, each with its reason:
+EXPECTED = {
+    "GET /-/logout": 200,  # the sign-out page; only a POST with the CSRF token signs out
+    "POST /-/logout": 400,  # no CSRF token
+    "DELETE /api/v1/me/tokens/<id:token_id>": 404,  # token 1 is not the caller's own
+    "POST /api/v1/users/<id:user_id>/reset-password": 200,  # needs no body; user 1 is the bystander
+    "POST /_dash-update-component": 400,  # not a Dash callback body
+    "GET /api/v1/datasets/<id:dataset_id>/screening": 422,  # the wine data are not questionnaire items
+    "GET /api/v1/datasets/<id:dataset_id>/screening.csv": 422,
+    "POST /api/v1/datasets/<id:dataset_id>/models": 200,  # a fit needs no body: the default settings
+    "POST /api/v1/exclusions/<id:proposal_id>/withdraw": 403,  # only its proposer withdraws a proposal
+    "POST /api/v1/exclusions/<id:proposal_id>/approve": 403,  # wrong_password: a signature re-asks it
+    "POST /api/v1/exclusions/<id:proposal_id>/reject": 403,
+    "POST /api/v1/reference-models/<id:reference_model_id>/approve": 409,  # approved already
+    "POST /api/v1/reference-models/<id:reference_model_id>/reject": 409,
+    "POST /api/v1/reference-models/<id:reference_model_id>/retire": 403,  # wrong_password
+}
+# A 403 above is the route's own refusal, never the role check's.
+ROLE_REFUSAL = "Your role does not allow this."
+
+
+def _expected(route: Route) -> int:
+    return EXPECTED.get(str(route), 200 if route.method == "GET" else 400)
+
+
 @pytest.mark.parametrize("route", [r for r in PROTECTED if r.min_role], ids=str)
-def test_the_needed_role_passes_the_role_check(role_clients, route):
-    response = _call(role_clients[route.min_role], route)
-    assert response.status_code != 401
-    if response.status_code == 403 and route.json:
-        assert response.get_json()["error"]["message"] != "Your role does not allow this."
+def test_the_needed_role_gets_the_real_answer(matrix_app, role_clients, route):
+    """With a real resource behind every id, the role a route needs gets that route's own answer:
+    never a role refusal, a 404 for a missing fixture, or a server error."""
+    path = _concrete(route.path, route.rule, matrix_app.matrix_resources)
+    response = role_clients[route.min_role].open(path, method=route.method)
+    assert response.status_code == _expected(route), (path, response.status_code, response.get_data()[:300])
+    if response.status_code == 403:
+        assert response.get_json()["error"]["message"] != ROLE_REFUSAL
 
 
 @pytest.fixture(scope="module")
@@ -410,3 +495,60 @@ def test_the_router_gives_the_page_to_the_needed_role(role_clients):
     assert pages, "no Dash page declares min_role"
     route = pages[0]
     assert "needs the" not in str(_router_request(role_clients[route.min_role], route.path))
+
+
+# --- projects: members and non-members ---------------------------------------------------
+
+PROJECT_PARTS = ("dataset_id", "model_id", "reference_model_id", "batch_id", "proposal_id", "view_id", "project_id")
+PROJECT_PAGES = tuple(f"page:webapp.web.pages.{name}"
+                      for name in ("dataset", "monitoring_model", "monitoring_batch", "views_open"))
+IN_PROJECT = [r for r in PROTECTED if (any(f":{part}>" in r.rule or f"<{part}>" in r.rule for part in PROJECT_PARTS)
+                                       or r.rule in PROJECT_PAGES) and r.min_role != "admin"]
+
+
+@pytest.fixture(scope="module")
+def outsiders(matrix_app, role_clients):
+    """One signed-in client per project role, each a member of a second project only."""
+    from types import SimpleNamespace
+
+    from webapp.services import projects
+
+    name, _ = add_user(matrix_app, "admin")
+    with matrix_app.app_context():
+        with session_scope() as s:
+            admin = accounts.get_user_by_name(s, name)
+            acting = SimpleNamespace(id=admin.id, name=admin.name, display_name=admin.display_name, role="admin")
+        other = projects.create_project("Other team", "", acting)  # the role clients stay in the first
+    clients = {}
+    for role in ("viewer", "analyst", "reviewer"):
+        user_name, password = add_user(matrix_app, role)
+        with matrix_app.app_context():
+            with session_scope() as s:
+                user_id = accounts.get_user_by_name(s, user_name).id
+            projects.set_member(other["id"], user_id, role, acting)
+        client = matrix_app.test_client()
+        assert login(client, user_name, password).status_code == 302
+        clients[role] = client
+    return clients
+
+
+def test_the_project_routes_are_found(outsiders):
+    assert len(IN_PROJECT) > 30 and {r.rule for r in IN_PROJECT} >= set(PROJECT_PAGES)
+
+
+@pytest.mark.parametrize("route", IN_PROJECT, ids=str)
+def test_a_non_member_finds_nothing_of_the_project(matrix_app, outsiders, route):
+    """OWASP Authorization Cheat Sheet: a resource of another project answers as one that does not
+    exist (404), whatever the caller's role, never 403."""
+    role = route.min_role or "viewer"
+    path = _concrete(route.path, route.rule, matrix_app.matrix_resources)
+    response = outsiders[role].open(path, method=route.method)
+    assert response.status_code == 404, (path, response.status_code, response.get_data()[:200])
+
+
+@pytest.mark.parametrize("route", [r for r in IN_PROJECT if r.min_role and r.method == "GET"], ids=str)
+def test_a_member_gets_the_real_answer(matrix_app, role_clients, outsiders, route):
+    """The same reads for a member of the project (after the second project exists)."""
+    path = _concrete(route.path, route.rule, matrix_app.matrix_resources)
+    response = role_clients[route.min_role].open(path, method=route.method)
+    assert response.status_code == _expected(route), (path, response.status_code)
