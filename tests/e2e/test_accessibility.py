@@ -239,6 +239,8 @@ def _page_visits(server, records: dict) -> dict[str, list]:
         url_state.batch_path_template(): [
             ("a checked batch", base + url_state.batch_url(records["batch"]), f"#{ids.MON_SAMPLES}", None)],
         "/admin": [("accounts and the admin log", base + "/admin", f"#{ids.ADMIN_USERS} table", None)],
+        "/admin/projects": [("projects and their members", base + "/admin/projects", f"#{ids.PROJECTS_TABLE} table",
+                             None)],
         "/account": [("my account", base + "/account", f"#{ids.ACCOUNT_SESSIONS} table", None)],
     }
 

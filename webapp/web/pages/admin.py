@@ -258,6 +258,7 @@ def layout(**_query) -> html.Div:
     return html.Div(
         [
             html.H1("Accounts"),
+            html.P(dcc.Link("Projects and their members", href="/admin/projects")),
             html.Section(
                 [html.H2("Users"),
                  html.P("Last sign-in: the newest browser sign-in of the last 90 days (sessions are kept that long).",

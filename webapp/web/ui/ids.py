@@ -254,3 +254,15 @@ ACCOUNT_TOKEN_CHOICE = "account-token-choice"
 ACCOUNT_TOKEN_REVOKE = "account-token-revoke"
 ADMIN_ONE_TIME_PASSWORD = "admin-one-time-password"  # shown once, after adding a user or a reset
 ACCOUNT_NEW_TOKEN = "account-new-token"  # shown once, after creating a token
+
+# /admin/projects
+PROJECTS_TABLE = "projects-table"
+PROJECT_NEW_NAME = "project-new-name"
+PROJECT_NEW_DESCRIPTION = "project-new-description"
+PROJECT_NEW_SUBMIT = "project-new-submit"
+PROJECT_NEW_MESSAGE = "project-new-message"
+PROJECT_MEMBER_PROJECT = "project-member-project"
+PROJECT_MEMBER_USER = "project-member-user"
+PROJECT_MEMBER_ROLE = "project-member-role"
+PROJECT_MEMBER_SUBMIT = "project-member-submit"
+PROJECT_MEMBER_MESSAGE = "project-member-message"
