@@ -9,7 +9,7 @@ from __future__ import annotations
 import pytest
 
 
-@pytest.mark.parametrize("path", ["/admin", "/datasets", "/datasets/1/extra", "/review/nope", "/views/1/2"])
+@pytest.mark.parametrize("path", ["/no-such-page", "/datasets", "/datasets/1/extra", "/review/nope", "/views/1/2"])
 def test_unknown_pages_answer_404_with_a_page(auth, client, path):
     auth.login("analyst")
     response = client.get(path)
