@@ -120,18 +120,20 @@ def project_for_upload(project_id, user_id: int) -> int:
     first dataset), else the only project the user belongs to; InputError naming project_id."""
     if project_id is not None:
         return check_id(project_id, "project_id")
-    with session_scope() as session:
-        sole = store.sole_project(session)
-        if sole is not None:
-            return sole.id
-        if not store.list_projects(session):
+    for _attempt in range(2):  # two first uploads at once: one makes the project, the other reads it
+        with session_scope() as session:
+            every = store.list_projects(session)  # one read, so the answer is consistent
+            if len(every) == 1:
+                return every[0].id
+            if every:
+                mine = store.memberships(session, user_id)
+                if len(mine) == 1:
+                    return next(iter(mine))
+                break
             try:
-                with session.begin_nested():  # two first uploads at once: one makes it, both use it
+                with session.begin_nested():
                     return store.add_project(session, FIRST_PROJECT, "The site's first project.", None).id
             except IntegrityError:
-                return store.project_named(session, FIRST_PROJECT).id
-        mine = store.memberships(session, user_id)
-        if len(mine) == 1:
-            return next(iter(mine))
+                continue
     raise InputError("project_id is required: say which of your projects the dataset belongs to",
                      field="project_id")
