@@ -501,7 +501,9 @@ def _sync(search, _clicks, applied, view_list, form_list, pathname, dataset_id):
         (Output(ids.FIT_PROGRESS, "style"), {"display": "inline-block"}, {"display": "none"}),
         (Output(ids.FIT_STATUS, "children"), "Fitting the model…", ""),
     ],
-    cancel=[Input(ids.DATASET_LOCATION, "pathname")],
+    # No cancel on a change of address: the page is rebuilt when its query changes, and the new
+    # address component's first value would kill the fit the rebuilt page has just started.
+    # A fit left behind by navigation ends on its own and warms the model cache.
 )
 def _run_fit(set_progress, applied, dataset_id):
     set_progress(1)
