@@ -4,4 +4,4 @@ Depends on numpy, scipy and pandas, and on scikit-learn (``MinCovDet``) for robu
 PCA only; never on web or storage code.
 """
 
-__version__ = "0.1.0"
+__version__ = "0.2.0"

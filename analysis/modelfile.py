@@ -308,6 +308,7 @@ def model_from_dict(document) -> PCAModel:
     model.n_samples_ = n
     model.n_missing_ = _require(document, "n_missing", int)
     model.n_iter_ = 0
+    model.imputation_ = None  # how the training data were completed is not part of the file
     model.solver_ = _require(document, "solver_used", str)
     model.n_components_ = a
     model.loadings_ = loadings

@@ -9,14 +9,25 @@ Solvers (all give the same numbers on complete data; checked against LAPACK SVD)
 - ``svd``: LAPACK SVD of the preprocessed data (the reference);
 - ``auto``: ``xtx`` when n >= p, else ``xxt``.
 
-With missing values (NaN) the model is fitted by iterative PCA imputation
-(Walczak & Massart 2001; Kiers 1997): missing cells start at the column mean,
-the A-component model is fitted, missing cells are replaced by the model's
-estimate, and this repeats until the estimates stop changing. The mean is
-re-estimated in every round. The final fit of the completed data gives every
-eigenvalue the data allow (needed by the SPE limit). Scores of new incomplete
-samples come from projection to the model plane (least squares on the
-observed variables; Nelson, Taylor & MacGregor 1996).
+With missing values (NaN) the model is fitted by iterative PCA imputation:
+missing cells start at the column mean, the A-component model is fitted,
+missing cells are replaced by the model's estimate, and this repeats until
+the estimates stop changing; the mean is re-estimated in every round.
+``imputation="regularised"`` (the default; Josse & Husson 2012) shrinks each
+component's part of the estimate by (lambda_a - sigma2) / lambda_a, sigma2
+the noise variance per cell from the discarded sum of squares, so components
+that carry mostly noise cannot chase their own imputations (the over-fitting
+that makes the classical method, ``"iterative"``, Walczak & Massart 2001;
+Kiers 1997, slow and optimistic when A is too large). The rounds are
+accelerated by SQUAREM (Varadhan & Roland 2008). Stopping rule: the RMS
+change of the imputed cells in one round is at most IMPUTATION_RTOL times
+the RMS of the observed preprocessed cells. The table is completed in
+place; each round needs only the A leading eigenvectors. The final fit of
+the completed data gives every eigenvalue the data allow (needed by the
+SPE limit). Every incomplete sample, training or new, is scored by
+projection of its observed values to the model plane (least squares on the
+observed variables; Nelson, Taylor & MacGregor 1996), so a training sample
+gets the same T2 and SPE when it is checked again later.
 
 Conventions: eigenvalue lambda_a = t_a't_a / (n-1); the explained variance
 ratio is relative to the total sum of squares of the preprocessed training
@@ -28,8 +39,14 @@ References
 Jolliffe, I.T. (2002) Principal Component Analysis, 2nd ed. Springer.
 Walczak, B., Massart, D.L. (2001) Dealing with missing data: Part I.
     Chemometrics and Intelligent Laboratory Systems 58, 15-27.
+Josse, J., Husson, F. (2012) Handling missing values in exploratory
+    multivariate data analysis methods. Journal de la Societe Francaise de
+    Statistique 153(2), 79-99.
 Kiers, H.A.L. (1997) Weighted least squares fitting using ordinary least
     squares algorithms. Psychometrika 62, 251-266.
+Varadhan, R., Roland, C. (2008) Simple and globally convergent methods for
+    accelerating the convergence of any EM algorithm. Scandinavian Journal of
+    Statistics 35, 335-353.
 Nelson, P.R.C., Taylor, P.A., MacGregor, J.F. (1996) Missing data methods in
     PCA and PLS: score calculations with incomplete observations.
     Chemometrics and Intelligent Laboratory Systems 35, 45-65.
@@ -41,6 +58,7 @@ import functools
 
 import numpy as np
 import pandas as pd
+from scipy import linalg
 
 from analysis import diagnostics
 from analysis.errors import InputError
@@ -57,8 +75,13 @@ from analysis.preprocessing import (
 )
 
 SOLVERS = ("auto", "xtx", "xxt", "svd")
-IMPUTATION_TOL = 1e-20  # squared change of imputed cells per round, relative to the total sum of squares
-IMPUTATION_MAX_ITER = 5000
+IMPUTATIONS = ("regularised", "iterative")
+# Stop when the imputed cells move by less than a millionth of the data's RMS in a round: far below
+# the 3-4 significant digits a lab or survey value carries, so the model no longer depends on it.
+IMPUTATION_RTOL = 1e-6
+IMPUTATION_MAX_ROUNDS = 1000
+# P_o'P_o better conditioned than this is solved directly (>= 12 digits); worse goes to lstsq.
+PROJECTION_COND_LIMIT = 1e4
 SIGN_TIE = 1e-9  # loading magnitudes closer than this are tied for the sign convention
 CANCELLATION_GUARD = 1e-4  # SPE below this share of ||z||^2 is recomputed from the residual
 RANK_RTOL_FACTOR = 10.0  # eigenvalues below lambda_max * 10 * max(n, p) * eps are rounding noise
@@ -80,6 +103,8 @@ class PCAModel:
     drop_constant : bool
         Drop variables that cannot be scaled (with a warning) instead of
         raising InputError.
+    imputation : {"regularised", "iterative"}
+        Missing-value method (module docstring).
 
     Attributes
     ----------
@@ -96,7 +121,9 @@ class PCAModel:
                                           (default sample ids "1", "2", ... are built on first use)
     warnings_ : list[str]
     solver_ : str                         solver used ("imputation+..." with missing values)
-    n_samples_, n_components_, n_missing_, n_iter_ : int
+    n_samples_, n_components_, n_missing_, n_iter_ : int   (n_iter_: imputation rounds)
+    imputation_ : dict or None            with missing values: method, rounds, tolerance,
+                                          achieved (last round's relative RMS change), converged
 
     References
     ----------
@@ -111,6 +138,7 @@ class PCAModel:
         solver: str = "auto",
         confidence: float = 0.95,
         drop_constant: bool = False,
+        imputation: str = "regularised",
     ):
         self.n_components = n_components
         self.scaling = scaling
@@ -118,6 +146,7 @@ class PCAModel:
         self.solver = solver
         self.confidence = confidence
         self.drop_constant = drop_constant
+        self.imputation = imputation
 
     # ------------------------------------------------------------------ fit
     def fit(self, X, sample_ids=None, variable_names=None) -> PCAModel:
@@ -140,6 +169,8 @@ class PCAModel:
             raise InputError(f"solver={self.solver!r} is not one of {', '.join(SOLVERS)}")
         if self.scaling not in SCALINGS:
             raise InputError(f"scaling={self.scaling!r} is not one of {', '.join(SCALINGS)}")
+        if self.imputation not in IMPUTATIONS:
+            raise InputError(f"imputation={self.imputation!r} is not one of {', '.join(IMPUTATIONS)}")
         diagnostics.check_confidence(self.confidence)
         a = self.n_components
         if isinstance(a, bool) or not isinstance(a, (int, np.integer)) or a < 1:
@@ -181,6 +212,7 @@ class PCAModel:
         self.n_samples_ = n
         self.n_missing_ = n_missing
         self.n_iter_ = 0
+        self.imputation_ = None
         p = values.shape[1]
         limit = min(n - 1, p) if self.scaling != "none" else min(n, p)
         if a > limit:
@@ -190,7 +222,7 @@ class PCAModel:
 
         if n_missing:
             z = self.preprocess(values)
-            z, mask = self._impute(z, missing, a, solver)
+            self._impute(z, missing, a, solver)
             fit = _decompose_full(z, solver)
             self.solver_ = f"imputation+{solver}"
         elif fused:
@@ -211,8 +243,10 @@ class PCAModel:
             )
         loadings = _sign_convention(fit.loadings(a))
         if n_missing:
-            scores = z @ loadings
-            residual_ss = _residual_ss(z, scores, loadings, mask=mask)
+            z[missing] = np.nan  # score the observed values, as for a new sample
+            scores = _project(z, loadings)
+            z -= scores @ loadings.T
+            residual_ss = diagnostics.spe_contributions(z).sum(axis=1)
         else:
             scores, residual_ss = _scores_and_spe_blocks(
                 values, self._log_mask(), self.mean_, self.scale_, loadings, complete=True
@@ -245,36 +279,86 @@ class PCAModel:
             raise AttributeError("sample_ids_ is set by fit")
         return default_sample_ids(self.n_samples_)
 
-    def _impute(self, z: np.ndarray, missing: np.ndarray, a: int, solver: str):
-        """Iterative PCA imputation (Walczak & Massart 2001); returns completed, centred z."""
+    def _impute(self, z: np.ndarray, missing: np.ndarray, a: int, solver: str) -> None:
+        """Complete the preprocessed z in place by (regularised) iterative PCA imputation and
+        centre it; the completed-data mean goes into ``mean_`` (module docstring).
+
+        One round maps the imputed values x to the model's estimate F(x). Only those cells
+        change, so the column means follow from x and the centring stays implicit (z holds
+        values centred on the observed means: no digits cancel); the table is written only at
+        the imputed cells. The rounds are accelerated by SQUAREM (Varadhan & Roland 2008,
+        scheme S3): two rounds give r = F(x) - x and v = F(F(x)) - 2F(x) + x, the next x is
+        x - 2 alpha r + alpha^2 v with alpha = min(-|r| / |v|, -1); an extrapolation that makes
+        the change grow tenfold is dropped for the plain second round.
+        """
         centred = self.scaling != "none"
-        col_mean = np.nanmean(z, axis=0)
-        z = np.where(missing, col_mean, z)
+        n, p = z.shape
         rows, cols = np.nonzero(missing)
-        converged = False
-        for iteration in range(1, IMPUTATION_MAX_ITER + 1):
-            m = z.mean(axis=0) if centred else np.zeros(z.shape[1])
-            zc = z - m
-            fit = _decompose_full(zc, solver)
-            p_a = fit.loadings(a)
-            t = zc @ p_a
-            estimate = m[cols] + np.einsum("ia,ia->i", t[rows], p_a[cols])
-            change = float(np.sum((estimate - z[rows, cols]) ** 2))
-            z[rows, cols] = estimate
-            self.n_iter_ = iteration
-            if change <= IMPUTATION_TOL * max(fit.total_ss, np.finfo(float).tiny):
-                converged = True
+        cells = np.ravel_multi_index((rows, cols), z.shape)
+        np.put(z, cells, 0.0)
+        observed_sum = z.sum(axis=0)
+        x = np.nanmean(np.where(missing, np.nan, z), axis=0)[cols]  # start: the observed column means
+        observed_ss = np.einsum("ij,ij->", z, z) - (observed_sum @ observed_sum) / n if centred else \
+            np.einsum("ij,ij->", z, z)
+        observed_rms = max(np.sqrt(observed_ss / (z.size - cells.size)), np.finfo(float).tiny)
+        # Degrees of freedom of the residual (Josse & Husson 2012, section 3.2): (n - 1 - A)(p - A).
+        df = (n - int(centred) - a) * (p - a)
+        regularised = self.imputation == "regularised" and df > 0
+
+        def estimate(values: np.ndarray) -> np.ndarray:
+            np.put(z, cells, values)
+            m = (observed_sum + np.bincount(cols, weights=values, minlength=p)) / n if centred else np.zeros(p)
+            top, loadings, total_ss = _leading_components(z, m, a, solver)
+            t = z @ loadings
+            t -= m @ loadings
+            if regularised:
+                sigma2_n = n * max(total_ss - top.sum(), 0.0) / df  # n * noise variance per cell
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    t *= np.clip(np.where(top > 0, 1.0 - sigma2_n / top, 0.0), 0.0, 1.0)
+            return np.einsum("ia,ia->i", t[rows], loadings[cols]) + m[cols]
+
+        def relative_rms(change: np.ndarray) -> float:
+            return float(np.sqrt(np.mean(change**2)) / observed_rms)
+
+        rounds, achieved, previous, fallback = 0, np.inf, np.inf, None
+        while rounds < IMPUTATION_MAX_ROUNDS:
+            x1 = estimate(x)
+            rounds += 1
+            r = x1 - x
+            achieved = relative_rms(r)
+            if fallback is not None and achieved > 10 * previous:  # the extrapolation went astray
+                x, fallback = fallback, None
+                continue
+            x = x1
+            if achieved <= IMPUTATION_RTOL or rounds == IMPUTATION_MAX_ROUNDS:
                 break
+            x2 = estimate(x1)
+            rounds += 1
+            v = x2 - 2 * x1 + (x1 - r)
+            norm_v = np.sqrt(v @ v)
+            previous, fallback = relative_rms(x2 - x1), x2
+            if norm_v == 0 or not np.isfinite(norm_v):
+                x, fallback = x2, None
+                continue
+            alpha = min(-np.sqrt(r @ r) / norm_v, -1.0)
+            x = (x1 - r) - 2 * alpha * r + alpha**2 * v
+        np.put(z, cells, x)
+        converged = achieved <= IMPUTATION_RTOL
+        self.n_iter_ = rounds
+        self.imputation_ = {"method": self.imputation, "rounds": rounds, "tolerance": IMPUTATION_RTOL,
+                            "achieved": achieved, "converged": converged}
         if not converged:
             self.warnings_.append(
-                f"missing-value imputation stopped after {IMPUTATION_MAX_ITER} rounds without converging"
+                f"missing-value imputation did not converge: after {rounds} rounds the imputed cells still "
+                f"moved by {achieved:.1e} of the data's RMS per round (tolerance {IMPUTATION_RTOL:.0e}); "
+                "the model may depend on where the imputation started. Fewer components or fewer "
+                "missing cells help."
             )
         if centred:
             shift = z.mean(axis=0)
             z -= shift
             # Keep transform() consistent: new data are centred on the completed-data mean.
             self.mean_ = self.mean_ + shift * self.scale_
-        return z, missing
 
     # ------------------------------------------------------------- new data
     def _log_mask(self) -> np.ndarray:
@@ -424,26 +508,71 @@ class _Decomposition:
 
 
 def _project(z: np.ndarray, loadings: np.ndarray) -> np.ndarray:
-    """Scores of preprocessed rows z; incomplete rows by projection to the model plane."""
+    """Scores of preprocessed rows z; incomplete rows by projection to the model plane.
+
+    Nelson, Taylor & MacGregor (1996): t = (P_o'P_o)^+ P_o'z_o over the observed
+    variables. P_o'P_o = P'P - P_m'P_m is built for all incomplete rows at once from
+    the missing variables and solved in one batch; rows where it is ill-conditioned
+    (PROJECTION_COND_LIMIT) are solved by least squares on P_o.
+    """
     if np.isfinite(z.sum()):
         return z @ loadings
     missing = np.isnan(z)
-    incomplete = missing.any(axis=1)
-    scores = np.empty((z.shape[0], loadings.shape[1]))
-    complete = ~incomplete
-    scores[complete] = z[complete] @ loadings
-    if incomplete.any():
-        patterns, inverse = np.unique(missing[incomplete], axis=0, return_inverse=True)
-        rows = np.flatnonzero(incomplete)
-        for k, pattern in enumerate(patterns):
-            obs = ~pattern
-            if not obs.any():
-                raise InputError("a sample with no values cannot be scored")
-            members = rows[inverse.ravel() == k]
-            # Nelson, Taylor & MacGregor (1996): t = (P_o'P_o)^+ P_o' z_o.
-            sol, *_ = np.linalg.lstsq(loadings[obs], z[np.ix_(members, obs)].T, rcond=None)
-            scores[members] = sol.T
+    rows = np.flatnonzero(missing.any(axis=1))
+    if missing[rows].all(axis=1).any():
+        raise InputError("a sample with no values cannot be scored")
+    scores = np.where(missing, 0.0, z) @ loadings  # P_o'z_o for every row
+    a = loadings.shape[1]
+    outer = (loadings[:, :, None] * loadings[:, None, :]).reshape(loadings.shape[0], a * a)
+    full_gram = loadings.T @ loadings
+    # With orthonormal loadings P_o'P_o = I - P_m'P_m, and lambda_max(P_m'P_m) <= trace(P_m'P_m),
+    # so a small sum of the missing variables' squared loadings proves the row well conditioned.
+    orthonormal = np.allclose(full_gram, np.eye(a), rtol=0, atol=1e-10)
+    trace_missing = missing[rows] @ np.einsum("ja,ja->j", loadings, loadings) if orthonormal else None
+    step = max(1, 2**22 // (a * a))  # about 32 MB of a x a matrices per block
+    for start in range(0, rows.size, step):
+        block = rows[start : start + step]
+        gram = full_gram[None] - (missing[block] @ outer).reshape(-1, a, a)
+        if orthonormal:
+            good = trace_missing[start : start + step] <= 1.0 - 1.0 / PROJECTION_COND_LIMIT
+        else:
+            good = np.zeros(block.size, dtype=bool)
+        unsure = np.flatnonzero(~good)
+        if unsure.size:
+            eig = np.linalg.eigvalsh(gram[unsure])
+            good[unsure] = eig[:, 0] * PROJECTION_COND_LIMIT > eig[:, -1]
+        solved = block[good]
+        scores[solved] = np.linalg.solve(gram[good], scores[solved][:, :, None])[:, :, 0]
+        for i in block[~good]:
+            obs = ~missing[i]
+            scores[i] = np.linalg.lstsq(loadings[obs], z[i, obs], rcond=None)[0]
     return scores
+
+
+def _leading_components(z: np.ndarray, m: np.ndarray, a: int, solver: str):
+    """The A largest eigen-sums of squares (descending) of z - 1m', their loadings and the total
+    sum of squares; z complete and preprocessed, m its column means (zeros: no centring). Only A
+    eigenvectors are computed (``scipy.linalg.eigh`` with ``subset_by_index``)."""
+    n, p = z.shape
+    if solver == "svd":  # the reference: LAPACK SVD of the explicitly centred table
+        _, s, vt = np.linalg.svd(z - m, full_matrices=False)
+        return s[:a] ** 2, vt[:a].T, float(np.sum(s**2))
+    if solver == "xtx":
+        gram = z.T @ z
+        gram -= n * np.outer(m, m)
+        w, v = linalg.eigh(gram, subset_by_index=[p - a, p - 1])
+        return np.clip(w[::-1], 0.0, None), v[:, ::-1], float(np.trace(gram))
+    # (z - 1m')(z - 1m')' = zz' - r1' - 1r' + (m'm) 11' with r = zm
+    gram = z @ z.T
+    r = z @ m
+    gram -= r[:, None]
+    gram -= r[None, :]
+    gram += m @ m
+    w, u = linalg.eigh(gram, subset_by_index=[n - a, n - 1])
+    u = u[:, ::-1]
+    p_a = z.T @ u - np.outer(m, u.sum(axis=0))
+    p_a /= np.maximum(np.linalg.norm(p_a, axis=0), np.finfo(float).tiny)
+    return np.clip(w[::-1], 0.0, None), p_a, float(np.trace(gram))
 
 
 def _scores_and_spe_blocks(values, log_mask, mean, scale, loadings, complete: bool):
@@ -560,11 +689,3 @@ def _sign_convention(loadings: np.ndarray) -> np.ndarray:
     signs = np.sign(loadings[idx, np.arange(loadings.shape[1])])
     signs[signs == 0] = 1.0
     return loadings * signs
-
-
-def _residual_ss(z, scores, loadings, mask=None) -> np.ndarray:
-    """Row sums of squared residuals z - TP', skipping masked (missing) cells."""
-    e = z - scores @ loadings.T
-    if mask is not None:
-        e[mask] = 0.0
-    return np.einsum("ij,ij->i", e, e)

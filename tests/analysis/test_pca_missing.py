@@ -1,11 +1,14 @@
-"""Missing values: iterative PCA imputation for fitting, projection for new samples."""
+"""Missing values: (regularised) iterative PCA imputation for fitting, projection for scoring."""
 
 from __future__ import annotations
+
+from unittest import mock
 
 import numpy as np
 import pytest
 from scipy import linalg
 
+from analysis import pca
 from analysis.pca import PCAModel
 
 N, P, A = 300, 20, 3
@@ -66,24 +69,118 @@ def test_loadings_close_to_complete_data_fit(fraction, max_degrees):
     assert model.spe_limit() > 0
 
 
-def test_imputation_matches_independent_reference():
-    # Walczak & Massart (2001): the converged iterative PCA fit, written independently above.
+def reference_regularised_imputation(X, a, iterations=3000):
+    """Independent reference written from Josse & Husson (2012), J. Soc. Fr. Stat. 153(2), 79-99,
+    section 3.2: as above, but the reconstruction is U diag(sqrt(n) (lambda_s - sigma2) / sqrt(lambda_s)) V'
+    with lambda_s = d_s^2 / n and sigma2 = sum_{s>A} d_s^2 / (np - p - nA - pA + A^2 + A)."""
+    mean, sd = np.nanmean(X, 0), np.nanstd(X, 0, ddof=1)
+    Z = (X - mean) / sd
+    miss = np.isnan(Z)
+    n, p = Z.shape
+    Z[miss] = 0.0
+    for _ in range(iterations):
+        m = Z.mean(0)
+        u, d, vt = np.linalg.svd(Z - m, full_matrices=False)
+        lam = d[:a] ** 2 / n
+        sigma2 = np.sum(d[a:] ** 2) / (n * p - p - n * a - p * a + a * a + a)
+        Z[miss] = (m + (u[:, :a] * (np.sqrt(n) * (lam - sigma2) / np.sqrt(lam))) @ vt[:a])[miss]
+    return vt[:a].T
+
+
+def reference_observed_least_squares(X, a, iterations=4000):
+    """The classical method's fixed point is the least-squares fit of mean + rank-A model to the
+    observed cells only (Kiers 1997, Psychometrika 62, 251-266). Reference that never imputes:
+    alternating least squares on the observed cells (criss-cross regression, Gabriel & Zamir 1979,
+    Technometrics 21, 489-498), rows then columns, each an ordinary regression on observed values."""
+    mean, sd = np.nanmean(X, 0), np.nanstd(X, 0, ddof=1)
+    Z = (X - mean) / sd
+    obs = ~np.isnan(Z)
+    n, p = Z.shape
+    rng = np.random.default_rng(0)
+    m, P = np.zeros(p), np.linalg.qr(rng.standard_normal((p, a)))[0]
+    T = np.zeros((n, a))
+    for _ in range(iterations):
+        for i in range(n):
+            o = obs[i]
+            T[i] = np.linalg.lstsq(P[o], Z[i, o] - m[o], rcond=None)[0]
+        design = np.column_stack([np.ones(n), T])
+        for j in range(p):
+            o = obs[:, j]
+            coef = np.linalg.lstsq(design[o], Z[o, j], rcond=None)[0]
+            m[j], P[j] = coef[0], coef[1:]
+    return np.linalg.qr(P)[0]
+
+
+def test_iterative_imputation_matches_independent_reference():
+    # Walczak & Massart (2001): the converged classical iterative PCA fit, written independently above.
+    X, _ = structured_data(4)
+    Xm = with_missing(X, 0.1, seed=5)
+    model = PCAModel(n_components=A, imputation="iterative").fit(Xm)
+    ref = reference_iterative_imputation(Xm, A)
+    assert model.imputation_["converged"] and model.imputation_["method"] == "iterative"
+    assert np.degrees(linalg.subspace_angles(model.loadings_, ref)).max() < 1e-4
+
+
+def test_iterative_imputation_is_the_least_squares_fit_of_the_observed_cells():
+    # Kiers (1997) / Gabriel & Zamir (1979): a solver that handles the missing cells without
+    # imputing them reaches the same subspace.
+    X, _ = structured_data(11)
+    Xm = with_missing(X[:120], 0.1, seed=12)
+    model = PCAModel(n_components=A, imputation="iterative").fit(Xm)
+    ref = reference_observed_least_squares(Xm, A, iterations=300)
+    assert np.degrees(linalg.subspace_angles(model.loadings_, ref)).max() < 1e-4
+
+
+def test_regularised_imputation_matches_independent_reference():
+    # Josse & Husson (2012), section 3.2, written independently above with numpy's SVD.
     X, _ = structured_data(4)
     Xm = with_missing(X, 0.1, seed=5)
     model = PCAModel(n_components=A).fit(Xm)
-    ref = reference_iterative_imputation(Xm, A)
-    assert np.degrees(linalg.subspace_angles(model.loadings_, ref)).max() < 1e-5
+    assert model.imputation_["method"] == "regularised" and model.imputation_["converged"]
+    ref = reference_regularised_imputation(Xm, A)
+    assert np.degrees(linalg.subspace_angles(model.loadings_, ref)).max() < 1e-4
 
 
-def test_training_diagnostics_with_missing_values_are_consistent():
-    # At convergence the imputed cells equal the model estimate, so training scores equal the
-    # projection of each incomplete row to the model plane (Nelson, Taylor & MacGregor 1996).
+def test_regularised_imputation_converges_in_few_rounds_where_noise_components_are_kept():
+    # Josse & Husson (2012), section 2.3: with more components than the data support, the classical
+    # method over-fits (its noise components chase their own imputations) and converges slowly; the
+    # regularised one does not. Three real components, eight kept.
+    X, _ = structured_data(13)
+    Xm = with_missing(X, 0.05, seed=14)
+    regularised = PCAModel(n_components=8).fit(Xm)
+    classical = PCAModel(n_components=8, imputation="iterative").fit(Xm)
+    assert regularised.imputation_["converged"]
+    assert regularised.imputation_["achieved"] <= pca.IMPUTATION_RTOL
+    assert regularised.n_iter_ < classical.n_iter_ / 3
+    # the over-fitted noise eigenvalues of the classical fit are larger than the regularised ones
+    assert classical.eigenvalues_[A:8].sum() > regularised.eigenvalues_[A:8].sum()
+
+
+def test_non_convergence_is_a_warning_not_a_silent_cap():
+    X, _ = structured_data(4)
+    Xm = with_missing(X, 0.1, seed=5)
+    with mock.patch.object(pca, "IMPUTATION_MAX_ROUNDS", 2):
+        model = PCAModel(n_components=A).fit(Xm)
+    assert model.imputation_["rounds"] == 2 and not model.imputation_["converged"]
+    assert model.imputation_["achieved"] > pca.IMPUTATION_RTOL
+    assert any("did not converge" in w and "after 2 rounds" in w for w in model.warnings_)
+
+
+def test_unknown_imputation_method_is_refused():
+    with pytest.raises(pca.InputError, match="imputation='mice' is not one of regularised, iterative"):
+        PCAModel(imputation="mice").fit(np.eye(3) + 1)
+
+
+@pytest.mark.parametrize("imputation", pca.IMPUTATIONS)
+def test_training_diagnostics_with_missing_values_are_consistent(imputation):
+    # Training samples are scored like new ones, by projection of the observed values to the
+    # model plane (Nelson, Taylor & MacGregor 1996), so checking one again gives the same numbers.
     X, _ = structured_data(6)
     Xm = with_missing(X, 0.2, seed=7)
-    model = PCAModel(n_components=A).fit(Xm)
-    np.testing.assert_allclose(model.transform(Xm), model.scores_, rtol=0, atol=1e-6)
-    np.testing.assert_allclose(model.hotelling_t2(Xm), model.t2_, rtol=1e-5)
-    np.testing.assert_allclose(model.spe(Xm), model.spe_, rtol=1e-5)
+    model = PCAModel(n_components=A, imputation=imputation).fit(Xm)
+    np.testing.assert_allclose(model.transform(Xm), model.scores_, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(model.hotelling_t2(Xm), model.t2_, rtol=1e-10)
+    np.testing.assert_allclose(model.spe(Xm), model.spe_, rtol=1e-10)
     # lambda_a = t_a't_a/(n-1) keeps sum T2 = (n-1)A (docs/references.md, "Checks that are theory").
     assert model.t2_.sum() == pytest.approx((N - 1) * A, rel=1e-10)
     assert not model.warnings_
@@ -115,3 +212,20 @@ def test_new_incomplete_samples_scored_by_projection():
     r = model.residuals(incomplete)
     assert np.array_equal(np.isnan(r), np.isnan(incomplete))
     np.testing.assert_allclose(model.spe(incomplete), np.nansum(r**2, axis=1))
+
+
+def test_projection_of_nearly_empty_rows_is_the_least_squares_solution():
+    # Rows with fewer observed variables than components (P_o'P_o singular) get the minimum-norm
+    # least-squares solution (Nelson, Taylor & MacGregor 1996, with the pseudo-inverse), computed
+    # by numpy.linalg.lstsq on the observed rows of P; the batch path agrees with it elsewhere.
+    X, _ = structured_data(8)
+    model = PCAModel(n_components=A).fit(X)
+    new = X[:40].copy()
+    new[:20, 2:] = np.nan  # two observed variables, three components
+    new[20:, ::3] = np.nan
+    scores = model.transform(new)
+    Z = model.preprocess(new)
+    for i in range(len(new)):
+        obs = ~np.isnan(Z[i])
+        expected = np.linalg.lstsq(model.loadings_[obs], Z[i, obs], rcond=None)[0]
+        np.testing.assert_allclose(scores[i], expected, rtol=1e-10, atol=1e-12)

@@ -520,3 +520,16 @@ def test_large_score_plot_sends_the_selection_by_patch(fitted, monkeypatch):
     for i in range(3):
         assert {"operation": "Assign", "location": ["data", i, "selectedpoints"], "params": {"value": None}} in ops
     assert not any(o["operation"] in ("Delete", "Insert") for o in ops)
+
+
+def test_fit_warnings_say_how_missing_cells_were_filled_and_when_it_did_not_converge():
+    # The non-convergence of the imputation is shown on the page, never a silent cap (common practice).
+    dataset, *_ = _pages()
+    result = {"ok": True, "n_missing": 12, "warnings": ["missing-value imputation did not converge: ..."],
+              "imputation": {"method": "regularised", "rounds": 1000, "tolerance": 1e-6, "achieved": 3e-4,
+                             "converged": False}}
+    shown = [li.children for li in dataset.fit_warnings(result).children]
+    assert shown[0].startswith("12 missing cells filled by regularised iterative PCA (Josse & Husson 2012): "
+                               "1000 rounds, last change 3.0e-04 of the data's RMS (tolerance 1e-06)")
+    assert shown[1].startswith("missing-value imputation did not converge")
+    assert dataset.fit_warnings({"ok": True, "n_missing": 0, "warnings": [], "imputation": None}) is None

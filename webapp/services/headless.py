@@ -182,6 +182,7 @@ def _summary(model, excluded: list[str], requested, rank: RankResult | None, con
         "excluded": excluded,
         "solver": model.solver_,
         "n_missing": int(model.n_missing_),
+        "imputation": getattr(model, "imputation_", None),
         "warnings": list(model.warnings_),
         "analysis_version": analysis.__version__,
         "fingerprint": None,

@@ -149,6 +149,7 @@ def describe(model: PCAModel | RobustPCAModel, confidence: float) -> dict[str, A
         "spe_limit": _finite(model.spe_limit(confidence)),
         "solver": model.solver_,
         "n_missing": int(model.n_missing_),
+        "imputation": getattr(model, "imputation_", None),
         "warnings": list(model.warnings_),
     }
     if robust:

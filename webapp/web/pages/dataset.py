@@ -240,7 +240,7 @@ def fit_summary(dataset_id: int, applied: dict | None, user_id: int | None = Non
         return {"ok": False, "error": str(exc)}
     keep = ("id", "fingerprint", "cache_hit", "settings", "excluded", "n_components", "n_samples",
             "n_variables", "variables", "dropped_variables", "explained_variance_ratio", "cumulative",
-            "eigenvalues", "confidence", "t2_limit", "spe_limit", "solver", "n_missing", "warnings",
+            "eigenvalues", "confidence", "t2_limit", "spe_limit", "solver", "n_missing", "imputation", "warnings",
             "what_if", "approved_exclusions", "method", "robust")
     result = {key: info.get(key) for key in keep}
     result.update(ok=True, rank=rank, dataset_id=int(dataset_id), seconds=round(time.perf_counter() - started, 3))
@@ -309,6 +309,7 @@ def _settings_form(dataset: dict, state: ViewState, can_fit: bool) -> html.Secti
                 className="ld-fit-line",
             ),
             html.Div(id=ids.SETTINGS_EXCLUDED, className="ld-excluded"),
+            html.Div(id=ids.FIT_WARNINGS, className="ld-fit-warnings"),
             html.Div(id=ids.FIT_ERROR, role="alert"),
         ],
         className="ld-panel ld-settings",
@@ -519,10 +520,28 @@ def _run_fit(set_progress, applied, dataset_id):
     Output(ids.SETTINGS_RECOMMENDATION, "children"),
     Output(ids.FIT_SOURCE, "children"),
     Output(ids.SETTINGS_EXCLUDED, "children"),
+    Output(ids.FIT_WARNINGS, "children"),
     Input(ids.FIT_RESULT, "data"),
 )
 def _fit_line(result):
-    return fit_line(result)
+    return *fit_line(result), fit_warnings(result)
+
+
+def fit_warnings(result: dict | None):
+    """The fit's warnings as a list, with how the missing cells were filled."""
+    if not result or not result.get("ok"):
+        return None
+    items = [html.Li(w) for w in result.get("warnings") or []]
+    imputation = result.get("imputation")
+    if imputation:
+        method = ("regularised iterative PCA (Josse & Husson 2012)" if imputation["method"] == "regularised"
+                  else "iterative PCA (Walczak & Massart 2001)")
+        items.insert(0, html.Li(
+            f"{result['n_missing']} missing cell{'s' if result['n_missing'] != 1 else ''} filled by {method}: "
+            f"{imputation['rounds']} rounds, last change {imputation['achieved']:.1e} of the data's RMS "
+            f"(tolerance {imputation['tolerance']:.0e}); samples are scored on their observed values."
+        ))
+    return html.Ul(items, className="ld-muted") if items else None
 
 
 def fit_line(result: dict | None):

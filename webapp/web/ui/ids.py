@@ -44,6 +44,7 @@ SETTINGS_RECOMMENDATION = "settings-recommendation"
 FIT_PROGRESS = "fit-progress"
 FIT_STATUS = "fit-status"
 FIT_ERROR = "fit-error"
+FIT_WARNINGS = "fit-warnings"  # the fit's warnings (dropped variables, imputation not converged, ...)
 FIT_RESULT = "fit-result"  # dcc.Store: model id, fingerprint and summary numbers of the fit on screen
 FIT_SOURCE = "fit-source"  # text: which model the plots show and whether it came from the cache
 VIEW_TABS = "view-tabs"
