@@ -59,6 +59,7 @@ import functools
 import numpy as np
 import pandas as pd
 from scipy import linalg
+from scipy.linalg import lapack
 
 from analysis import diagnostics
 from analysis.errors import InputError
@@ -637,8 +638,8 @@ def _from_gram_features(gram: np.ndarray, n: int) -> _Decomposition:
     return _Decomposition(w / (n - 1), lambda a: v[:, :a].copy(), float(np.trace(gram)), np.diag(gram).copy())
 
 
-# LAPACK through numpy (syevd for eigh, gesdd for svd): the same BLAS thread pool as the
-# matrix products, so no second pool competes for the cores.
+# LAPACK through numpy (syevd for eigh, gesdd for svd) and scipy (dsytrd, dstebz / dstein for the
+# wide solver's partial eigendecomposition).
 def _decompose_full(z: np.ndarray, solver: str) -> _Decomposition:
     """Decompose the preprocessed, complete matrix z with the named solver."""
     n, p = z.shape
@@ -650,14 +651,49 @@ def _decompose_full(z: np.ndarray, solver: str) -> _Decomposition:
         _, s, vt = np.linalg.svd(z, full_matrices=False)
         return _Decomposition(s**2 / (n - 1), lambda a: vt[:a].T.copy(), total_ss, column_ss)
     # xxt: eigenvectors u of ZZ' give loadings Z'u / ||Z'u|| (= Z'u / sigma).
-    w, u = np.linalg.eigh(z @ z.T)
-    w, u = np.clip(w[::-1], 0.0, None), u[:, ::-1]
+    w, leading = _partial_eigh(z @ z.T)
 
     def loadings(a: int) -> np.ndarray:
-        p_a = z.T @ u[:, :a]
+        p_a = z.T @ leading(a)
         return p_a / np.linalg.norm(p_a, axis=0)
 
     return _Decomposition(w / (n - 1), loadings, total_ss, column_ss)
+
+
+def _partial_eigh(gram: np.ndarray):
+    """Every eigenvalue of the symmetric ``gram`` (descending, clipped at 0) and a function giving
+    its k leading eigenvectors, from one Householder tridiagonalisation (LAPACK dsytrd).
+
+    The eigenvalues come from the tridiagonal matrix alone (``scipy.linalg.eigh_tridiagonal``),
+    the k eigenvectors by bisection and inverse iteration on it (LAPACK dstebz / dstein), carried
+    back with the Householder reflectors; so the cost of all n eigenvectors (syevd's
+    back-transformation and divide and conquer) is never paid. Each vector is checked by its
+    residual ||G u - lambda u|| <= 100 n eps lambda_max; one that fails sends the call to the
+    full LAPACK solver, so the result is as exact as numpy.linalg.eigh (Golub & Van Loan 2013,
+    Matrix Computations, 4th ed., sections 8.3-8.4).
+    """
+    n = gram.shape[0]
+    lwork = int(lapack.dsytrd_lwork(n, lower=1)[0])
+    reflectors, diagonal, off, tau, info = lapack.dsytrd(gram, lower=1, lwork=lwork)
+    if info != 0:
+        w, u = np.linalg.eigh(gram)
+        return np.clip(w[::-1], 0.0, None), lambda k: u[:, ::-1][:, :k].copy()
+    w = np.clip(linalg.eigh_tridiagonal(diagonal, off, eigvals_only=True)[::-1], 0.0, None)
+    reflectors = np.asfortranarray(reflectors)
+
+    def leading(k: int) -> np.ndarray:
+        values, y = linalg.eigh_tridiagonal(diagonal, off, select="i", select_range=(n - k, n - 1))
+        values, y = values[::-1], y[:, ::-1].copy()
+        for i in range(n - 2, -1, -1):  # y <- H(0) ... H(n-2) y, H(i) = I - tau_i v v'
+            v = reflectors[i + 1 :, i].copy()
+            v[0] = 1.0
+            y[i + 1 :] -= tau[i] * np.outer(v, v @ y[i + 1 :])
+        residual = np.linalg.norm(gram @ y - y * values, axis=0)
+        if residual.max(initial=0.0) > 100 * n * np.finfo(float).eps * max(w[0], np.finfo(float).tiny):
+            return np.linalg.eigh(gram)[1][:, ::-1][:, :k].copy()
+        return y
+
+    return w, leading
 
 
 def numerical_rank(eigenvalues: np.ndarray, n: int, p: int, centred: bool = True) -> int:

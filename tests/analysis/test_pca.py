@@ -124,6 +124,29 @@ def test_wide_data_match_lapack_svd(solver):
     assert_same_columns_up_to_sign(model.scores_, u[:, :5] * s[:5], rtol=1e-8)
 
 
+@pytest.mark.parametrize("rows", [40, 200])
+def test_wide_partial_eigensolver_matches_lapack_gesvd_on_digits(rows):
+    # Open dataset: scikit-learn's digits (8 x 8 images, 64 pixel variables), the first 40 images
+    # as a wide table (40 x 64) and 200 images with the pixels repeated in two blocks as 200 x 128
+    # (n < p). The xxt solver computes only the leading eigenvectors of ZZ' (analysis.pca.
+    # _partial_eigh); reference LAPACK gesvd (scipy.linalg.svd(lapack_driver="gesvd")) of the
+    # centred data. Eigenvalues, loadings and scores to 1e-10, relative to the largest eigenvalue.
+    from sklearn.datasets import load_digits
+
+    X = load_digits().data[:rows]
+    X = X if rows == 40 else np.hstack([X, 2 * X + 1])
+    X = X[:, X.std(axis=0) > 0]
+    Z = X - X.mean(axis=0)
+    u, s, vt = linalg.svd(Z, full_matrices=False, lapack_driver="gesvd")
+    lam = s**2 / (rows - 1)
+    model = PCAModel(n_components=10, scaling="center", solver="xxt").fit(X)
+    r = model.eigenvalues_.size
+    np.testing.assert_allclose(model.eigenvalues_, lam[:r], rtol=0, atol=1e-10 * lam[0])
+    assert np.all(lam[r:] <= 1e-10 * lam[0])  # what the rank cut left out is rounding noise
+    assert np.max(linalg.subspace_angles(model.loadings_, vt[:10].T)) < 1e-10
+    assert_same_columns_up_to_sign(model.scores_, u[:, :10] * s[:10], rtol=1e-10)
+
+
 def test_auto_solver_choice_by_shape():
     # Design choice (docs/design.md section 2): X'X for tall data, XX' for wide data.
     rng = np.random.default_rng(0)
