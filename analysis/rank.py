@@ -54,7 +54,7 @@ import pandas as pd
 from scipy import linalg
 
 from analysis.errors import InputError
-from analysis.pca import numerical_rank
+from analysis.pca import PCAModel, numerical_rank
 from analysis.preprocessing import Preprocessor, as_matrix, scale_block
 
 MAX_COMPONENTS = 20
@@ -126,6 +126,40 @@ class RankResult:
             "method": self.method,
             "notes": list(self.notes),
         }
+
+
+def with_model(rank: dict, model) -> dict:
+    """The table of ``rank`` (``RankResult.to_dict()``) with its eigenvalue, explained and cumulative
+    columns taken from a fitted classical ``model`` of the same samples and preprocessing, so the
+    table and the model show one number for one thing.
+
+    On complete data the values are the same to rounding. With missing cells the rules ran on a
+    preliminary decomposition of the mean-filled data (cross-validation leaves the missing cells
+    out); the model's columns replace those values and a note says so. A robust model (not a
+    PCAModel) leaves the table as it is: its table is that of a classical analysis.
+    """
+    if not isinstance(model, PCAModel):
+        return rank
+    eigenvalues = model.eigenvalues_
+    rows, cumulative = [], 0.0
+    for row in rank["table"]:
+        k = row["components"]
+        row = dict(row)
+        if k <= eigenvalues.size:
+            explained = float(eigenvalues[k - 1] / model.total_variance_)
+            cumulative += explained
+            row.update(eigenvalue=float(eigenvalues[k - 1]), explained=explained, cumulative=cumulative)
+        else:
+            row.update(eigenvalue=None, explained=None, cumulative=None)
+        rows.append(row)
+    notes = list(rank.get("notes") or [])
+    if model.n_missing_:
+        notes.append(
+            f"eigenvalue and explained columns: the fitted model ({model.n_components_} components, missing "
+            "cells filled by its imputation); parallel analysis compared the eigenvalues of a preliminary "
+            "decomposition with missing cells at their column means"
+        )
+    return {**rank, "table": rows, "notes": notes}
 
 
 def _finite_or_none(value):
@@ -415,8 +449,12 @@ def ekf_cross_validation(
 
     Missing cells are neither predicted nor used as predictors. With more
     than ``max_rows`` rows a seeded random subset of ``max_rows`` rows is
-    used. A is capped at p - 1 (a left-out cell needs one other cell per
-    component) and at the numerical rank of every training fold.
+    used. A is capped at p - 2 and at the numerical rank of every training
+    fold: a left-out cell is predicted through scores fitted to the row's
+    other p - 1 cells, and with A >= p - 1 components those cells are fitted
+    exactly (a square or under-determined system), so nothing checks the
+    prediction and its error is amplified without bound (common practice);
+    such counts are reported as not estimable.
 
     Returns
     -------
@@ -436,9 +474,12 @@ def ekf_cross_validation(
         notes.append(f"cross-validation used a random subset of {max_rows} of the {n} samples (seeded)")
         n = max_rows
     n_folds = min(int(n_folds), n)
-    limit = min(int(max_components), p - 1)
-    if p < 2:
-        return np.empty(0), notes + ["cross-validation needs at least 2 variables"]
+    limit = min(int(max_components), p - 2)
+    if p < 3:
+        return np.empty(0), notes + ["cross-validation needs at least 3 variables"]
+    if int(max_components) > limit:
+        notes.append(f"cross-validated value not estimable from {p - 1} components on: a row's other "
+                     f"{p - 1} cells then fix its scores exactly, so nothing checks the prediction")
     if n_folds < 3 or n - int(math.ceil(n / n_folds)) < 3:
         return np.empty(0), notes + ["cross-validation needs at least 4 samples"]
     folds = rng.permutation(n) % n_folds

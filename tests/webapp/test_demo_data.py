@@ -160,6 +160,25 @@ def test_intake_reads_both_files_without_options():
     assert sum(report.missing_counts.values()) == 90
 
 
+def test_lab_component_table_shows_the_fitted_models_numbers():
+    # One number for one thing on the lab demo (15 missing cells): the component-choice table that
+    # comes with an "auto" fit shows the fitted model's explained variance (the summary's
+    # explained_variance_ratio, the axis titles and the API use the same values), and the counts
+    # cross-validation cannot estimate (p - 1 = 9 and 10 of the 10 assays) are None, not a share.
+    from webapp.services.headless import fit_table
+
+    filename, raw = lab_scenario()
+    table, _ = read_table(raw, filename)
+    model, summary, _ = fit_table(table, components="auto")
+    rows = summary["rank"]["table"]
+    a = summary["n_components"]
+    assert [r["explained"] for r in rows[:a]] == summary["explained_variance_ratio"]
+    shown = [round(100 * v, 1) for v in model.explained_variance_ratio_]
+    assert [round(100 * r["explained"], 1) for r in rows[:a]] == shown
+    assert [r["cv_explained"] for r in rows[8:]] == [None] * (len(rows) - 8)
+    assert all(r["cv_explained"] is not None for r in rows[:8])
+
+
 def test_no_planted_sample_has_a_blank_cell():
     lab = _read(lab_scenario()[1]).set_index("Batch")
     survey = _read(survey_scenario()[1]).set_index("Respondent")

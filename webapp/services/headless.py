@@ -26,7 +26,7 @@ from analysis.errors import InputError
 from analysis.intake import read_table
 from analysis.modelfile import model_fingerprint, read_model_file, save_model
 from analysis.pca import PCAModel
-from analysis.rank import RankResult, choose_components
+from analysis.rank import RankResult, choose_components, with_model
 from analysis.robust import RobustPCAModel
 from webapp.services.exports import write_atomic, write_csv
 
@@ -193,7 +193,7 @@ def _summary(model, excluded: list[str], requested, rank: RankResult | None, con
     if rank is not None:
         summary["recommended_components"] = int(rank.recommended)
         summary["component_rule"] = rank.rule
-        summary["rank"] = rank.to_dict()
+        summary["rank"] = with_model(rank.to_dict(), model)
     return summary
 
 

@@ -26,8 +26,8 @@ import numpy as np
 import pandas as pd
 
 from analysis.diagnostics import explain_sample
-from analysis.errors import InputError
 from analysis.modelfile import model_fingerprint
+from analysis.rank import with_model
 from analysis.pca import PCAModel
 from analysis.robust import REGIONS, RobustPCAModel
 from analysis.table import Table
@@ -116,7 +116,7 @@ def _fit(cache: diskcache.Cache, dataset: Mapping[str, Any], settings: FitSettin
         model.warnings_.append(f"{model.n_components_} component(s): the number the component-choice table "
                                "recommends (a classical analysis of the same samples)")
     elif table_rank is not None:
-        rank = table_rank.to_dict()
+        rank = with_model(table_rank.to_dict(), model)
     return {"model": model, "rank": rank}
 
 

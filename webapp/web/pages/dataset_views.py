@@ -22,6 +22,7 @@ from dash import ALL, Input, Output, Patch, State, callback, clientside_callback
 from scipy import stats
 
 from analysis import diagnostics
+from analysis.rank import with_model
 from webapp.web.ui import figures, ids, plot_table
 from webapp.web.ui.graph_config import GRAPH_CONFIG
 from webapp.web.ui.grid_options import ONE_TAB_STOP
@@ -347,6 +348,7 @@ def variance_view(result: dict | None, rank: dict | None = None):
     rank = result.get("rank") or rank
     n_comp = model.scores_.shape[1]
     if rank and rank.get("table"):
+        rank = with_model(rank, model)  # the model on screen: one number for one thing
         rows = rank["table"]
         ratio = [r["explained"] for r in rows]
         cv = [r["cv_explained"] for r in rows]
@@ -375,15 +377,18 @@ def _num(value) -> str:
 
 
 def rank_table(rank: dict) -> html.Div:
-    """The component-choice table (``analysis.rank``) as a plain HTML table of text."""
+    """The component-choice table (``analysis.rank``) as a plain HTML table of text; a count
+    cross-validation could not estimate says so (the reason is in the notes below)."""
     rec = rank.get("recommended")
+    validated = any(row["cv_explained"] is not None for row in rank["table"])
     head = html.Tr([html.Th(h) for h in ("Components", "Eigenvalue", "Explained", "Cumulative",
                                          "Cumulative, cross-validated", "Parallel analysis threshold",
                                          "Broken stick share")])
     body = []
     for row in rank["table"]:
         cells = [row["components"], _num(row["eigenvalue"]), _pct(row["explained"]), _pct(row["cumulative"]),
-                 _pct(row["cv_explained"]), _num(row["parallel_threshold"]), _pct(row["broken_stick"])]
+                 _pct(row["cv_explained"]) if row["cv_explained"] is not None or not validated else "not estimable",
+                 _num(row["parallel_threshold"]), _pct(row["broken_stick"])]
         body.append(html.Tr([html.Td(str(c), className="ld-num") for c in cells],
                             className="ld-row-recommended" if row["components"] == rec else None))
     notes = [html.P(n, className="ld-muted") for n in rank.get("notes") or []]
