@@ -145,3 +145,29 @@ def test_a_job_of_a_dead_worker_is_not_running(tmp_path):
     assert manager.terminate_unhealthy_job(job)
     assert manager.handle.get(jobs._running_key(job)) is None
     assert not manager.job_running("not-a-job-id")
+
+
+def test_a_cancelled_job_never_removes_the_result_of_a_later_job_with_the_same_inputs(tmp_path):
+    # A page rebuilt while its fit runs starts the same fit again and cancels the first; the first
+    # finishing last must not delete the second's result (the page would wait for ever).
+    import threading
+
+    manager = _manager(tmp_path)
+    first_release, second_release = threading.Event(), threading.Event()
+
+    def fit(settings, release):
+        release.wait(10)
+        return f"fitted {settings}"
+
+    keys = [manager.build_cache_key(fit, ["same settings"], [], None) for _ in range(2)]
+    assert keys[0] != keys[1]
+    first = manager.call_job_fn(keys[0], manager.make_job_fn(lambda: fit("A", first_release), progress=False), [], {})
+    manager.terminate_job(first)
+    second = manager.call_job_fn(keys[1], manager.make_job_fn(lambda: fit("A", second_release), progress=False),
+                                 [], {})
+    second_release.set()
+    _wait_until(lambda: not manager.job_running(second))
+    first_release.set()
+    _wait_until(lambda: not manager.job_running(first))
+    assert manager.get_result(keys[1], second) == "fitted A"
+    assert manager.get_result(keys[0], first) is manager.UNDEFINED

@@ -50,6 +50,14 @@ class ThreadJobManager(dash.DiskcacheManager):
     context of the Flask app that started it.
     """
 
+    def build_cache_key(self, fn, args, cache_args_to_ignore, triggered):
+        """Dash's key plus a random suffix: one result slot per job. Two jobs started with the
+        same inputs (a page rebuilt while its first fit ran) would otherwise share a slot, and
+        the cancelled one, finishing last, would delete the other's result, leaving the page
+        waiting for a fit that never arrives. Results are read once (no ``cache_by``), so no
+        memoisation is lost."""
+        return f"{super().build_cache_key(fn, args, cache_args_to_ignore, triggered)}-{uuid.uuid4().hex}"
+
     def call_job_fn(self, key, job_fn, args, context):
         job = f"{os.getpid()}-{uuid.uuid4().hex}"
         app = flask.current_app._get_current_object() if flask.has_app_context() else None
