@@ -16,7 +16,9 @@ count, and one of them decides the recommendation:
   the usual leave-one-out identity of least squares.
 * Parallel analysis (Horn 1965): a component is worth keeping while its
   eigenvalue exceeds the 95th percentile of the same eigenvalue of seeded
-  random normal data of the same shape, preprocessed the same way.
+  random normal data of the same shape, preprocessed the same way (for tall
+  data drawn through the Wishart distribution of its cross-product, Bartlett
+  1933).
 * Broken stick (Jackson 1993): the expected share of component k among p if
   the total variance were split at random, (1/p) * sum_{i=k..p} 1/i.
 
@@ -40,6 +42,10 @@ component models: a critical look at current methods. Analytical and
 Bioanalytical Chemistry 390, 1241-1251.
 Horn, J.L. (1965) A rationale and test for the number of factors in factor
 analysis. Psychometrika 30, 179-185.
+Bartlett, M.S. (1933) On the theory of statistical regression. Proceedings
+of the Royal Society of Edinburgh 53, 260-283.
+Anderson, T.W. (2003) An Introduction to Multivariate Statistical Analysis,
+3rd ed. Wiley.
 Jackson, D.A. (1993) Stopping rules in principal components analysis: a
 comparison of heuristical and statistical approaches. Ecology 74(8), 2204-2214.
 """
@@ -212,7 +218,8 @@ def _preprocess(X, scaling, log10, drop_constant=False) -> np.ndarray:
     """The data as PCAModel preprocesses them before fitting (log10, centring, scaling; NaN kept)."""
     values, ids, names = as_matrix(X)
     prep = Preprocessor(scaling, log10, drop_constant).fit(values, ids, names)
-    return scale_block(values[:, prep.keep_], prep.log_mask_, prep.mean_, prep.scale_)
+    kept = values if prep.keep_.all() else values[:, prep.keep_]  # no copy unless a variable was dropped
+    return scale_block(kept, prep.log_mask_, prep.mean_, prep.scale_)
 
 
 def rank_table(Z, scaling, max_components=MAX_COMPONENTS, random_state=0) -> RankResult:
@@ -224,10 +231,7 @@ def rank_table(Z, scaling, max_components=MAX_COMPONENTS, random_state=0) -> Ran
     Z = np.asarray(Z, dtype=np.float64)
     n, p = Z.shape
     notes: list[str] = []
-    imputed = mean_imputed(Z) if np.isnan(Z).any() else Z
-    eigenvalues = data_eigenvalues(imputed, max_components)
-    total = float(np.einsum("ij,ij->", imputed, imputed)) / max(n - 1, 1)
-    del imputed
+    eigenvalues, total = _mean_filled_eigenvalues(Z, max_components)
     rank = numerical_rank(eigenvalues, n, p, centred=scaling != "none")
     n_rows = min(max_components, rank)
     if n_rows < 1:
@@ -326,6 +330,24 @@ def mean_imputed(Z) -> np.ndarray:
     return Z
 
 
+def _mean_filled_eigenvalues(Z: np.ndarray, k: int) -> tuple[np.ndarray, float]:
+    """Largest k eigenvalues and the total variance of Z with missing cells at their column
+    means; tall data accumulate the cross-product over row blocks (no copy of Z)."""
+    n, p = Z.shape
+    if n < p:
+        filled = mean_imputed(Z) if np.isnan(Z).any() else Z
+        return data_eigenvalues(filled, k), float(np.einsum("ij,ij->", filled, filled)) / max(n - 1, 1)
+    means, _ = _observed_column_stats(Z)
+    gram = np.zeros((p, p))
+    for start in range(0, n, _CHUNK_ROWS):
+        block = Z[start : start + _CHUNK_ROWS]
+        missing = np.isnan(block)
+        if missing.any():
+            block = np.where(missing, means, block)
+        gram += block.T @ block
+    return _gram_eigenvalues(gram, n, k), float(np.trace(gram)) / max(n - 1, 1)
+
+
 def data_eigenvalues(Z, k=None) -> np.ndarray:
     """Largest k (default all min(n, p)) eigenvalues lambda = t't/(n-1) of complete data, descending."""
     Z = np.asarray(Z, dtype=np.float64)
@@ -372,54 +394,89 @@ def parallel_analysis(
     These are distributed as random normal columns with the data's mean and
     spread before scaling, put through the same scaling. The threshold of
     component a is the ``quantile`` percentile of the a-th eigenvalue over the
-    simulations. Without ``n_simulations`` the count is 100, lowered (not
-    below 5) to keep the work bounded on large data, where the random
-    eigenvalues scatter less and fewer simulations pin the percentile down.
+    simulations.
+
+    Tall data (n - 1 >= p) never draw N: its centred cross-product N'HN is
+    Wishart(n - 1, I_p) and independent of the column sums u = N'1 ~ N(0, n I_p)
+    (Anderson 2003, An Introduction to Multivariate Statistical Analysis, 3rd ed.,
+    sections 3.3 and 7.2), so each simulation draws the p x p Wishart matrix by
+    Bartlett's (1933) decomposition and u, at O(p^2) random numbers instead of
+    n p, and every preprocessing above follows from them. Wide data draw N
+    itself. Without ``n_simulations`` the count is 100, lowered (not below 5)
+    to keep the work bounded where N must be drawn for large data, where the
+    random eigenvalues scatter less and fewer simulations pin the percentile
+    down. The column statistics of ``Z`` are computed in row blocks, so no
+    copy of the data is made.
     """
     Z = np.asarray(Z, dtype=np.float64)
     n, p = Z.shape
     if scaling not in ("none", "center", "autoscale", "pareto"):
         raise InputError(f"unknown scaling {scaling!r}; use none, center, autoscale or pareto")
-    observed = ~np.isnan(Z)
-    counts = observed.sum(axis=0)
-    means = np.where(counts > 0, np.nansum(Z, axis=0) / np.maximum(counts, 1), 0.0)
-    deviations = np.where(observed, Z - means, 0.0)
-    spreads = np.sqrt(np.divide((deviations**2).sum(axis=0), counts - 1, out=np.zeros(p), where=counts > 1))
+    means, spreads = _observed_column_stats(Z)
+    bartlett = n - 1 >= p
     if n_simulations is None:
-        work = float(n) * p * min(n, p)
+        work = float(p) ** 3 if bartlett else float(n) * p * min(n, p)
         n_simulations = int(np.clip(PA_WORK_BUDGET // max(work, 1.0), PA_MIN_SIMULATIONS, PA_MAX_SIMULATIONS))
     rng = np.random.default_rng(random_state)
+    draw = _random_eigenvalues_tall if bartlett else _random_eigenvalues_wide
     simulated = np.empty((n_simulations, n_components))
     for s in range(n_simulations):
-        simulated[s] = _random_eigenvalues(rng, n, p, means, spreads, scaling, n_components)
+        simulated[s] = draw(rng, n, p, means, spreads, scaling, n_components)
     return np.percentile(simulated, quantile, axis=0)
 
 
-def _random_eigenvalues(rng, n, p, means, spreads, scaling, k) -> np.ndarray:
-    """Largest k eigenvalues of one preprocessed random normal matrix (see parallel_analysis)."""
-    if n < p:
-        N = rng.standard_normal((n, p))
-        if scaling == "none":
-            R = means + spreads * N
-        else:
-            centred = N - N.mean(axis=0)
-            R = centred * _column_factors(centred.std(axis=0, ddof=1), spreads, scaling)
-        return _gram_eigenvalues(R @ R.T, n, k)
-    # Tall data: accumulate N'N and the column sums chunk by chunk, so memory stays O(p^2).
-    gram = np.zeros((p, p))
-    sums = np.zeros(p)
+def _observed_column_stats(Z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Mean and SD (ddof=1) of the observed cells of each column (0 where undefined), in two
+    passes over row blocks (mean, then squared deviations), so no copy of Z is made."""
+    n, p = Z.shape
+    counts, sums = np.zeros(p), np.zeros(p)
     for start in range(0, n, _CHUNK_ROWS):
-        N = rng.standard_normal((min(_CHUNK_ROWS, n - start), p))
-        gram += N.T @ N
-        sums += N.sum(axis=0)
+        block = Z[start : start + _CHUNK_ROWS]
+        observed = ~np.isnan(block)
+        counts += observed.sum(axis=0)
+        sums += np.where(observed, block, 0.0).sum(axis=0)
+    means = np.where(counts > 0, sums / np.maximum(counts, 1), 0.0)
+    squares = np.zeros(p)
+    for start in range(0, n, _CHUNK_ROWS):
+        deviations = Z[start : start + _CHUNK_ROWS] - means
+        squares += np.where(np.isnan(deviations), 0.0, deviations * deviations).sum(axis=0)
+    spreads = np.sqrt(np.divide(squares, counts - 1, out=np.zeros(p), where=counts > 1))
+    return means, spreads
+
+
+def _wishart_identity(rng, df: int, p: int) -> np.ndarray:
+    """One Wishart(df, I_p) matrix by Bartlett's (1933) decomposition W = L L': L lower triangular,
+    L_ii = sqrt(chi-square with df - i degrees of freedom), i = 0..p-1, L_ij ~ N(0, 1) for i > j
+    (Anderson 2003, section 7.2). Needs df >= p."""
+    lower = np.tril(rng.standard_normal((p, p)), -1)
+    lower[np.diag_indices(p)] = np.sqrt(rng.chisquare(df - np.arange(p)))
+    return lower @ lower.T
+
+
+def _random_eigenvalues_tall(rng, n, p, means, spreads, scaling, k) -> np.ndarray:
+    """Largest k eigenvalues of one preprocessed random normal (n, p) matrix, n - 1 >= p, from its
+    Wishart cross-product and column sums (see parallel_analysis)."""
+    centred = _wishart_identity(rng, n - 1, p)  # N'HN
     if scaling == "none":
-        # R = m + s N, so R'R = S N'N S + S u m' + m u' S + n m m' with u = N'1.
+        # R = m + s N, so R'R = S N'N S + S u m' + m u' S + n m m' with N'N = N'HN + u u'/n, u = N'1.
+        sums = np.sqrt(n) * rng.standard_normal(p)
+        gram = centred + np.outer(sums, sums) / n
         scaled = spreads[:, None] * gram * spreads[None, :]
         cross = np.outer(spreads * sums, means)
         return _gram_eigenvalues(scaled + cross + cross.T + n * np.outer(means, means), n, k)
-    centred = gram - np.outer(sums, sums) / n
     factors = _column_factors(np.sqrt(np.clip(np.diag(centred), 0.0, None) / (n - 1)), spreads, scaling)
     return _gram_eigenvalues(factors[:, None] * centred * factors[None, :], n, k)
+
+
+def _random_eigenvalues_wide(rng, n, p, means, spreads, scaling, k) -> np.ndarray:
+    """Largest k eigenvalues of one preprocessed random normal (n, p) matrix drawn in full."""
+    N = rng.standard_normal((n, p))
+    if scaling == "none":
+        R = means + spreads * N
+    else:
+        centred = N - N.mean(axis=0)
+        R = centred * _column_factors(centred.std(axis=0, ddof=1), spreads, scaling)
+    return _gram_eigenvalues(R @ R.T if n < p else R.T @ R, n, k)
 
 
 def _column_factors(random_sd, spreads, scaling) -> np.ndarray:
