@@ -224,3 +224,24 @@ def test_html_report_links_to_its_pdf_twin(client, team, signed, query):
     assert target == url_state.signoff_report_pdf_url(dataset_id, proposal["id"] if query else None)
     response = client.get(target, headers=team["viewer"].headers)
     assert response.status_code == 200 and response.get_data().startswith(b"%PDF")
+
+
+def test_both_formats_say_which_method_flags_each_excluded_sample(app, client, team, signed):
+    # The proposal's stored method support (classical T2/SPE and robust ROBPCA distances, Hubert,
+    # Rousseeuw & Vanden Branden 2005) goes on paper, so the signed record shows what backed it.
+    from webapp.services.signoff_report import report_data
+
+    dataset_id, proposal, _ = signed
+    stored = proposal["comparison"]["methods"]
+    with app.app_context():
+        (only,) = report_data(dataset_id)["proposals"]
+    shown = only["comparison"]["methods"]
+    assert [r["sample"] for r in shown["rows"]] == [r["sample"] for r in stored["samples"]] == ["W-003"]
+    assert shown["rows"][0]["supported_by"] == stored["samples"][0]["supported_by"]
+    assert "limits at 95%" in shown["note"]
+    html_text = client.get(f"/-/review/datasets/{dataset_id}/report", headers=team["viewer"].headers).get_data(
+        as_text=True)
+    assert "Which method flags each sample" in html_text and stored["samples"][0]["supported_by"] in html_text
+    text = _text(PdfReader(io.BytesIO(_pdf(client, team["viewer"], dataset_id).data)))
+    assert "Which method flags each sample" in text
+    assert _flat(stored["samples"][0]["supported_by"]) in _flat(text)

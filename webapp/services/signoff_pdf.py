@@ -196,6 +196,18 @@ def _comparison(c: Mapping[str, Any] | None, s: _Styles, font: str) -> list:
         ))
     else:
         out.append(Paragraph("No sample crosses a T² or SPE limit between the two fits.", s.muted))
+    if c.get("methods"):
+        out.append(Spacer(0, 6))
+        out.append(Paragraph("Which method flags each sample", s.head))
+        out.append(_table(
+            [[Paragraph(h, s.head) for h in ("sample", "classical fit (T², SPE)",
+                                            "robust fit (score and orthogonal distance)", "supported by")]]
+            + [[Paragraph(_t(r["sample"]), s.small), Paragraph(_t(r["classical"]), s.small),
+                Paragraph(_t(r["robust"]), s.small), Paragraph(_t(r["supported_by"]), s.small)]
+               for r in c["methods"]["rows"]],
+            [34 * mm, 36 * mm, 44 * mm, WIDTH - 114 * mm],
+        ))
+        out.append(Paragraph(_t(c["methods"]["note"]), s.muted))
     return out
 
 

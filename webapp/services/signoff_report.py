@@ -112,7 +112,28 @@ def _comparison(stored: Mapping[str, Any] | None) -> dict[str, Any] | None:
         "explained": list(compared.get("explained", [])),
         "principal_angles": list(compared.get("principal_angles") or []),
         "crossings": list(compared.get("crossings") or []),
+        "methods": method_support(stored.get("methods")),
     }
+
+
+def _flag_text(flag) -> str:
+    return "–" if flag is None else ("beyond a limit" if flag else "within the limits")
+
+
+def method_support(support: Mapping[str, Any] | None) -> dict[str, Any] | None:
+    """Which method flags each proposed sample (``method_comparison.proposal_support``), as the
+    report prints it: rows of sample, classical, robust, supported by; and the note under them.
+    None for a proposal stored before the robust option existed."""
+    if not support:
+        return None
+    level = f"{100 * float(support['confidence']):g}%"
+    note = (f"Both fits of the current model, {support['n_components']} component(s), limits at {level}; "
+            "robust: ROBPCA score and orthogonal distances (Hubert, Rousseeuw & Vanden Branden 2005).")
+    if support.get("robust_error"):
+        note += f" No robust fit: {support['robust_error']}"
+    rows = [{"sample": r["sample"], "classical": _flag_text(r["classical"]), "robust": _flag_text(r["robust"]),
+             "supported_by": r["supported_by"]} for r in support["samples"]]
+    return {"rows": rows, "note": note}
 
 
 def _entries_by_proposal(entries: list[Mapping[str, Any]]) -> dict[int, list[dict[str, Any]]]:
@@ -136,8 +157,8 @@ def report_data(dataset_id: int, proposal_id: int | None = None, *, printed_by: 
     the decided proposals of the dataset (or the one asked for), each with id, action,
     samples, state, proposed_by_name, created_at, reason_category, reason,
     ``comparison`` (before/after fingerprint,
-    n_samples and excluded; explained, principal_angles, crossings; None if none was
-    stored), ``sign_off`` (printed_name, signed_at, meaning, comment; None if unsigned)
+    n_samples and excluded; explained, principal_angles, crossings; ``methods``, which
+    method flags each proposed sample, see ``method_support``; None if none was stored), ``sign_off`` (printed_name, signed_at, meaning, comment; None if unsigned)
     and ``entries`` (its review-log entries: seq, at, actor_name, action, summary).
 
     Raises ``ingest.DatasetNotFound`` and ``review.ProposalNotFound`` (also for a

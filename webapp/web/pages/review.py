@@ -44,22 +44,17 @@ def _num(value) -> str:
     return "–" if value is None else f"{float(value):.3g}"
 
 
-def _yes_no(flag) -> str:
-    return "–" if flag is None else ("beyond a limit" if flag else "within the limits")
-
-
 def method_support_block(support: Mapping[str, Any] | None) -> html.Div | None:
     """Which method flags each proposed sample: the classical fit (T², SPE), the robust fit
-    (ROBPCA score and orthogonal distances, Hubert, Rousseeuw & Vanden Branden 2005), both or neither."""
-    if not support:
+    (ROBPCA score and orthogonal distances, Hubert, Rousseeuw & Vanden Branden 2005), both or
+    neither; the same rows and note as the sign-off report (``signoff_report.method_support``)."""
+    from webapp.services import signoff_report
+
+    shown = signoff_report.method_support(support)
+    if not shown:
         return None  # stored before the robust option existed
-    level = f"{100 * float(support['confidence']):g}%"
-    rows = [
-        html.Tr([html.Td(r["sample"]), html.Td(_yes_no(r["classical"])), html.Td(_yes_no(r["robust"])),
-                 html.Td(html.Strong(r["supported_by"]))])
-        for r in support["samples"]
-    ]
-    note = support.get("robust_error")
+    rows = [html.Tr([html.Td(r["sample"]), html.Td(r["classical"]), html.Td(r["robust"]),
+                     html.Td(html.Strong(r["supported_by"]))]) for r in shown["rows"]]
     return html.Div(
         [
             html.H3("Which method flags each sample", className="ld-subhead"),
@@ -70,8 +65,7 @@ def method_support_block(support: Mapping[str, Any] | None) -> html.Div | None:
                  html.Tbody(rows)],
                 className="ld-table ld-method-support",
             ),
-            html.P(f"Both fits of the current model, {support['n_components']} component(s), limits at {level}. "
-                   + (f"No robust fit: {note}" if note else ""), className="ld-muted"),
+            html.P(shown["note"], className="ld-muted"),
         ]
     )
 
