@@ -149,6 +149,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_batch_commands(commands)  # batches check (posts to a running server)
 
+    from webapp.cli.backup import add_backup_commands
+
+    add_backup_commands(commands)  # backup, restore
+
     return parser
 
 

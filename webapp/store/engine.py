@@ -99,6 +99,24 @@ def current_revision(engine: Engine) -> str | None:
         return MigrationContext.configure(connection).get_current_revision()
 
 
+def table_names(engine: Engine) -> list[str]:
+    """Names of the tables the database holds (any, not only LatentDesk's)."""
+    from sqlalchemy import inspect
+
+    return inspect(engine).get_table_names()
+
+
+def row_counts(session: Session) -> dict[str, int]:
+    """Rows per LatentDesk table present in the database (a backup's inventory)."""
+    from sqlalchemy import func, select
+
+    from webapp.store.tables import Base
+
+    present = set(table_names(session.get_bind()))
+    return {table.name: int(session.execute(select(func.count()).select_from(table)).scalar_one())
+            for table in Base.metadata.sorted_tables if table.name in present}
+
+
 def init_app(app) -> None:
     """Bind an engine and a session factory to ``app`` and migrate the schema."""
     engine = make_engine(database_url(app.config))
