@@ -81,8 +81,10 @@ def test_score_chart_limits_are_prediction_intervals(wine):
     result = mon.score_new_samples(model, new)
     for a, chart in enumerate(result.score_charts):
         half = [stats.t.ppf((1 + c) / 2, n - 1) * np.sqrt(model.eigenvalues_[a] * (1 + 1 / n)) for c in (0.95, 0.99)]
-        assert [chart.warning, chart.action] == pytest.approx(half, rel=1e-10)
-        assert [chart.lower_warning, chart.lower_action] == pytest.approx([-half[0], -half[1]], rel=1e-10)
+        # rel 1e-9: the code takes the F(1, n-1) quantile, this check the t quantile (F = t^2); scipy 1.11's
+        # inverse incomplete beta behind the F quantile agrees with t^2 only to about 1.4e-10.
+        assert [chart.warning, chart.action] == pytest.approx(half, rel=1e-9)
+        assert [chart.lower_warning, chart.lower_action] == pytest.approx([-half[0], -half[1]], rel=1e-9)
         assert chart.centre == 0.0 and chart.two_sided
 
 

@@ -52,7 +52,7 @@ def test_log10_is_applied_before_centring_and_reapplied_to_new_data():
 
 
 def test_log10_of_non_positive_value_names_variable_sample_and_value():
-    bad = pd.DataFrame(X, columns=NAMES, index=IDS)
+    bad = pd.DataFrame(X.copy(), columns=NAMES, index=IDS)  # a copy: without copy-on-write (pandas < 3) X would change
     bad.loc["s7", "c"] = -0.5
     with pytest.raises(InputError, match=r"variable 'c', sample 's7' has -0.5"):
         PCAModel(n_components=2, log10=["c"]).fit(bad)

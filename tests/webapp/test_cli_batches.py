@@ -93,7 +93,7 @@ def test_a_good_batch_is_stored_printed_and_written(app, client, team, ref_id, s
     assert served["uploaded_by_name"] == team["analyst"].display_name
     csv = client.get(f"/api/v1/batches/{written['id']}/samples.csv", headers=team["viewer"].headers)
     assert (out_dir / "samples.csv").read_bytes() == csv.data
-    table = pd.read_csv(out_dir / "samples.csv")
+    table = pd.read_csv(out_dir / "samples.csv", float_precision="round_trip")
     assert list(table["sample"]) == list(faulty_batch()["sample"])
     assert list(table["t2"]) == [s["t2"] for s in served["samples"]]
     assert list(table["spe"]) == [s["spe"] for s in served["samples"]]

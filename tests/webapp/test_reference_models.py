@@ -353,7 +353,7 @@ def test_csv_twin_lists_the_same_models(client, team, fitted):
     sign(client, team["reviewer"], first)
     response = client.get("/api/v1/reference-models.csv?state=approved", headers=team["viewer"].headers)
     assert response.status_code == 200 and response.mimetype == "text/csv"
-    frame = pd.read_csv(io.StringIO(response.get_data(as_text=True)))
+    frame = pd.read_csv(io.StringIO(response.get_data(as_text=True)), float_precision="round_trip")
     assert frame["id"].tolist() == [first] and frame["decided_by"].tolist() == [team["reviewer"].display_name]
     assert "alcohol (% v/v)" in frame["variables"][0]
     # OWASP CSV Injection: a text cell starting with '=' gets a leading quote.
@@ -487,7 +487,7 @@ def test_downloaded_file_and_offline_apply_match_the_server(client, team, fitted
     from webapp.cli import main
 
     assert main(["apply", str(model_path), str(data_path), "--out", str(out)]) == 0
-    offline = pd.read_csv(out / "samples.csv").set_index("sample")
+    offline = pd.read_csv(out / "samples.csv", float_precision="round_trip").set_index("sample")
 
     server = client.get(f"/api/v1/models/{fitted['model_id']}/samples", headers=team["viewer"].headers).get_json()
     assert len(server["samples"]) == len(offline) == 40
